@@ -1,0 +1,56 @@
+using StackBuild.IO;
+
+namespace StackBuild.Cli;
+
+/// <summary>Where commands write, and the one place that turns input problems into one-line messages and exit codes.</summary>
+public sealed class CliOutput(TextWriter stdout, TextWriter stderr)
+{
+    public TextWriter Out { get; } = stdout;
+    public TextWriter Error { get; } = stderr;
+
+    /// <summary>True when progress lines should be shown (a terminal on stderr, and not under a test writer).</summary>
+    public bool ShowProgress => ReferenceEquals(Error, Console.Error) && !Console.IsErrorRedirected;
+
+    public const int ExitOk = 0;
+    public const int ExitInputProblem = 1;
+    public const int ExitFailure = 3;
+
+    /// <summary>Runs a command body, mapping known problems to one clear line each and a non-zero exit.</summary>
+    public int Guard(Func<int> body)
+    {
+        try
+        {
+            return body();
+        }
+        catch (InputProblemsException many)
+        {
+            foreach (var p in many.Problems) Error.WriteLine($"error: {p.Message}");
+            return ExitInputProblem;
+        }
+        catch (InputProblemException one)
+        {
+            Error.WriteLine($"error: {one.Message}");
+            return ExitInputProblem;
+        }
+        catch (IOException io)
+        {
+            Error.WriteLine($"error: {io.Message} — check the path, free disk space and permissions, then run again");
+            return ExitFailure;
+        }
+        catch (UnauthorizedAccessException denied)
+        {
+            Error.WriteLine($"error: {denied.Message} — choose a location you may write to");
+            return ExitFailure;
+        }
+    }
+
+    public void Progress(string text)
+    {
+        if (ShowProgress) Error.Write($"\r{text}\u001b[K");
+    }
+
+    public void EndProgress()
+    {
+        if (ShowProgress) Error.WriteLine();
+    }
+}

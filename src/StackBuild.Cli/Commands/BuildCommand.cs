@@ -1,0 +1,13 @@
+using System.CommandLine;
+
+namespace StackBuild.Cli.Commands;
+
+public static class BuildCommand
+{
+    public static Command Create(CliOutput console)
+    {
+        var command = new Command("build", "TODO");
+        command.SetAction(_ => console.Guard(() => { console.Error.WriteLine("not yet built"); return CliOutput.ExitFailure; }));
+        return command;
+    }
+}

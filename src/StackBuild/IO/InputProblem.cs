@@ -1,0 +1,35 @@
+namespace StackBuild.IO;
+
+/// <summary>
+/// A problem with the user's input that the user can fix: which file, what is wrong, and what to do.
+/// The CLI prints <see cref="Exception.Message"/> as one line and exits non-zero.
+/// </summary>
+public class InputProblemException : Exception
+{
+    public string? File { get; }
+    public string Problem { get; }
+    public string Remedy { get; }
+
+    public InputProblemException(string? file, string problem, string remedy, Exception? inner = null)
+        : base(Format(file, problem, remedy), inner)
+    {
+        File = file;
+        Problem = problem;
+        Remedy = remedy;
+    }
+
+    public static string Format(string? file, string problem, string remedy)
+    {
+        var head = string.IsNullOrEmpty(file) ? problem : $"{file}: {problem}";
+        return string.IsNullOrEmpty(remedy) ? head : $"{head} — {remedy}";
+    }
+}
+
+/// <summary>Several input problems found in one pass, one line each.</summary>
+public sealed class InputProblemsException : Exception
+{
+    public IReadOnlyList<InputProblemException> Problems { get; }
+
+    public InputProblemsException(IReadOnlyList<InputProblemException> problems)
+        : base(string.Join(Environment.NewLine, problems.Select(p => p.Message))) => Problems = problems;
+}

@@ -1,0 +1,44 @@
+namespace StackBuild.Imaging;
+
+/// <summary>
+/// A single-channel image of 32-bit floats, row-major, x to the right and y down, (0, 0) at the centre of the
+/// top-left pixel. Registration and rendering work on this type.
+/// </summary>
+public sealed class GrayImage
+{
+    public int Width { get; }
+    public int Height { get; }
+    public float[] Pixels { get; }
+
+    public GrayImage(int width, int height, float[]? pixels = null)
+    {
+        if (width <= 0 || height <= 0) throw new ArgumentOutOfRangeException(nameof(width), "An image needs a positive width and height.");
+        Width = width;
+        Height = height;
+        Pixels = pixels ?? new float[checked(width * height)];
+        if (Pixels.Length != width * height) throw new ArgumentException("Pixel count does not match width × height.");
+    }
+
+    public float this[int x, int y]
+    {
+        get => Pixels[y * Width + x];
+        set => Pixels[y * Width + x] = value;
+    }
+
+    public Span<float> Row(int y) => Pixels.AsSpan(y * Width, Width);
+
+    public GrayImage Clone() => new(Width, Height, (float[])Pixels.Clone());
+
+    /// <summary>Bilinear sample at (x, y) in pixel coordinates; <paramref name="outside"/> beyond the edge.</summary>
+    public float SampleBilinear(double x, double y, float outside = 0f)
+    {
+        if (x < -0.5 || y < -0.5 || x > Width - 0.5 || y > Height - 0.5) return outside;
+        double fx = Math.Clamp(x, 0, Width - 1), fy = Math.Clamp(y, 0, Height - 1);
+        int x0 = Math.Min((int)fx, Width - 2 < 0 ? 0 : Width - 2), y0 = Math.Min((int)fy, Height - 2 < 0 ? 0 : Height - 2);
+        int x1 = Math.Min(x0 + 1, Width - 1), y1 = Math.Min(y0 + 1, Height - 1);
+        double tx = fx - x0, ty = fy - y0;
+        double top = Pixels[y0 * Width + x0] * (1 - tx) + Pixels[y0 * Width + x1] * tx;
+        double bottom = Pixels[y1 * Width + x0] * (1 - tx) + Pixels[y1 * Width + x1] * tx;
+        return (float)(top * (1 - ty) + bottom * ty);
+    }
+}
