@@ -1,0 +1,203 @@
+using System.Runtime.InteropServices;
+using BitMiracle.LibTiff.Classic;
+using StackBuild.IO;
+
+namespace StackBuild.Imaging;
+
+/// <summary>
+/// TIFF through BitMiracle.LibTiff.NET: reads the tags of the first image in the file (slide scanners put the
+/// full resolution first) and decodes tiled or striped, interleaved or planar, 8- or 16-bit gray, RGB,
+/// palette and JPEG-compressed YCbCr TIFF into gray rows. ImageSharp 2.1 cannot decode tiled TIFF (NOTES.md).
+/// </summary>
+internal static class TiffSectionFile
+{
+    public const string TiledFormat = "TIFF (tiled)";
+
+    static TiffSectionFile() => Tiff.SetErrorHandler(new QuietErrors());
+
+    private enum Colour { Gray, GrayInverted, Rgb, Palette }
+
+    private sealed record Layout(int Width, int Height, int Bits, int SamplesPerPixel, bool Planar, Colour Colour, bool Tiled,
+        bool JpegYCbCr);
+
+    public static ImageFacts Identify(string path, Stream stream)
+    {
+        using var tiff = Open(path, stream);
+        var layout = ReadLayout(path, tiff);
+        int channels = layout.Colour is Colour.Gray or Colour.GrayInverted ? 1 : 3;
+        return new ImageFacts(layout.Width, layout.Height, layout.Bits, channels, layout.Tiled ? TiledFormat : "TIFF");
+    }
+
+    public static void Read(string path, GrayChannel channel, BoxDownsampler sink)
+    {
+        using var stream = SectionImageReader.OpenRead(path);
+        using var tiff = Open(path, stream);
+        var layout = ReadLayout(path, tiff);
+        if (layout.JpegYCbCr) tiff.SetField(TiffTag.JPEGCOLORMODE, JpegColorMode.RGB); // the codec returns RGB
+        var tables = SampleTables(tiff, layout, channel);
+        int blockWidth, blockHeight;
+        if (layout.Tiled)
+        {
+            blockWidth = tiff.GetField(TiffTag.TILEWIDTH)[0].ToInt();
+            blockHeight = tiff.GetField(TiffTag.TILELENGTH)[0].ToInt();
+        }
+        else
+        {
+            blockWidth = layout.Width;
+            blockHeight = (int)Math.Min(layout.Height, tiff.GetFieldDefaulted(TiffTag.ROWSPERSTRIP)[0].ToUInt());
+        }
+        int bytesPerSample = layout.Bits / 8;
+        int samplesInBuffer = layout.Planar ? 1 : layout.SamplesPerPixel;
+        int rowBytes = blockWidth * samplesInBuffer * bytesPerSample;
+        var buffer = new byte[Math.Max(layout.Tiled ? tiff.TileSize() : tiff.StripSize(), checked(rowBytes * blockHeight))];
+        var band = new float[checked(blockHeight * layout.Width)];
+        // Interleaved samples come in one decode per block; planar ones in one decode per plane that is needed.
+        int[] planes = layout.Planar ? [.. Enumerable.Range(0, tables.Length).Where(s => tables[s] is not null)] : [0];
+        for (int y0 = 0; y0 < layout.Height; y0 += blockHeight)
+        {
+            int rows = Math.Min(blockHeight, layout.Height - y0);
+            band.AsSpan(0, rows * layout.Width).Clear();
+            foreach (int plane in planes)
+            {
+                for (int x0 = 0; x0 < layout.Width; x0 += blockWidth)
+                {
+                    int read = layout.Tiled
+                        ? tiff.ReadTile(buffer, 0, x0, y0, 0, (short)plane)
+                        : tiff.ReadEncodedStrip(tiff.ComputeStrip(y0, (short)plane), buffer, 0, -1);
+                    if (read < 0) throw Failed(path, "a tile or strip cannot be decoded");
+                    int columns = Math.Min(blockWidth, layout.Width - x0);
+                    for (int r = 0; r < rows; r++)
+                    {
+                        var source = buffer.AsSpan(r * rowBytes, rowBytes);
+                        var target = band.AsSpan(r * layout.Width + x0, columns);
+                        if (layout.Planar) AddSamples(source, target, 1, 0, tables[plane]!, bytesPerSample);
+                        else
+                            for (int s = 0; s < tables.Length; s++)
+                                if (tables[s] is { } table) AddSamples(source, target, samplesInBuffer, s, table, bytesPerSample);
+                    }
+                }
+            }
+            for (int r = 0; r < rows; r++) sink.Accept(band.AsSpan(r * layout.Width, layout.Width));
+        }
+    }
+
+    /// <summary>target[i] += table[sample value of pixel i], for the given sample within each pixel.</summary>
+    private static void AddSamples(ReadOnlySpan<byte> source, Span<float> target, int stride, int sample, float[] table, int bytesPerSample)
+    {
+        if (bytesPerSample == 1)
+        {
+            for (int i = 0, k = sample; i < target.Length; i++, k += stride) target[i] += table[source[k]];
+        }
+        else
+        {
+            // LibTiff swaps 16-bit samples to the machine's byte order while decoding.
+            var wide = MemoryMarshal.Cast<byte, ushort>(source);
+            for (int i = 0, k = sample; i < target.Length; i++, k += stride) target[i] += table[wide[k]];
+        }
+    }
+
+    /// <summary>One table per sample index (null: sample not used) mapping stored values to their share of the gray value.</summary>
+    private static float[]?[] SampleTables(Tiff tiff, Layout layout, GrayChannel channel)
+    {
+        int max = (1 << layout.Bits) - 1;
+        switch (layout.Colour)
+        {
+            case Colour.Gray:
+                return [layout.Bits == 8 ? GrayLevels.Unit8 : GrayLevels.Unit16];
+            case Colour.GrayInverted:
+            {
+                var table = new float[max + 1];
+                for (int v = 0; v <= max; v++) table[v] = (float)(1.0 - (double)v / max);
+                return [table];
+            }
+            case Colour.Palette:
+            {
+                var map = tiff.GetField(TiffTag.COLORMAP);
+                ushort[] red = map[0].ToUShortArray(), green = map[1].ToUShortArray(), blue = map[2].ToUShortArray();
+                var (wr, wg, wb) = GrayLevels.Weights(channel);
+                var table = new float[max + 1];
+                for (int v = 0; v <= max && v < red.Length; v++)
+                    table[v] = (float)((wr * red[v] + wg * green[v] + wb * blue[v]) / 65535.0);
+                return [table];
+            }
+            default:
+            {
+                var (r, g, b) = GrayLevels.ChannelTables(channel, layout.Bits);
+                var (wr, wg, wb) = GrayLevels.Weights(channel);
+                return [wr == 0 ? null : r, wg == 0 ? null : g, wb == 0 ? null : b];
+            }
+        }
+    }
+
+    private static Tiff Open(string path, Stream stream)
+    {
+        QuietErrors.Last = null;
+        var tiff = Tiff.ClientOpen(path, "r", stream, new TiffStream());
+        return tiff ?? throw Failed(path, "the TIFF structure cannot be read");
+    }
+
+    private static Layout ReadLayout(string path, Tiff tiff)
+    {
+        int width = tiff.GetField(TiffTag.IMAGEWIDTH)?[0].ToInt() ?? 0;
+        int height = tiff.GetField(TiffTag.IMAGELENGTH)?[0].ToInt() ?? 0;
+        if (width <= 0 || height <= 0)
+            throw new InputProblemException(path, "is a TIFF without a valid image size", "export the image again");
+        int bits = tiff.GetFieldDefaulted(TiffTag.BITSPERSAMPLE)[0].ToInt();
+        int samples = tiff.GetFieldDefaulted(TiffTag.SAMPLESPERPIXEL)[0].ToInt();
+        var format = (SampleFormat)tiff.GetFieldDefaulted(TiffTag.SAMPLEFORMAT)[0].ToInt();
+        bool planar = (PlanarConfig)tiff.GetFieldDefaulted(TiffTag.PLANARCONFIG)[0].ToInt() == PlanarConfig.SEPARATE;
+        var compression = (Compression)tiff.GetFieldDefaulted(TiffTag.COMPRESSION)[0].ToInt();
+        var photometric = tiff.GetField(TiffTag.PHOTOMETRIC) is { } p ? (Photometric)p[0].ToInt() : Photometric.MINISBLACK;
+        bool tiled = tiff.IsTiled();
+
+        const string convert = "convert it to 8- or 16-bit gray or RGB (PNG or TIFF)";
+        if (format is not SampleFormat.UINT and not SampleFormat.VOID)
+            throw new InputProblemException(path, $"is a TIFF with {(format == SampleFormat.IEEEFP ? "floating-point" : "signed")} samples, which is not read", convert);
+        if (bits is not 8 and not 16)
+            throw new InputProblemException(path, $"is a TIFF with {bits} bits per sample, which is not read", convert);
+        bool jpegYCbCr = false;
+        Colour colour;
+        switch (photometric)
+        {
+            case Photometric.MINISBLACK: colour = Colour.Gray; break;
+            case Photometric.MINISWHITE: colour = Colour.GrayInverted; break;
+            case Photometric.RGB when samples >= 3: colour = Colour.Rgb; break;
+            case Photometric.PALETTE when bits == 8 && tiff.GetField(TiffTag.COLORMAP) is not null: colour = Colour.Palette; break;
+            case Photometric.YCBCR when compression == Compression.JPEG && bits == 8 && samples == 3 && !planar:
+                colour = Colour.Rgb;
+                jpegYCbCr = true;
+                break;
+            case Photometric.SEPARATED:
+                throw new InputProblemException(path, "is a CMYK TIFF (print colours), which is not read", "convert it to RGB or gray");
+            default:
+                throw new InputProblemException(path, $"is a TIFF with colour model {photometric} and {samples} samples per pixel, which is not read", convert);
+        }
+        if (!tiff.IsCodecConfigured(compression))
+            throw new InputProblemException(path, $"is a TIFF compressed with scheme {(int)compression} ({compression}), which cannot be decoded here",
+                "save it again uncompressed or with LZW, Deflate or JPEG compression");
+        return new Layout(width, height, bits, samples, planar, colour, tiled, jpegYCbCr);
+    }
+
+    private static InputProblemException Failed(string path, string what)
+    {
+        var detail = QuietErrors.Last is { Length: > 0 } last ? $" ({last})" : "";
+        return new InputProblemException(path, $"{what}{detail}", "check that the file is complete (copy it again) or export it again");
+    }
+
+    /// <summary>LibTiff reports problems through a process-wide handler that writes to the console by default; keep the last message instead.</summary>
+    private sealed class QuietErrors : TiffErrorHandler
+    {
+        [ThreadStatic] internal static string? Last;
+
+        public override void ErrorHandler(Tiff tif, string method, string format, params object[] args) => Last = Text(format, args);
+        public override void ErrorHandlerExt(Tiff tif, object clientData, string method, string format, params object[] args) { }
+        public override void WarningHandler(Tiff tif, string method, string format, params object[] args) { }
+        public override void WarningHandlerExt(Tiff tif, object clientData, string method, string format, params object[] args) { }
+
+        private static string Text(string format, object[] args)
+        {
+            try { return string.Format(System.Globalization.CultureInfo.InvariantCulture, format, args).TrimEnd('.'); }
+            catch (FormatException) { return format; }
+        }
+    }
+}
