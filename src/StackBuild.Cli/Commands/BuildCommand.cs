@@ -1,4 +1,12 @@
 using System.CommandLine;
+using System.Text.Json;
+using StackBuild.Geometry;
+using StackBuild.Imaging;
+using StackBuild.IO;
+using StackBuild.Pipeline;
+using StackBuild.Render;
+using StackBuild.Series;
+using StackBuild.Write;
 
 namespace StackBuild.Cli.Commands;
 
@@ -6,8 +14,105 @@ public static class BuildCommand
 {
     public static Command Create(CliOutput console)
     {
-        var command = new Command("build", "TODO");
-        command.SetAction(_ => console.Guard(() => { console.Error.WriteLine("not yet built"); return CliOutput.ExitFailure; }));
+        var series = new Argument<string>("series") { Description = "Folder of section images (with an optional manifest.csv), or a manifest file" };
+        var output = new Option<string>("--output", "-o") { Description = "Output volume, .nii.gz or .nii; the sidecar .json is written beside it", Required = true };
+        var manifest = new Option<string?>("--manifest") { Description = "Manifest CSV to use instead of SERIES/manifest.csv" };
+        var pixelSize = new Option<double?>("--pixel-size") { Description = "Input pixel size in µm (overrides the manifest)" };
+        var spacing = new Option<double?>("--spacing") { Description = "Distance between consecutive section numbers in µm (overrides the manifest)" };
+        var axes = new Option<string>("--axes") { Description = "Axis codes for (image right, image down, increasing section number), e.g. RIP", DefaultValueFactory = _ => AxisCodes.Default.Code };
+        var outPixel = new Option<double?>("--output-pixel-size") { Description = "In-plane voxel size of the volume in µm (default: the input pixel size, coarsened so a plane is at most 2048 voxels)" };
+        var channel = new Option<string>("--channel") { Description = "How colour images become gray: luminance, red, green or blue", DefaultValueFactory = _ => "luminance" };
+        var interpolation = new Option<string>("--interpolation") { Description = "Resampling: bilinear or bicubic", DefaultValueFactory = _ => "bilinear" };
+        var json = new Option<bool>("--json") { Description = "Print a machine-readable summary instead of text" };
+
+        var command = new Command("build", "Rebuild a section series into one NIfTI-1 volume with a sidecar of every section's placement.\n\n" +
+            "Example:\n  stackbuild build demo-series -o demo-volume.nii.gz")
+        {
+            series, output, manifest, pixelSize, spacing, axes, outPixel, channel, interpolation, json,
+        };
+        command.SetAction(parse => console.Guard(() =>
+        {
+            if (!AxisCodes.TryParse(parse.GetValue(axes), out var axisCodes, out var axisProblem))
+                throw new InputProblemException(null, $"--axes: {axisProblem}", "see README, 'Geometry'");
+            var paths = BuildOutputPaths.For(parse.GetValue(output)!);
+            var options = new BuildOptions
+            {
+                Input = parse.GetValue(series)!,
+                Series = new SeriesOptions
+                {
+                    ManifestPath = parse.GetValue(manifest),
+                    PixelSizeUm = Positive(parse.GetValue(pixelSize), "--pixel-size"),
+                    SpacingUm = Positive(parse.GetValue(spacing), "--spacing"),
+                },
+                Axes = axisCodes,
+                OutputPixelSizeUm = Positive(parse.GetValue(outPixel), "--output-pixel-size"),
+                Channel = ParseChannel(parse.GetValue(channel)!),
+                Interpolation = ParseInterpolation(parse.GetValue(interpolation)!),
+            };
+            var result = BuildPipeline.Run(options, new SyncProgress(console));
+            console.EndProgress();
+            BuildWriter.Write(result, paths);
+            Report(console, result, paths, parse.GetValue(json));
+            return CliOutput.ExitOk;
+        }));
         return command;
     }
+
+    private sealed class SyncProgress(CliOutput console) : IProgress<string>
+    {
+        public void Report(string value) => console.Progress(value);
+    }
+
+    private static void Report(CliOutput console, BuildResult result, BuildOutputPaths paths, bool json)
+    {
+        var r = result.Record;
+        var counts = r.Sections.GroupBy(s => s.Status).ToDictionary(g => g.Key, g => g.Count());
+        if (json)
+        {
+            console.Out.WriteLine(JsonSerializer.Serialize(new
+            {
+                volume = paths.Volume,
+                sidecar = paths.Sidecar,
+                aligned = r.Aligned,
+                dimensions = r.Dimensions,
+                voxel_size_mm = r.VoxelSizeMm,
+                axis_codes = r.AxisCodes,
+                sections = counts,
+                warnings = r.Warnings,
+            }));
+            return;
+        }
+        var o = console.Out;
+        o.WriteLine($"Volume   {paths.Volume}");
+        o.WriteLine($"Sidecar  {paths.Sidecar}");
+        o.WriteLine($"Grid     {r.Dimensions[0]} × {r.Dimensions[1]} × {r.Dimensions[2]} voxels of {r.VoxelSizeMm[0] * 1000:0.###} × {r.VoxelSizeMm[1] * 1000:0.###} × {r.VoxelSizeMm[2] * 1000:0.###} µm, axes {r.AxisCodes}");
+        o.WriteLine($"Sections {string.Join(", ", counts.OrderBy(c => c.Key).Select(c => $"{c.Value} {c.Key}"))}");
+        foreach (var w in r.Warnings) o.WriteLine($"warning: {w}");
+        if (!r.Aligned)
+            o.WriteLine("Note: sections were placed centred and NOT aligned yet; this volume shows the series as scanned.");
+    }
+
+    internal static double? Positive(double? value, string name)
+    {
+        if (value is null) return null;
+        if (!(value > 0) || double.IsInfinity(value.Value))
+            throw new InputProblemException(null, $"{name} must be a positive number of µm, not {value}", $"give {name} a value such as 10");
+        return value;
+    }
+
+    internal static GrayChannel ParseChannel(string text) => text.Trim().ToLowerInvariant() switch
+    {
+        "luminance" or "gray" or "grey" => GrayChannel.Luminance,
+        "red" => GrayChannel.Red,
+        "green" => GrayChannel.Green,
+        "blue" => GrayChannel.Blue,
+        _ => throw new InputProblemException(null, $"--channel '{text}' is not known", "use luminance, red, green or blue"),
+    };
+
+    internal static Interpolation ParseInterpolation(string text) => text.Trim().ToLowerInvariant() switch
+    {
+        "bilinear" or "linear" => Interpolation.Bilinear,
+        "bicubic" or "cubic" => Interpolation.Bicubic,
+        _ => throw new InputProblemException(null, $"--interpolation '{text}' is not known", "use bilinear or bicubic"),
+    };
 }

@@ -1,0 +1,46 @@
+using System.Text.Json.Serialization;
+
+namespace StackBuild.Pipeline;
+
+/// <summary>What happened to one section, as written to the sidecar.</summary>
+/// <remarks>
+/// <see cref="Matrix"/> is the 3×3 row-major matrix that maps pixel coordinates of the input image (x right,
+/// y down, origin at the centre of the top-left pixel, full-resolution input pixels) to (i, j) voxel
+/// coordinates of the section's plane (index <see cref="ZIndex"/>) in the output volume.
+/// </remarks>
+public sealed record SectionRecord
+{
+    [JsonPropertyName("number")] public int Number { get; init; }
+    [JsonPropertyName("file")] public string? File { get; init; }
+    /// <summary>placed (unaligned), aligned, gap, excluded or failed.</summary>
+    [JsonPropertyName("status")] public string Status { get; init; } = "";
+    [JsonPropertyName("mirrored")] public bool? Mirrored { get; init; }
+    [JsonPropertyName("rotation_deg")] public double? RotationDegrees { get; init; }
+    [JsonPropertyName("shift_px")] public double[]? ShiftPx { get; init; }
+    [JsonPropertyName("confidence")] public double? Confidence { get; init; }
+    [JsonPropertyName("z_index")] public int ZIndex { get; init; }
+    [JsonPropertyName("position_um")] public double PositionUm { get; init; }
+    [JsonPropertyName("pixel_size_um")] public double? PixelSizeUm { get; init; }
+    [JsonPropertyName("damaged")] public bool Damaged { get; init; }
+    [JsonPropertyName("matrix")] public double[][]? Matrix { get; init; }
+    [JsonPropertyName("note")] public string? Note { get; init; }
+}
+
+/// <summary>The sidecar of a build: geometry, parameters and every section's record.</summary>
+public sealed record BuildRecord
+{
+    [JsonPropertyName("software")] public string Software { get; init; } = "StackBuild";
+    [JsonPropertyName("version")] public string Version { get; init; } = "";
+    [JsonPropertyName("created")] public string Created { get; init; } = "";
+    [JsonPropertyName("input")] public string Input { get; init; } = "";
+    [JsonPropertyName("aligned")] public bool Aligned { get; init; }
+    [JsonPropertyName("dimensions")] public int[] Dimensions { get; init; } = [];
+    [JsonPropertyName("voxel_size_mm")] public double[] VoxelSizeMm { get; init; } = [];
+    [JsonPropertyName("axis_codes")] public string AxisCodes { get; init; } = "";
+    [JsonPropertyName("affine")] public double[][] Affine { get; init; } = [];
+    [JsonPropertyName("pixel_size_um")] public double InputPixelSizeUm { get; init; }
+    [JsonPropertyName("spacing_um")] public double SpacingUm { get; init; }
+    [JsonPropertyName("parameters")] public Dictionary<string, string> Parameters { get; init; } = [];
+    [JsonPropertyName("warnings")] public List<string> Warnings { get; init; } = [];
+    [JsonPropertyName("sections")] public List<SectionRecord> Sections { get; init; } = [];
+}

@@ -1,0 +1,36 @@
+using System.Text.Json;
+using StackBuild.IO;
+using StackBuild.Nifti;
+using StackBuild.Pipeline;
+
+namespace StackBuild.Write;
+
+/// <summary>The output paths of a build: the volume and its sidecar (same base name, as BIDS does).</summary>
+public sealed record BuildOutputPaths(string Volume, string Sidecar)
+{
+    /// <summary>Checks the volume path and derives the sidecar path; refuses names that are not NIfTI.</summary>
+    public static BuildOutputPaths For(string volumePath)
+    {
+        string baseName;
+        if (volumePath.EndsWith(".nii.gz", StringComparison.OrdinalIgnoreCase)) baseName = volumePath[..^7];
+        else if (volumePath.EndsWith(".nii", StringComparison.OrdinalIgnoreCase)) baseName = volumePath[..^4];
+        else throw new InputProblemException(volumePath, "the output must be a NIfTI-1 file", "end the output name with .nii.gz (compressed) or .nii");
+        if (Path.GetFileName(baseName).Length == 0)
+            throw new InputProblemException(volumePath, "the output name is empty", "give a file name such as volume.nii.gz");
+        return new BuildOutputPaths(volumePath, baseName + ".json");
+    }
+}
+
+/// <summary>Writes a build's volume and sidecar, each atomically.</summary>
+public static class BuildWriter
+{
+    public static readonly JsonSerializerOptions JsonOptions = new() { WriteIndented = true };
+
+    public static void Write(BuildResult result, BuildOutputPaths paths)
+    {
+        var type = result.InputBitDepth > 8 ? NiftiDataType.UInt16 : NiftiDataType.UInt8;
+        var description = result.Record.Aligned ? "StackBuild aligned section series" : "StackBuild section series (unaligned)";
+        NiftiFile.Write(paths.Volume, result.Volume, new NiftiWriteOptions { DataType = type, Description = description });
+        AtomicFile.WriteAllText(paths.Sidecar, JsonSerializer.Serialize(result.Record, JsonOptions) + "\n");
+    }
+}

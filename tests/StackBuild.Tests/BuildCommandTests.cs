@@ -1,0 +1,131 @@
+using System.Text.Json;
+using SixLabors.ImageSharp;
+using SixLabors.ImageSharp.PixelFormats;
+using StackBuild.Geometry;
+using StackBuild.Nifti;
+using Xunit;
+
+namespace StackBuild.Tests;
+
+/// <summary>The whole `stackbuild build` command on small series made here, read back with our NIfTI reader.</summary>
+public sealed class BuildCommandTests : IDisposable
+{
+    private readonly string _dir = Directory.CreateTempSubdirectory("sb-build-").FullName;
+
+    public void Dispose()
+    {
+        try { Directory.Delete(_dir, true); } catch (IOException) { }
+    }
+
+    private static (int Code, string Out, string Err) Run(params string[] args)
+    {
+        var o = new StringWriter();
+        var e = new StringWriter();
+        int code = Cli.Program.Run(args, o, e);
+        return (code, o.ToString(), e.ToString());
+    }
+
+    /// <summary>A gray 8-bit section: bright slide, a dark disc off centre so placement can be checked.</summary>
+    private string WriteSection(string folder, string name, int width, int height, int discX, int discY, byte tissue = 60)
+    {
+        using var image = new Image<L8>(width, height, new L8(230));
+        for (int y = 0; y < height; y++)
+        for (int x = 0; x < width; x++)
+            if ((x - discX) * (x - discX) + (y - discY) * (y - discY) <= 25) image[x, y] = new L8(tissue);
+        var path = Path.Combine(folder, name);
+        image.SaveAsPng(path);
+        return path;
+    }
+
+    private string MakeSeries()
+    {
+        var folder = Directory.CreateDirectory(Path.Combine(_dir, "series")).FullName;
+        WriteSection(folder, "s_001.png", 40, 30, 10, 10);
+        WriteSection(folder, "s_002.png", 40, 30, 10, 10);
+        // section 3 lost: a gap
+        WriteSection(folder, "s_004.png", 50, 30, 10, 10);
+        File.WriteAllText(Path.Combine(folder, "manifest.csv"),
+            "#! pixel_size_um = 10\n#! spacing_um = 40\nsection,file,mirrored,exclude,damaged,note\n" +
+            "1,s_001.png,,,,\n2,s_002.png,yes,,,\n3,,,,,lost\n4,s_004.png,,,,\n");
+        return folder;
+    }
+
+    [Fact]
+    public void BuildWritesVolumeWithGeometryAndSidecar()
+    {
+        var series = MakeSeries();
+        var output = Path.Combine(_dir, "vol.nii.gz");
+        var (code, stdout, stderr) = Run("build", series, "-o", output, "--axes", "LIP");
+        Assert.True(code == 0, stderr);
+        Assert.Contains("NOT aligned", stdout);
+
+        var image = NiftiFile.Read(output);
+        Assert.Equal([50, 30, 4], image.Shape);
+        Assert.Equal(NiftiDataType.UInt8, image.DataType); // 8-bit input stays 8-bit
+        var sizes = image.Affine.VoxelSizes;
+        Assert.Equal(0.010, sizes.I, 6); // 10 µm pixels → 0.010 mm
+        Assert.Equal(0.010, sizes.J, 6);
+        Assert.Equal(0.040, sizes.K, 6); // 40 µm spacing
+        Assert.Equal("LIP", image.Affine.AxisCodes.Code);
+
+        var volume = image.ToVolume();
+        Assert.All(Enumerable.Range(0, 50 * 30), n => Assert.Equal(0f, volume.Plane(2)[n])); // the gap is an empty plane
+
+        var sidecar = JsonDocument.Parse(File.ReadAllText(Path.Combine(_dir, "vol.json"))).RootElement;
+        var sections = sidecar.GetProperty("sections").EnumerateArray().ToList();
+        Assert.Equal([1, 2, 3, 4], sections.Select(s => s.GetProperty("number").GetInt32()));
+        Assert.Equal(["placed", "placed", "gap", "placed"], sections.Select(s => s.GetProperty("status").GetString()));
+
+        // The matrix maps input pixels to plane voxels: the disc centre of section 1 lands on a dark voxel.
+        var m = sections[0].GetProperty("matrix").EnumerateArray().Select(r => r.EnumerateArray().Select(v => v.GetDouble()).ToArray()).ToArray();
+        var t = Transform2D.FromRows(m);
+        var (i, j) = t.Apply(10, 10);
+        Assert.Equal(60f, volume[(int)Math.Round(i), (int)Math.Round(j), 0]);
+        // Section 2 is known mounted face down: its matrix mirrors, and the disc lands mirrored.
+        var m2 = Transform2D.FromRows(sections[1].GetProperty("matrix").EnumerateArray().Select(r => r.EnumerateArray().Select(v => v.GetDouble()).ToArray()).ToArray());
+        Assert.True(m2.IsMirrored);
+        var (i2, j2) = m2.Apply(10, 10);
+        Assert.Equal(60f, volume[(int)Math.Round(i2), (int)Math.Round(j2), 1]);
+        Assert.NotEqual(Math.Round(i), Math.Round(i2));
+    }
+
+    [Fact]
+    public void BadSeriesGivesOneLinePerProblemAndWritesNothing()
+    {
+        var folder = Directory.CreateDirectory(Path.Combine(_dir, "bad")).FullName;
+        WriteSection(folder, "a_001.png", 20, 20, 5, 5);
+        WriteSection(folder, "b_001.png", 20, 20, 5, 5); // duplicate number 1
+        File.WriteAllText(Path.Combine(folder, "c_002.png"), "this is not an image");
+        var output = Path.Combine(_dir, "out.nii.gz");
+        var (code, _, stderr) = Run("build", folder, "-o", output, "--pixel-size", "5", "--spacing", "20");
+        Assert.Equal(1, code);
+        var lines = stderr.Split('\n', StringSplitOptions.RemoveEmptyEntries);
+        Assert.Contains(lines, l => l.StartsWith("error:") && l.Contains("b_001.png"));
+        Assert.Contains(lines, l => l.StartsWith("error:") && l.Contains("c_002.png"));
+        Assert.False(File.Exists(output));
+        Assert.Empty(Directory.GetFiles(_dir)); // no partial or temporary files beside the output
+    }
+
+    [Theory]
+    [InlineData("vol.nrrd", "must be a NIfTI-1 file")]
+    [InlineData("vol.nii.gz", "--axes")]
+    public void BadOptionsAreOneLine(string outputName, string expected)
+    {
+        var series = MakeSeries();
+        var (code, _, stderr) = Run("build", series, "-o", Path.Combine(_dir, outputName), "--axes", outputName.EndsWith(".gz") ? "RRP" : "RIP");
+        Assert.Equal(1, code);
+        Assert.Contains(expected, stderr);
+        Assert.Single(stderr.Split('\n', StringSplitOptions.RemoveEmptyEntries));
+    }
+
+    [Fact]
+    public void MissingPixelSizeSaysHowToGiveIt()
+    {
+        var folder = Directory.CreateDirectory(Path.Combine(_dir, "nopx")).FullName;
+        WriteSection(folder, "s_001.png", 20, 20, 5, 5);
+        WriteSection(folder, "s_002.png", 20, 20, 5, 5);
+        var (code, _, stderr) = Run("build", folder, "-o", Path.Combine(_dir, "v.nii"), "--spacing", "20");
+        Assert.Equal(1, code);
+        Assert.Contains("--pixel-size", stderr);
+    }
+}
