@@ -1,0 +1,147 @@
+using MathNet.Numerics;
+using StackBuild.Geometry;
+using StackBuild.Imaging;
+
+namespace StackBuild.Register;
+
+/// <summary>
+/// One section made ready for registration: reduced to the working size, tissue bright on dark, normalised to
+/// [0, 1], with its tissue mask and Fourier data. Made once per section by
+/// <see cref="SectionRegistration.Prepare"/> and reused for every pair the section takes part in; immutable,
+/// so it can be shared between threads.
+/// </summary>
+public sealed class PreparedSection
+{
+    public int FullWidth { get; }
+    public int FullHeight { get; }
+    /// <summary>Working pixels per full-resolution pixel (≤ 1).</summary>
+    public double Scale { get; }
+    /// <summary>The preprocessed working image: tissue bright on dark, values in [0, 1].</summary>
+    public GrayImage WorkImage { get; }
+    /// <summary>True when the scan had a bright background and was inverted.</summary>
+    public bool Inverted { get; }
+    /// <summary>The tissue (smoothed Otsu), row-major over <see cref="WorkImage"/>.</summary>
+    public bool[] TissueMask { get; }
+    /// <summary>Share of the working image that is tissue (0 for an empty or flat scan).</summary>
+    public double TissueFraction { get; }
+    /// <summary>Full-resolution pixel coordinates to working-image pixel coordinates.</summary>
+    public Transform2D FullToWork => Preprocessing.ScaleMap(Scale);
+
+    internal SectionCanvas Canvas { get; }
+    internal bool UsesForegroundMask { get; }
+
+    internal PreparedSection(int fullWidth, int fullHeight, double scale, GrayImage work, bool inverted, bool useForegroundMask)
+    {
+        FullWidth = fullWidth;
+        FullHeight = fullHeight;
+        Scale = scale;
+        WorkImage = work;
+        Inverted = inverted;
+        UsesForegroundMask = useForegroundMask;
+        TissueMask = Preprocessing.TissueMask(work.Pixels, work.Width, work.Height);
+        TissueFraction = TissueMask.Count(t => t) / (double)TissueMask.Length;
+        Canvas = new SectionCanvas(this, Fft2D.NextFastSize(Math.Max(work.Width, work.Height)));
+    }
+
+    /// <summary>The same section at a smaller working scale (for pairing with a section prepared at that scale).</summary>
+    internal PreparedSection AtScale(double scale)
+    {
+        var work = ImageOps.Reduce(WorkImage, scale / Scale,
+            Math.Max(1, (int)Math.Round(FullWidth * scale)), Math.Max(1, (int)Math.Round(FullHeight * scale)));
+        return new PreparedSection(FullWidth, FullHeight, scale, work, Inverted, UsesForegroundMask);
+    }
+}
+
+/// <summary>
+/// A section laid on a square n×n canvas (n a fast FFT size) with its tissue centroid at the canvas centre,
+/// so rotations about the canvas centre turn the tissue about itself and need little translation.
+/// </summary>
+internal sealed class SectionCanvas
+{
+    public int Size { get; }
+    /// <summary>Canvas centre, (n − 1)/2 in both axes.</summary>
+    public double Centre => (Size - 1) / 2.0;
+    /// <summary>Full-resolution pixel coordinates to canvas coordinates.</summary>
+    public Transform2D FullToCanvas { get; }
+    /// <summary>Working image on the canvas (0 outside it).</summary>
+    public float[] Image { get; }
+    /// <summary>Feathered tissue mask on the canvas.</summary>
+    public float[] SoftMask { get; }
+    /// <summary>What phase correlation sees before the window: the image, times the soft mask when asked.</summary>
+    public float[] Signal { get; }
+    /// <summary>Unshifted 2D spectrum of the windowed, mean-removed <see cref="Signal"/>.</summary>
+    public Complex32[] Spectrum { get; }
+    public PolarSpectrum Polar { get; }
+    public float[] Window { get; }
+
+    public SectionCanvas(PreparedSection section, int size)
+    {
+        Size = size;
+        var work = section.WorkImage;
+        var (cx, cy) = Centroid(section.TissueMask, work.Width, work.Height);
+        int ox = (int)Math.Round(Centre - cx), oy = (int)Math.Round(Centre - cy);
+        FullToCanvas = section.FullToWork.Then(Transform2D.Translation(ox, oy));
+        var soft = Preprocessing.SoftTissueMask(work.Pixels, work.Width, work.Height);
+        Image = Place(work.Pixels, work.Width, work.Height, ox, oy, size);
+        SoftMask = Place(soft, work.Width, work.Height, ox, oy, size);
+        Signal = section.UsesForegroundMask ? Image.Select((v, i) => v * SoftMask[i]).ToArray() : Image;
+        Window = RadialWindow(size);
+        var fft = Fft2D.Create(size, size);
+        using var spectrum = new ComplexImage(size, size);
+        LoadWindowed(Signal, Window, spectrum);
+        fft.Forward(spectrum);
+        Spectrum = spectrum.Span.ToArray();
+        Polar = PolarSpectrum.FromSpectrum(Spectrum, size);
+    }
+
+    /// <summary>Writes (signal − mean)·window into the real parts of <paramref name="target"/>.</summary>
+    public static void LoadWindowed(ReadOnlySpan<float> signal, ReadOnlySpan<float> window, ComplexImage target)
+    {
+        double sum = 0;
+        foreach (var v in signal) sum += v;
+        float mean = (float)(sum / signal.Length);
+        var t = target.Span;
+        for (int i = 0; i < t.Length; i++) t[i] = new Complex32((signal[i] - mean) * window[i], 0);
+    }
+
+    /// <summary>
+    /// A radially symmetric Tukey window (flat to 75 % of the half-size, cosine taper to 0 at the inscribed
+    /// circle): unlike a separable one it does not change when the content turns, which the rotation estimate relies on.
+    /// </summary>
+    private static float[] RadialWindow(int n)
+    {
+        var w = new float[n * n];
+        double c = (n - 1) / 2.0, radius = n / 2.0;
+        for (int y = 0; y < n; y++)
+        for (int x = 0; x < n; x++)
+        {
+            double r = Math.Sqrt((x - c) * (x - c) + (y - c) * (y - c)) / radius;
+            w[y * n + x] = (float)PhaseCorrelation.TukeyTaper(1 - r, 0.25);
+        }
+        return w;
+    }
+
+    private static (double X, double Y) Centroid(bool[] mask, int w, int h)
+    {
+        double sx = 0, sy = 0;
+        long count = 0;
+        for (int y = 0; y < h; y++) for (int x = 0; x < w; x++) if (mask[y * w + x]) { sx += x; sy += y; count++; }
+        return count == 0 ? ((w - 1) / 2.0, (h - 1) / 2.0) : (sx / count, sy / count);
+    }
+
+    private static float[] Place(float[] source, int w, int h, int ox, int oy, int n)
+    {
+        var canvas = new float[n * n];
+        for (int y = 0; y < h; y++)
+        {
+            int cy = y + oy;
+            if ((uint)cy >= (uint)n) continue;
+            for (int x = 0; x < w; x++)
+            {
+                int cx = x + ox;
+                if ((uint)cx < (uint)n) canvas[cy * n + cx] = source[y * w + x];
+            }
+        }
+        return canvas;
+    }
+}
