@@ -4,8 +4,9 @@ using StackBuild.Geometry;
 using StackBuild.Imaging;
 using StackBuild.IO;
 using StackBuild.Pipeline;
-using StackBuild.Render;
+using StackBuild.Register;
 using StackBuild.Series;
+using StackBuild.Solve;
 using StackBuild.Write;
 
 namespace StackBuild.Cli.Commands;
@@ -24,11 +25,14 @@ public static class BuildCommand
         var channel = new Option<string>("--channel") { Description = "How colour images become gray: luminance, red, green or blue", DefaultValueFactory = _ => "luminance" };
         var interpolation = new Option<string>("--interpolation") { Description = "Resampling: bilinear or bicubic", DefaultValueFactory = _ => "bilinear" };
         var json = new Option<bool>("--json") { Description = "Print a machine-readable summary instead of text" };
+        var noAlign = new Option<bool>("--no-align") { Description = "Place the sections centred without aligning them (the series as scanned)" };
+        var workSize = new Option<int>("--work-size") { Description = "Long side in pixels at which sections are registered", DefaultValueFactory = _ => 512 };
+        var minConfidence = new Option<double>("--min-confidence") { Description = "Pairs below this confidence (0–1) are not trusted to place a section", DefaultValueFactory = _ => 0.2 };
 
         var command = new Command("build", "Rebuild a section series into one NIfTI-1 volume with a sidecar of every section's placement.\n\n" +
             "Example:\n  stackbuild build demo-series -o demo-volume.nii.gz")
         {
-            series, output, manifest, pixelSize, spacing, axes, outPixel, channel, interpolation, json,
+            series, output, manifest, pixelSize, spacing, axes, outPixel, channel, interpolation, noAlign, workSize, minConfidence, json,
         };
         command.SetAction(parse => console.Guard(() =>
         {
@@ -48,6 +52,9 @@ public static class BuildCommand
                 OutputPixelSizeUm = Positive(parse.GetValue(outPixel), "--output-pixel-size"),
                 Channel = ParseChannel(parse.GetValue(channel)!),
                 Interpolation = ParseInterpolation(parse.GetValue(interpolation)!),
+                Align = !parse.GetValue(noAlign),
+                Registration = new RegistrationOptions { WorkSize = WorkSize(parse.GetValue(workSize)) },
+                Chain = new ChainOptions { MinConfidence = Fraction(parse.GetValue(minConfidence), "--min-confidence") },
             };
             var result = BuildPipeline.Run(options, new SyncProgress(console));
             console.EndProgress();
@@ -89,7 +96,7 @@ public static class BuildCommand
         o.WriteLine($"Sections {string.Join(", ", counts.OrderBy(c => c.Key).Select(c => $"{c.Value} {c.Key}"))}");
         foreach (var w in r.Warnings) o.WriteLine($"warning: {w}");
         if (!r.Aligned)
-            o.WriteLine("Note: sections were placed centred and NOT aligned yet; this volume shows the series as scanned.");
+            o.WriteLine("Note: sections were placed centred and NOT aligned (--no-align); this volume shows the series as scanned.");
     }
 
     internal static double? Positive(double? value, string name)
@@ -99,6 +106,12 @@ public static class BuildCommand
             throw new InputProblemException(null, $"{name} must be a positive number of µm, not {value}", $"give {name} a value such as 10");
         return value;
     }
+
+    internal static int WorkSize(int value) => value is >= 64 and <= 8192 ? value
+        : throw new InputProblemException(null, $"--work-size must be between 64 and 8192 pixels, not {value}", "512 suits most series; use more for fine detail");
+
+    internal static double Fraction(double value, string name) => value is >= 0 and <= 1 ? value
+        : throw new InputProblemException(null, $"{name} must be between 0 and 1, not {value}", $"give {name} a value such as 0.2");
 
     internal static GrayChannel ParseChannel(string text) => text.Trim().ToLowerInvariant() switch
     {

@@ -1,9 +1,13 @@
+using System.Collections.Concurrent;
+using System.Globalization;
 using System.Reflection;
 using StackBuild.Geometry;
 using StackBuild.Imaging;
 using StackBuild.IO;
+using StackBuild.Register;
 using StackBuild.Render;
 using StackBuild.Series;
+using StackBuild.Solve;
 
 namespace StackBuild.Pipeline;
 
@@ -19,16 +23,25 @@ public sealed record BuildOptions
     public int MaxPlaneSide { get; init; } = 2048;
     public Interpolation Interpolation { get; init; } = Interpolation.Bilinear;
     public GrayChannel Channel { get; init; } = GrayChannel.Luminance;
+    /// <summary>False: place the sections centred and unaligned (the series as scanned).</summary>
+    public bool Align { get; init; } = true;
+    public RegistrationOptions Registration { get; init; } = new();
+    public ChainOptions Chain { get; init; } = new();
 }
 
 /// <summary>A built volume (intensities in the input's own units: 0–255 for 8-bit, 0–65535 for 16-bit) and its record.</summary>
 public sealed record BuildResult(Volume Volume, BuildRecord Record, int InputBitDepth);
 
-/// <summary>series → (register → solve, later) → render: the whole build as one pure call on the input files.</summary>
+/// <summary>series → register → solve → render: the whole build as one call on the input files.</summary>
 public static class BuildPipeline
 {
     public static string Version =>
         typeof(BuildPipeline).Assembly.GetCustomAttribute<AssemblyInformationalVersionAttribute>()?.InformationalVersion.Split('+')[0] ?? "0";
+
+    private static string Num(double v) => v.ToString("R", CultureInfo.InvariantCulture);
+
+    /// <summary>A present section with its registration image.</summary>
+    private sealed record Working(SectionEntry Entry, Transform2D FullToWork, GrayImage Image, PreparedSection? Prepared);
 
     public static BuildResult Run(BuildOptions options, IProgress<string>? progress = null)
     {
@@ -40,37 +53,67 @@ public static class BuildPipeline
 
         int bits = present.Max(s => s.Image!.BitsPerChannel);
         double maxValue = bits > 8 ? 65535 : 255;
-
-        // Output in-plane voxel size.
         double largestUm = present.Max(s => Math.Max(s.Image!.Width, s.Image!.Height) * s.PixelSizeUm);
         double outUm = options.OutputPixelSizeUm ?? series.PixelSizeUm;
         if (options.OutputPixelSizeUm is null && largestUm / outUm > options.MaxPlaneSide)
             outUm = largestUm / options.MaxPlaneSide;
-        if (!(outUm > 0) || double.IsInfinity(outUm))
-            throw new InputProblemException(null, $"output pixel size {outUm} µm is not a positive number", "give a positive --output-pixel-size in µm");
 
-        // Unaligned placement: every section scaled to the output voxel size and centred in a common grid.
-        int nx = 1, ny = 1;
-        foreach (var s in present)
+        // 1. Registration images: every section at one common pixel size, about WorkSize on the long side.
+        var working = LoadWorking(present, options, largestUm, progress, out double workUm);
+
+        // 2–3. Register neighbours and chain them into the reference frame.
+        IReadOnlyList<ChainPlacement> chain;
+        var warnings = new List<string>(series.Warnings);
+        if (options.Align && working.Count > 1)
         {
-            double scale = s.PixelSizeUm / outUm;
-            nx = Math.Max(nx, (int)Math.Ceiling(s.Image!.Width * scale));
-            ny = Math.Max(ny, (int)Math.Ceiling(s.Image!.Height * scale));
+            var pairs = RegisterNeighbours(working, options, progress);
+            chain = ChainSolver.Solve(working.Count, (m, f) => pairs.GetOrAdd((m, f), k => RegisterPair(working, k.Item1, k.Item2, options)),
+                i => Corners(working[i].Image), options.Chain);
+            chain = FaceMajorityUp(chain, working);
         }
+        else
+        {
+            // Unaligned: centred as scanned, turned face up only where the manifest says a section was mounted face down.
+            chain = working.Select((w, i) => new ChainPlacement(
+                (w.Entry.MountedMirrored == true ? Transform2D.MirrorX((w.Image.Width - 1) / 2.0) : Transform2D.Identity).Then(CentreOn(w.Image, working[0].Image)),
+                i == 0 ? LinkRoute.Reference : LinkRoute.Neighbour, -1, null, null)).ToList();
+            if (options.Align) warnings.Add("only one section: nothing to align");
+        }
+        bool aligned = options.Align && working.Count > 1;
+
+        // 4. The output grid: the reference frame at the output voxel size, holding every placed section.
+        var workToOut = Resampler.EdgeAlignedScale(workUm / outUm);
+        double minX = double.MaxValue, minY = double.MaxValue, maxX = double.MinValue, maxY = double.MinValue;
+        for (int n = 0; n < working.Count; n++)
+        {
+            if (chain[n].Route == LinkRoute.Failed) continue;
+            var map = working[n].FullToWork.Then(chain[n].ToReference).Then(workToOut);
+            var e = working[n].Entry.Image!;
+            foreach (var (x, y) in new[] { (-0.5, -0.5), (e.Width - 0.5, -0.5), (-0.5, e.Height - 0.5), (e.Width - 0.5, e.Height - 0.5) })
+            {
+                var p = map.Apply(x, y);
+                minX = Math.Min(minX, p.X); maxX = Math.Max(maxX, p.X);
+                minY = Math.Min(minY, p.Y); maxY = Math.Max(maxY, p.Y);
+            }
+        }
+        int nx = Math.Max(1, (int)Math.Ceiling(maxX - minX));
+        int ny = Math.Max(1, (int)Math.Ceiling(maxY - minY));
+        var toGrid = Transform2D.Translation(-minX - 0.5, -minY - 0.5);
         double firstPosition = series.Sections[0].PositionUm;
         var zIndex = series.Sections.ToDictionary(s => s.Number, s => (int)Math.Round((s.PositionUm - firstPosition) / series.SpacingUm));
         int nz = zIndex.Values.Max() + 1;
-        long voxels = (long)nx * ny * nz;
-        if (voxels > Array.MaxLength)
+        if ((long)nx * ny * nz > Array.MaxLength)
             throw new InputProblemException(options.Input, $"the output would have {nx}×{ny}×{nz} voxels, more than fits in memory",
                 "choose a coarser --output-pixel-size");
 
         var affine = Affine.FromAxes(options.Axes, outUm / 1000, outUm / 1000, series.SpacingUm / 1000, nx, ny, nz);
         var volume = new Volume(nx, ny, nz, affine);
-        var warnings = new List<string>(series.Warnings);
+
+        // 5. Render every placed section at the output resolution.
         var records = new List<SectionRecord>();
         var occupied = new Dictionary<int, int>();
-        int done = 0;
+        var index = working.Select((w, n) => (w.Entry.Number, n)).ToDictionary(t => t.Number, t => t.n);
+        int rendered = 0;
         foreach (var s in series.Sections)
         {
             int k = zIndex[s.Number];
@@ -85,64 +128,179 @@ public static class BuildPipeline
                 Mirrored = s.MountedMirrored,
                 Note = string.IsNullOrEmpty(s.Note) ? null : s.Note,
             };
-            if (s.Status != SectionStatus.Present || s.Image is null)
+            if (!index.TryGetValue(s.Number, out int n))
             {
                 records.Add(record with { Status = s.Status == SectionStatus.Excluded ? "excluded" : "gap" });
+                continue;
+            }
+            var place = chain[n];
+            var pair = place.Pair;
+            record = record with
+            {
+                Confidence = pair?.Confidence,
+                Ncc = pair?.Best.Ncc,
+                PeakToSidelobe = pair?.Best.PeakToSidelobe,
+                RegisteredTo = place.LinkedTo >= 0 ? working[place.LinkedTo].Entry.Number : null,
+                Route = place.Route.ToString().ToLowerInvariant() switch { "secondneighbour" => "second-neighbour", var r => r },
+                RouteDisagreementUm = place.RouteDisagreement is { } d ? d * workUm : null,
+                RunnerUp = pair?.RunnerUp is { } ru ? new HypothesisRecord(ru.Mirrored, ru.RotationDegrees, ru.Ncc) : null,
+            };
+            if (place.Route == LinkRoute.Failed)
+            {
+                records.Add(record with { Status = "failed", Note = Join(record.Note, "no confident match with a neighbour; plane left empty") });
                 continue;
             }
             if (occupied.TryGetValue(k, out int other))
                 warnings.Add($"sections {other} and {s.Number} fall on the same plane {k}; the later one is kept — check the positions or the spacing");
             occupied[k] = s.Number;
 
-            var full = s.Image;
+            var imageToPlane = working[n].FullToWork.Then(place.ToReference).Then(workToOut).Then(toGrid);
+            var full = s.Image!;
             double scale = s.PixelSizeUm / outUm;
-            var imageToPlane = Transform2D.Translation(-(full.Width - 1) / 2.0, -(full.Height - 1) / 2.0)
-                .Then(Transform2D.Scale(scale))
-                .Then(Transform2D.Translation((nx - 1) / 2.0, (ny - 1) / 2.0));
-            if (s.MountedMirrored == true)
-                imageToPlane = Transform2D.MirrorX((full.Width - 1) / 2.0).Then(imageToPlane);
-
-            int? loadSide = scale < 1 ? (int)Math.Ceiling(Math.Max(full.Width, full.Height) * scale) : null;
-            var image = SectionImageReader.ReadGray(s.FilePath!, new ImageReadOptions { Channel = options.Channel, MaxLongSide = loadSide });
-            double imageToFull = (double)full.Width / image.Width;
+            int? loadSide = scale < 1 ? Math.Max(1, (int)Math.Ceiling(Math.Max(full.Width, full.Height) * scale)) : null;
+            var loaded = SectionImageReader.ReadSection(s.FilePath!, new ImageReadOptions { Channel = options.Channel, MaxLongSide = loadSide });
+            var image = loaded.Image;
             float fill = (float)(BorderMedian(image) * maxValue);
             ScaleInPlace(image, (float)maxValue);
-            StackRenderer.RenderSection(volume, new PlacedSection(k, imageToPlane), image, imageToFull, fill, options.Interpolation);
+            StackRenderer.RenderSection(volume, new PlacedSection(k, imageToPlane), image,
+                Resampler.FullToBlockReduced((int)loaded.Downsample), fill, options.Interpolation);
             records.Add(record with
             {
-                Status = "placed",
-                RotationDegrees = 0,
+                Status = aligned ? "aligned" : "placed",
+                Mirrored = imageToPlane.IsMirrored,
+                RotationDegrees = imageToPlane.RotationDegrees,
                 ShiftPx = [imageToPlane.M02, imageToPlane.M12],
                 Matrix = imageToPlane.ToRows(),
             });
-            progress?.Report($"placed section {s.Number} ({++done}/{present.Count})");
+            progress?.Report($"rendering: section {s.Number} ({++rendered}/{working.Count})");
         }
         RoundInPlace(volume.Voxels, (float)maxValue);
 
+        int failed = records.Count(r => r.Status == "failed");
+        if (failed > 0) warnings.Add($"{failed} section(s) could not be matched to a neighbour and were left out (status 'failed' in the sidecar)");
+
         var sizes = affine.VoxelSizes;
-        var record0 = new BuildRecord
+        var parameters = new Dictionary<string, string>
+        {
+            ["output_pixel_size_um"] = Num(outUm),
+            ["registration_pixel_size_um"] = Num(workUm),
+            ["interpolation"] = options.Interpolation.ToString().ToLowerInvariant(),
+            ["channel"] = options.Channel.ToString().ToLowerInvariant(),
+            ["alignment"] = aligned ? "neighbour chain: phase correlation, any angle, mirror tested" : "none (sections placed centred, unaligned)",
+            ["work_size_px"] = options.Registration.WorkSize.ToString(CultureInfo.InvariantCulture),
+            ["min_confidence"] = Num(options.Chain.MinConfidence),
+            ["fft"] = Fft2D.ProviderName,
+        };
+        var buildRecord = new BuildRecord
         {
             Version = Version,
-            Created = DateTime.UtcNow.ToString("yyyy-MM-ddTHH:mm:ssZ"),
+            Created = DateTime.UtcNow.ToString("yyyy-MM-ddTHH:mm:ssZ", CultureInfo.InvariantCulture),
             Input = series.ManifestPath ?? series.Folder,
-            Aligned = false,
+            Aligned = aligned,
             Dimensions = [nx, ny, nz],
             VoxelSizeMm = [sizes.I, sizes.J, sizes.K],
             AxisCodes = options.Axes.Code,
             Affine = affine.ToRows(),
             InputPixelSizeUm = series.PixelSizeUm,
             SpacingUm = series.SpacingUm,
-            Parameters = new()
-            {
-                ["output_pixel_size_um"] = outUm.ToString("R", System.Globalization.CultureInfo.InvariantCulture),
-                ["interpolation"] = options.Interpolation.ToString().ToLowerInvariant(),
-                ["channel"] = options.Channel.ToString().ToLowerInvariant(),
-                ["alignment"] = "none (sections placed centred, unaligned)",
-            },
+            ReferenceSection = working[chain.Select((c, i) => (c, i)).First(t => t.c.Route == LinkRoute.Reference).i].Entry.Number,
+            Parameters = parameters,
             Warnings = warnings,
             Sections = records,
         };
-        return new BuildResult(volume, record0, bits);
+        return new BuildResult(volume, buildRecord, bits);
+    }
+
+    private static string Join(string? a, string b) => string.IsNullOrEmpty(a) ? b : $"{a}; {b}";
+
+    private static List<Working> LoadWorking(List<SectionEntry> present, BuildOptions options, double largestUm,
+        IProgress<string>? progress, out double workUm)
+    {
+        int workSize = Math.Max(16, options.Registration.WorkSize);
+        double target = largestUm / workSize;
+        // Every section is brought to one pixel size so pairwise maps stay rigid; that size is the coarsest the
+        // block reduction gives, never coarser than needed for the work size.
+        var loaded = new (SectionEntry Entry, LoadedSection Section)[present.Count];
+        int done = 0;
+        Parallel.For(0, present.Count, new ParallelOptions { MaxDegreeOfParallelism = Environment.ProcessorCount }, n =>
+        {
+            var s = present[n];
+            int factor = Math.Max(1, (int)Math.Floor(target / s.PixelSizeUm));
+            int side = Math.Max(1, (int)Math.Ceiling(Math.Max(s.Image!.Width, s.Image!.Height) / (double)factor));
+            loaded[n] = (s, SectionImageReader.ReadSection(s.FilePath!, new ImageReadOptions { Channel = options.Channel, MaxLongSide = side }));
+            progress?.Report($"loading: {Interlocked.Increment(ref done)}/{present.Count} sections");
+        });
+        workUm = loaded.Max(l => l.Entry.PixelSizeUm * l.Section.Downsample);
+        double common = workUm;
+        var result = new Working[present.Count];
+        Parallel.For(0, present.Count, new ParallelOptions { MaxDegreeOfParallelism = Environment.ProcessorCount }, n =>
+        {
+            var (entry, section) = loaded[n];
+            var fullToLoaded = Resampler.FullToBlockReduced((int)section.Downsample);
+            double loadedUm = entry.PixelSizeUm * section.Downsample;
+            GrayImage image = section.Image;
+            var fullToWork = fullToLoaded;
+            if (Math.Abs(loadedUm - common) > 1e-9 * common)
+            {
+                double s = loadedUm / common;
+                var loadedToWork = Resampler.EdgeAlignedScale(s);
+                int w = Math.Max(1, (int)Math.Round(image.Width * s)), h = Math.Max(1, (int)Math.Round(image.Height * s));
+                image = Resampler.Warp(image, loadedToWork.Inverse(), w, h, (float)BorderMedian(image));
+                fullToWork = fullToLoaded.Then(loadedToWork);
+            }
+            var prepared = options.Align ? SectionRegistration.Prepare(image, options.Registration with { WorkSize = Math.Max(image.Width, image.Height) }) : null;
+            result[n] = new Working(entry, fullToWork, image, prepared);
+        });
+        return [.. result];
+    }
+
+    private static ConcurrentDictionary<(int, int), PairResult> RegisterNeighbours(List<Working> working, BuildOptions options, IProgress<string>? progress)
+    {
+        var jobs = new List<(int Moving, int Fixed)>();
+        for (int i = 1; i < working.Count; i++)
+        {
+            jobs.Add((i, i - 1));
+            if (i >= 2) jobs.Add((i, i - 2));
+        }
+        var pairs = new ConcurrentDictionary<(int, int), PairResult>();
+        int done = 0;
+        Parallel.ForEach(jobs, new ParallelOptions { MaxDegreeOfParallelism = Environment.ProcessorCount }, job =>
+        {
+            pairs[job] = RegisterPair(working, job.Moving, job.Fixed, options);
+            progress?.Report($"registering: {Interlocked.Increment(ref done)}/{jobs.Count} pairs");
+        });
+        return pairs;
+    }
+
+    private static PairResult RegisterPair(List<Working> working, int moving, int fixedIndex, BuildOptions options)
+    {
+        bool? a = working[moving].Entry.MountedMirrored, b = working[fixedIndex].Entry.MountedMirrored;
+        var o = options.Registration with { KnownMirrored = a is { } ma && b is { } mb ? ma != mb : null };
+        return SectionRegistration.Register(working[fixedIndex].Prepared!, working[moving].Prepared!, o);
+    }
+
+    private static (double X, double Y)[] Corners(GrayImage image) =>
+        [(0, 0), (image.Width - 1, 0), (0, image.Height - 1), (image.Width - 1, image.Height - 1)];
+
+    /// <summary>Centres one image on another (for unaligned placement).</summary>
+    private static Transform2D CentreOn(GrayImage image, GrayImage reference) =>
+        Transform2D.Translation((reference.Width - image.Width) / 2.0, (reference.Height - image.Height) / 2.0);
+
+    /// <summary>
+    /// Most sections are mounted face up (common practice), so when more than half came out mirrored relative to
+    /// the reference, the reference itself was the mirrored one: flip the frame about the reference's centre.
+    /// A manifest that says how the reference was mounted overrides the vote.
+    /// </summary>
+    private static IReadOnlyList<ChainPlacement> FaceMajorityUp(IReadOnlyList<ChainPlacement> chain, List<Working> working)
+    {
+        int referenceIndex = chain.Select((c, i) => (c, i)).First(t => t.c.Route == LinkRoute.Reference).i;
+        var placedChain = chain.Where(c => c.Route != LinkRoute.Failed).ToList();
+        bool flip = working[referenceIndex].Entry.MountedMirrored
+            ?? placedChain.Count(c => c.ToReference.IsMirrored) * 2 > placedChain.Count;
+        if (!flip) return chain;
+        var r = working[referenceIndex].Image;
+        var mirror = Transform2D.MirrorX((r.Width - 1) / 2.0);
+        return chain.Select(c => c.Route == LinkRoute.Failed ? c : c with { ToReference = c.ToReference.Then(mirror) }).ToList();
     }
 
     private static double BorderMedian(GrayImage image)

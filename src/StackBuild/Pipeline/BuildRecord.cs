@@ -17,7 +17,18 @@ public sealed record SectionRecord
     [JsonPropertyName("mirrored")] public bool? Mirrored { get; init; }
     [JsonPropertyName("rotation_deg")] public double? RotationDegrees { get; init; }
     [JsonPropertyName("shift_px")] public double[]? ShiftPx { get; init; }
+    /// <summary>Confidence in [0, 1] of the pairwise registration that placed the section (see the registration's documentation).</summary>
     [JsonPropertyName("confidence")] public double? Confidence { get; init; }
+    [JsonPropertyName("ncc")] public double? Ncc { get; init; }
+    [JsonPropertyName("peak_to_sidelobe")] public double? PeakToSidelobe { get; init; }
+    /// <summary>The section it was registered to; <see cref="Route"/> says which neighbour that was.</summary>
+    [JsonPropertyName("registered_to")] public int? RegisteredTo { get; init; }
+    /// <summary>reference, neighbour, second-neighbour, distant or failed.</summary>
+    [JsonPropertyName("route")] public string? Route { get; init; }
+    /// <summary>How far apart (µm, mean over the corners) the placements through the first and second neighbour are.</summary>
+    [JsonPropertyName("route_disagreement_um")] public double? RouteDisagreementUm { get; init; }
+    /// <summary>The best clearly different hypothesis (other mirror or a rotation over 10° away), for close calls.</summary>
+    [JsonPropertyName("runner_up")] public HypothesisRecord? RunnerUp { get; init; }
     [JsonPropertyName("z_index")] public int ZIndex { get; init; }
     [JsonPropertyName("position_um")] public double PositionUm { get; init; }
     [JsonPropertyName("pixel_size_um")] public double? PixelSizeUm { get; init; }
@@ -40,7 +51,14 @@ public sealed record BuildRecord
     [JsonPropertyName("affine")] public double[][] Affine { get; init; } = [];
     [JsonPropertyName("pixel_size_um")] public double InputPixelSizeUm { get; init; }
     [JsonPropertyName("spacing_um")] public double SpacingUm { get; init; }
+    [JsonPropertyName("reference_section")] public int ReferenceSection { get; init; }
     [JsonPropertyName("parameters")] public Dictionary<string, string> Parameters { get; init; } = [];
     [JsonPropertyName("warnings")] public List<string> Warnings { get; init; } = [];
     [JsonPropertyName("sections")] public List<SectionRecord> Sections { get; init; } = [];
 }
+
+/// <summary>A registration hypothesis kept for the record.</summary>
+public sealed record HypothesisRecord(
+    [property: JsonPropertyName("mirrored")] bool Mirrored,
+    [property: JsonPropertyName("rotation_deg")] double RotationDegrees,
+    [property: JsonPropertyName("ncc")] double Ncc);

@@ -1,0 +1,123 @@
+using StackBuild.Geometry;
+using StackBuild.Register;
+
+namespace StackBuild.Solve;
+
+/// <summary>How a section was tied to the output frame.</summary>
+public enum LinkRoute
+{
+    /// <summary>The reference section: it defines the frame.</summary>
+    Reference,
+    /// <summary>Through its nearest present neighbour towards the reference.</summary>
+    Neighbour,
+    /// <summary>Through the second-nearest (the nearest did not match well enough, or was itself not placed).</summary>
+    SecondNeighbour,
+    /// <summary>Through a more distant placed section (several neighbours in a row failed).</summary>
+    Distant,
+    /// <summary>No confident match to any placed section: not placed.</summary>
+    Failed,
+}
+
+/// <summary>One section's place in the reference frame, and why.</summary>
+/// <param name="ToReference">Maps the section's registration-image pixels to the reference section's.</param>
+/// <param name="LinkedTo">Index of the section it was registered to (−1 for the reference and failures).</param>
+/// <param name="Pair">The pairwise result used (moving = this section), or null.</param>
+/// <param name="RouteDisagreement">
+/// Mean distance in registration pixels, over the section's corners, between its placement through the
+/// nearest neighbour and through the second-nearest; null when only one route exists.
+/// </param>
+public sealed record ChainPlacement(Transform2D ToReference, LinkRoute Route, int LinkedTo, PairResult? Pair, double? RouteDisagreement);
+
+public sealed record ChainOptions
+{
+    /// <summary>A pair whose confidence is below this is not trusted for placing a section.</summary>
+    public double MinConfidence { get; init; } = 0.2;
+}
+
+/// <summary>
+/// Ties every section to one reference frame by chaining pairwise rigid registrations from the reference
+/// outwards (the neighbour chain; common practice). Drift correction comes on top of this later.
+/// </summary>
+public static class ChainSolver
+{
+    /// <summary>
+    /// <paramref name="pair"/>(moving, fixed) registers section <c>moving</c> onto section <c>fixed</c>
+    /// (indices into the sections in stack order); the solver asks for first and second neighbours and, when
+    /// those fail, for more distant ones. <paramref name="corners"/> gives each section's corner points in its
+    /// registration image, for measuring route disagreement.
+    /// </summary>
+    public static IReadOnlyList<ChainPlacement> Solve(int count, Func<int, int, PairResult> pair,
+        Func<int, (double X, double Y)[]> corners, ChainOptions? options = null)
+    {
+        options ??= new ChainOptions();
+        var placed = new ChainPlacement?[count];
+        if (count == 0) return [];
+        int reference = ChooseReference(count, pair, options);
+        placed[reference] = new ChainPlacement(Transform2D.Identity, LinkRoute.Reference, -1, null, null);
+
+        foreach (int direction in new[] { +1, -1 })
+        {
+            for (int i = reference + direction; i >= 0 && i < count; i += direction)
+                placed[i] = Link(i, direction, placed, pair, corners, options);
+        }
+        return placed.Select(p => p!).ToList();
+    }
+
+    private static int ChooseReference(int count, Func<int, int, PairResult> pair, ChainOptions options)
+    {
+        for (int r = 0; r < count; r++)
+        {
+            bool confident = false;
+            for (int next = r + 1; next <= Math.Min(count - 1, r + 2) && !confident; next++)
+                confident = pair(next, r).Confidence >= options.MinConfidence;
+            if (confident) return r;
+        }
+        return 0;
+    }
+
+    private static ChainPlacement Link(int i, int direction, ChainPlacement?[] placed, Func<int, int, PairResult> pair,
+        Func<int, (double X, double Y)[]> corners, ChainOptions options)
+    {
+        // Candidates: the nearest placed sections towards the reference, nearest first.
+        var candidates = new List<(int Index, LinkRoute Route)>();
+        for (int step = 1, j = i - direction; j >= 0 && j < placed.Length; step++, j -= direction)
+        {
+            if (placed[j] is not { } p || p.Route == LinkRoute.Failed) continue;
+            candidates.Add((j, step == 1 ? LinkRoute.Neighbour : step == 2 ? LinkRoute.SecondNeighbour : LinkRoute.Distant));
+            if (candidates.Count == 2 || p.Route == LinkRoute.Reference) break;
+        }
+        var routes = candidates.Select(c =>
+        {
+            var r = Oriented(pair, i, c.Index);
+            return (c.Index, c.Route, Result: r.Result, ToReference: r.Map.Then(placed[c.Index]!.ToReference));
+        }).ToList();
+
+        double? disagreement = null;
+        if (routes.Count == 2)
+        {
+            var pts = corners(i);
+            disagreement = pts.Average(p =>
+            {
+                var a = routes[0].ToReference.Apply(p.X, p.Y);
+                var b = routes[1].ToReference.Apply(p.X, p.Y);
+                return Math.Sqrt((a.X - b.X) * (a.X - b.X) + (a.Y - b.Y) * (a.Y - b.Y));
+            });
+        }
+        var chosen = routes.FirstOrDefault(r => r.Result.Confidence >= options.MinConfidence);
+        if (chosen.Result is null)
+            return new ChainPlacement(Transform2D.Identity, LinkRoute.Failed, -1, routes.Count > 0 ? routes.MaxBy(r => r.Result.Confidence).Result : null, disagreement);
+        return new ChainPlacement(chosen.ToReference, chosen.Route, chosen.Index, chosen.Result, disagreement);
+    }
+
+    /// <summary>The map from section <paramref name="moving"/> to <paramref name="target"/>; registered later-onto-earlier and inverted when needed, so each pair is computed once.</summary>
+    private static (Transform2D Map, PairResult Result) Oriented(Func<int, int, PairResult> pair, int moving, int target)
+    {
+        if (moving > target)
+        {
+            var r = pair(moving, target);
+            return (r.Best.MovingToFixed, r);
+        }
+        var back = pair(target, moving);
+        return (back.Best.MovingToFixed.Inverse(), back);
+    }
+}
