@@ -1,3 +1,4 @@
+using System.Runtime.CompilerServices;
 using System.Buffers;
 using System.Buffers.Binary;
 using System.IO.Compression;
@@ -32,13 +33,13 @@ public static class NiftiFile
         return Guarded(path, () =>
         {
             using var opened = Open(path);
-            var header = ReadHeaderFrom(opened.Stream, path);
+            var header = ReadHeaderFrom(opened, path);
             long bytes = DataBytes(header, path);
             long offset = header.DataOffset;
             if (!opened.Compressed && opened.Length < offset + bytes)
                 throw new InputProblemException(path,
-                    $"the file is {opened.Length:N0} bytes but its header needs {offset + bytes:N0} ({Describe(header)} from byte {offset})",
-                    "the file is truncated or its header is wrong; copy or write it again");
+                    $"the file is too short: it is {opened.Length:N0} bytes but its header needs {offset + bytes:N0} ({Describe(header)} from byte {offset})",
+                    "the file is truncated or its header is damaged; copy or write it again");
             if (opened.Compressed && offset + bytes > opened.Length * MaximumDeflateRatio + 1024)
                 throw new InputProblemException(path,
                     $"the header claims {bytes:N0} bytes of voxels ({Describe(header)}), more than a {opened.Length:N0}-byte gzip file can hold",
@@ -46,7 +47,9 @@ public static class NiftiFile
 
             Skip(opened.Stream, offset - NiftiHeader.HeaderSize);
             var data = ReadVoxels(opened.Stream, header);
-            if (opened.Compressed) opened.Stream.CopyTo(Stream.Null); // reach the gzip trailer so its checksum is verified
+            // Reach the gzip trailer so that GZipStream verifies its CRC-32. (A file cut inside the trailer, with all
+            // voxels present, is still read: GZipStream does not report a missing trailer.)
+            if (opened.Compressed) opened.Stream.CopyTo(Stream.Null);
             return new NiftiImage(header, data);
         });
     }
@@ -57,7 +60,7 @@ public static class NiftiFile
         return Guarded(path, () =>
         {
             using var opened = Open(path);
-            var header = ReadHeaderFrom(opened.Stream, path);
+            var header = ReadHeaderFrom(opened, path);
             DataBytes(header, path);
             return header;
         });
@@ -134,6 +137,7 @@ public static class NiftiFile
         double unitsPerMm = options.Unit == SpatialUnit.Micrometre ? 1000.0 : 1.0;
         var stored = affine.Then(Affine.FromRows([unitsPerMm, 0, 0, 0], [0, unitsPerMm, 0, 0], [0, 0, unitsPerMm, 0]));
         var q = NiftiQuaternion.FromAffine(stored);
+        var (qb, qc, qd) = NiftiQuaternion.Stored(q.B, q.C, q.D);
         return new NiftiHeader
         {
             Dim = [3, (short)nx, (short)ny, (short)nz, 1, 1, 1, 1],
@@ -147,9 +151,9 @@ public static class NiftiFile
             Description = options.Description ?? "",
             QformCode = (short)options.QformCode,
             SformCode = (short)options.SformCode,
-            QuaternB = (float)q.B,
-            QuaternC = (float)q.C,
-            QuaternD = (float)q.D,
+            QuaternB = qb,
+            QuaternC = qc,
+            QuaternD = qd,
             QOffsetX = (float)stored[0, 3],
             QOffsetY = (float)stored[1, 3],
             QOffsetZ = (float)stored[2, 3],
@@ -204,6 +208,8 @@ public static class NiftiFile
         }
     }
 
+    // Hot loop, called once per volume: compile it optimised at once rather than start in tier-0 code.
+    [MethodImpl(MethodImplOptions.AggressiveOptimization)]
     private static void WriteIntegers<T>(Stream stream, float[] voxels, NiftiHeader header)
         where T : unmanaged, INumberBase<T>
     {
@@ -260,10 +266,13 @@ public static class NiftiFile
         return new OpenedFile(stream, file, gz);
     }
 
-    private static NiftiHeader ReadHeaderFrom(Stream stream, string path)
+    private static NiftiHeader ReadHeaderFrom(OpenedFile opened, string path)
     {
         var bytes = new byte[NiftiHeader.HeaderSize];
-        int got = stream.ReadAtLeast(bytes, bytes.Length, throwOnEndOfStream: false);
+        int got = opened.Stream.ReadAtLeast(bytes, bytes.Length, throwOnEndOfStream: false);
+        if (opened.Compressed && got < NiftiHeader.HeaderSize)
+            throw new InputProblemException(path, $"the gzip data ends after {got} bytes, inside the 348-byte NIfTI-1 header (truncated)",
+                "copy or write the file again (was a transfer interrupted?)");
         return NiftiHeader.Parse(bytes.AsSpan(0, got), path);
     }
 

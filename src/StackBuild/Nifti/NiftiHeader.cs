@@ -93,8 +93,8 @@ public sealed class NiftiHeader
     /// <summary>Millimetres per stored spatial unit: metre 1000, mm 1, µm 0.001; unknown (0) is taken as mm (common practice).</summary>
     public double MillimetresPerUnit => (XyztUnits & 7) switch { 1 => 1000.0, 3 => 0.001, _ => 1.0 };
 
-    /// <summary>The spatial unit as text (nifti1.h NIFTI_UNITS_*).</summary>
-    public string SpatialUnitName => (XyztUnits & 7) switch { 1 => "m", 2 => "mm", 3 => "µm", _ => "unknown (taken as mm)" };
+    /// <summary>The spatial unit as text (nifti1.h NIFTI_UNITS_*): "m", "mm", "µm", or "not set" (then read as mm).</summary>
+    public string SpatialUnitName => (XyztUnits & 7) switch { 1 => "m", 2 => "mm", 3 => "µm", _ => "not set" };
 
     /// <summary>
     /// The scaling to apply to stored values (value = stored × slope + inter), or null when there is none:
@@ -173,10 +173,11 @@ public sealed class NiftiHeader
     /// </summary>
     internal static NiftiHeader Parse(ReadOnlySpan<byte> b, string path)
     {
-        if (b.Length < HeaderSize)
-            throw new InputProblemException(path, $"the file is only {b.Length} bytes long, shorter than a NIfTI-1 header (348 bytes)",
-                "check that this is a complete .nii or .nii.gz file (copy it again if a transfer was interrupted)");
-
+        const string notNifti = "give a NIfTI-1 volume (.nii or .nii.gz)";
+        if (b.Length == 0)
+            throw new InputProblemException(path, "the file is empty (0 bytes)", "copy or write the file again (was a transfer interrupted?)");
+        if (b.Length < 4)
+            throw new InputProblemException(path, $"not a NIfTI-1 file: it is only {b.Length} bytes long", notNifti);
         int sizeLittle = BinaryPrimitives.ReadInt32LittleEndian(b);
         int sizeBig = BinaryPrimitives.ReadInt32BigEndian(b);
         bool big;
@@ -186,8 +187,10 @@ public sealed class NiftiHeader
             throw new InputProblemException(path, "this is a NIfTI-2 file (sizeof_hdr 540); StackBuild reads NIfTI-1",
                 "save the volume as NIfTI-1 (.nii or .nii.gz) and try again");
         else
-            throw new InputProblemException(path, $"not a NIfTI-1 file: the first four bytes (sizeof_hdr) are {sizeLittle}, not 348 in either byte order",
-                "give a NIfTI-1 volume (.nii or .nii.gz)");
+            throw new InputProblemException(path, $"not a NIfTI-1 file: the first four bytes (sizeof_hdr) are {sizeLittle}, not 348 in either byte order", notNifti);
+        if (b.Length < HeaderSize)
+            throw new InputProblemException(path, $"the file is truncated: it ends after {b.Length} bytes, inside the 348-byte NIfTI-1 header",
+                "copy or write the file again (was a transfer interrupted?)");
 
         var r = new FieldReader(b, big);
         var h = new NiftiHeader { IsBigEndian = big, SizeOfHdr = HeaderSize };

@@ -1,3 +1,4 @@
+using System.Runtime.CompilerServices;
 using System.Numerics;
 using StackBuild.Geometry;
 using StackBuild.Imaging;
@@ -16,6 +17,7 @@ public sealed class NiftiImage
     internal NiftiImage(NiftiHeader header, Array data)
     {
         Header = header;
+        DataType = header.DataType;
         _data = data;
         Shape = header.Shape;
         if (data.LongLength != VoxelCount * (DataType == NiftiDataType.Rgb24 ? 3 : 1))
@@ -27,7 +29,8 @@ public sealed class NiftiImage
     /// <summary>dim[1..dim[0]].</summary>
     public int[] Shape { get; }
 
-    public NiftiDataType DataType => Header.DataType;
+    /// <summary>The stored type (fixed when read, whatever is later done to <see cref="Header"/>).</summary>
+    public NiftiDataType DataType { get; }
 
     /// <summary>Voxel to RAS+ world in mm: the sform if sform_code &gt; 0, else the qform if qform_code &gt; 0, else pixdim on the diagonal (nifti1.h method 1).</summary>
     public Affine Affine => Header.Affine;
@@ -51,19 +54,27 @@ public sealed class NiftiImage
     /// </summary>
     public double VoxelValue(long index)
     {
-        double raw = _data switch
+        // Switch on the datatype, not the array type: the runtime lets a byte[] pass as sbyte[] (and ushort[] as
+        // short[]), so type patterns cannot tell them apart.
+        double raw = DataType switch
         {
-            byte[] b when DataType == NiftiDataType.Rgb24 => Luminance(b[3 * index], b[3 * index + 1], b[3 * index + 2]),
-            byte[] b => b[index],
-            sbyte[] s => s[index],
-            short[] s => s[index],
-            ushort[] s => s[index],
-            int[] s => s[index],
-            float[] s => s[index],
-            double[] s => s[index],
-            _ => throw new InvalidOperationException("Unexpected voxel storage."),
+            NiftiDataType.Rgb24 => Rgb(index),
+            NiftiDataType.UInt8 => ((byte[])_data)[index],
+            NiftiDataType.Int8 => ((sbyte[])_data)[index],
+            NiftiDataType.Int16 => ((short[])_data)[index],
+            NiftiDataType.UInt16 => ((ushort[])_data)[index],
+            NiftiDataType.Int32 => ((int[])_data)[index],
+            NiftiDataType.Float32 => ((float[])_data)[index],
+            NiftiDataType.Float64 => ((double[])_data)[index],
+            _ => throw new InvalidOperationException("Unexpected datatype."),
         };
         return Header.Scaling is { } sc ? raw * sc.Slope + sc.Inter : raw;
+    }
+
+    private double Rgb(long index)
+    {
+        var b = (byte[])_data;
+        return Luminance(b[3 * index], b[3 * index + 1], b[3 * index + 2]);
     }
 
     /// <summary>ITU-R BT.601 luma weights (common practice for grey from RGB).</summary>
@@ -83,27 +94,25 @@ public sealed class NiftiImage
         var voxels = new float[n];
         long start = t * n;
         var (slope, inter) = Header.Scaling ?? (1.0, 0.0);
-        switch (_data)
+        switch (DataType)
         {
-            case byte[] b when DataType == NiftiDataType.Rgb24:
-                for (long i = 0; i < n; i++)
-                {
-                    long p = 3 * (start + i);
-                    voxels[i] = (float)Luminance(b[p], b[p + 1], b[p + 2]);
-                }
+            case NiftiDataType.Rgb24:
+                for (long i = 0; i < n; i++) voxels[i] = (float)Rgb(start + i);
                 break;
-            case byte[] s: Convert<byte>(s, start, voxels, slope, inter); break;
-            case sbyte[] s: Convert<sbyte>(s, start, voxels, slope, inter); break;
-            case short[] s: Convert<short>(s, start, voxels, slope, inter); break;
-            case ushort[] s: Convert<ushort>(s, start, voxels, slope, inter); break;
-            case int[] s: Convert<int>(s, start, voxels, slope, inter); break;
-            case float[] s: Convert<float>(s, start, voxels, slope, inter); break;
-            case double[] s: Convert<double>(s, start, voxels, slope, inter); break;
+            case NiftiDataType.UInt8: Convert((byte[])_data, start, voxels, slope, inter); break;
+            case NiftiDataType.Int8: Convert((sbyte[])_data, start, voxels, slope, inter); break;
+            case NiftiDataType.Int16: Convert((short[])_data, start, voxels, slope, inter); break;
+            case NiftiDataType.UInt16: Convert((ushort[])_data, start, voxels, slope, inter); break;
+            case NiftiDataType.Int32: Convert((int[])_data, start, voxels, slope, inter); break;
+            case NiftiDataType.Float32: Convert((float[])_data, start, voxels, slope, inter); break;
+            case NiftiDataType.Float64: Convert((double[])_data, start, voxels, slope, inter); break;
         }
         return new Volume(Size(0), Size(1), Size(2), Affine, voxels);
     }
 
     /// <summary>Smallest and largest finite value over all voxels (scaled; luminance for rgb24), or null if none is finite.</summary>
+    // Hot loop, called once per volume: compile it optimised at once rather than start in tier-0 code.
+    [MethodImpl(MethodImplOptions.AggressiveOptimization)]
     public (double Min, double Max)? DataRange()
     {
         double min = double.PositiveInfinity, max = double.NegativeInfinity;
@@ -117,6 +126,8 @@ public sealed class NiftiImage
         return min <= max ? (min, max) : null;
     }
 
+    // Hot loop, called once per volume: compile it optimised at once rather than start in tier-0 code.
+    [MethodImpl(MethodImplOptions.AggressiveOptimization)]
     private static void Convert<T>(T[] source, long start, float[] target, double slope, double inter)
         where T : unmanaged, INumberBase<T>
     {

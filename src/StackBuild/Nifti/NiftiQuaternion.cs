@@ -101,6 +101,31 @@ internal static class NiftiQuaternion
         return (b, c, d, qfac, dx, dy, dz);
     }
 
+    /// <summary>
+    /// (b, c, d) rounded to float32 for the header. For a half turn (a = 0, which axis codes such as LIP or RSA give)
+    /// plain rounding can leave b² + c² + d² just below 1; a reader that then computes a = √(1 − b² − c² − d²) in
+    /// float32 (nibabel 5.0 does) finds a ≈ 2·10⁻⁴ and turns the axes by that much. Nudging the largest component
+    /// away from zero by one float step until the sum is at or just above 1 is read as a = 0 both by nifti1_io.c
+    /// (a &lt; 1e-7 → 0, then renormalised) and by nibabel (a sum within 3 float steps above 1 → 0), as measured in
+    /// NiftiNibabelTests.
+    /// </summary>
+    public static (float B, float C, float D) Stored(double b, double c, double d)
+    {
+        float[] v = [(float)b, (float)c, (float)d];
+        if (1.0 - (b * b + c * c + d * d) > 1e-12) return (v[0], v[1], v[2]);
+        for (int step = 0; step < 4 && !(SumFloat(v) >= 1f && SumDouble(v) >= 1.0); step++)
+        {
+            int k = 0;
+            for (int i = 1; i < 3; i++) if (Math.Abs(v[i]) > Math.Abs(v[k])) k = i;
+            v[k] = v[k] >= 0 ? MathF.BitIncrement(v[k]) : MathF.BitDecrement(v[k]);
+        }
+        return (v[0], v[1], v[2]);
+    }
+
+    private static float SumFloat(float[] v) => v[0] * v[0] + v[1] * v[1] + v[2] * v[2];
+
+    private static double SumDouble(float[] v) => (double)v[0] * v[0] + (double)v[1] * v[1] + (double)v[2] * v[2];
+
     /// <summary>The orthogonal factor of the polar decomposition, by Newton's iteration X ← (X + X⁻ᵀ)/2 (common practice).</summary>
     private static double[,] Polar(double[,] m)
     {
