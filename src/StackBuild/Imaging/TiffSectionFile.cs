@@ -173,14 +173,16 @@ internal static class TiffSectionFile
                 throw new InputProblemException(path, $"is a TIFF with colour model {photometric} and {samples} samples per pixel, which is not read", convert);
         }
         if (!tiff.IsCodecConfigured(compression))
-            throw new InputProblemException(path, $"is a TIFF compressed with scheme {(int)compression} ({compression}), which cannot be decoded here",
+            throw new InputProblemException(path, $"is a TIFF compressed with scheme {(int)compression}{(Enum.IsDefined(compression) ? $" ({compression})" : "")}, which cannot be decoded here",
                 "save it again uncompressed or with LZW, Deflate or JPEG compression");
         return new Layout(width, height, bits, samples, planar, colour, tiled, jpegYCbCr);
     }
 
     private static InputProblemException Failed(string path, string what)
     {
-        var detail = QuietErrors.Last is { Length: > 0 } last ? $" ({last})" : "";
+        var last = QuietErrors.Last ?? "";
+        if (last.StartsWith(path + ": ", StringComparison.Ordinal)) last = last[(path.Length + 2)..]; // LibTiff names the file itself
+        var detail = last.Length > 0 ? $" ({last})" : "";
         return new InputProblemException(path, $"{what}{detail}", "check that the file is complete (copy it again) or export it again");
     }
 

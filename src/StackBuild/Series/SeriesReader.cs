@@ -82,7 +82,7 @@ public static class SeriesReader
             throw new InputProblemsException(problems);
         }
 
-        candidates = DropDuplicates(candidates, manifest is not null, problems);
+        candidates = DropDuplicates(candidates, manifest is { HasTable: true }, problems);
         CheckNumberRange(candidates, seriesWhere, problems);
         Identify(candidates, options.MaxPixels, problems, warnings);
         if (candidates.Count > 0 && candidates.All(c => c.Status != SectionStatus.Present) && problems.Count == 0)
@@ -94,7 +94,7 @@ public static class SeriesReader
         var pixelSizes = PixelSizes(candidates, manifest, options, seriesWhere, manifestName, problems, warnings);
 
         if (problems.Count > 0) throw new InputProblemsException(problems);
-        var entries = Entries(candidates, spacing!.Value, pixelSizes, manifest, out double finest);
+        var entries = Entries(candidates, spacing!.Value, pixelSizes, options.PixelSizeUm ?? manifest?.PixelSizeUm, out double finest);
         return new SectionSeries(Path.GetFullPath(folder), manifestPath is null ? null : Path.GetFullPath(manifestPath),
             entries, spacing.Value, finest, warnings);
     }
@@ -332,12 +332,12 @@ public static class SeriesReader
     }
 
     private static List<SectionEntry> Entries(List<Candidate> candidates, double spacing, Dictionary<int, double> pixelSizes,
-        SeriesManifest? manifest, out double finest)
+        double? seriesPixelSize, out double finest)
     {
         var byNumber = candidates.ToDictionary(c => c.Number);
         var used = candidates.Where(c => c.Status == SectionStatus.Present && pixelSizes.ContainsKey(c.Number)).ToList();
         finest = used.Count > 0 ? used.Min(c => pixelSizes[c.Number]) : pixelSizes.Values.Min();
-        double fallbackPixel = manifest?.PixelSizeUm ?? finest;
+        double gapPixel = seriesPixelSize ?? finest;
 
         // Known positions from the manifest; without any, position = (number − first) × spacing.
         var known = candidates.Where(c => c.Row?.PositionUm is not null).Select(c => (c.Number, Position: c.Row!.PositionUm!.Value)).ToList();
@@ -348,7 +348,7 @@ public static class SeriesReader
         {
             while (upper < known.Count && known[upper].Number < n) upper++;
             double position = known.Count == 0 ? (n - first) * spacing : Interpolate(known, upper, n, spacing);
-            double pixel = pixelSizes.TryGetValue(n, out double p) ? p : fallbackPixel;
+            double pixel = pixelSizes.TryGetValue(n, out double p) ? p : gapPixel;
             if (byNumber.TryGetValue(n, out var c))
             {
                 var row = c.Row;
