@@ -2,6 +2,7 @@ using System.CommandLine;
 using System.Diagnostics;
 using System.Globalization;
 using StackBuild.Demo;
+using StackBuild.Nifti;
 using StackBuild.IO;
 
 namespace StackBuild.Cli.Commands;
@@ -111,12 +112,8 @@ public static class DemoCommand
     }
 
     /// <summary>Writes truth.nii.gz, the truth volume, next to the series.</summary>
-    private static void WriteTruthVolume(DemoSpecimen specimen, string outDir)
-    {
-        // TODO(integrator): write specimen.Truth to Path.Combine(outDir, DemoSpecimenMaker.TruthVolumeFileName)
-        // with the NIfTI-1 writer (gzip, float32, sform from specimen.Truth.Affine) and remove this TODO.
-        // Until then this does nothing, so a demo folder has no truth.nii.gz yet.
-        _ = specimen;
-        _ = outDir;
-    }
+    /// <summary>The truth volume as NIfTI-1: stain density stored in 8 bits with scl_slope (steps of 1/255 of the range).</summary>
+    private static void WriteTruthVolume(DemoSpecimen specimen, string outDir) =>
+        NiftiFile.Write(Path.Combine(outDir, DemoSpecimenMaker.TruthVolumeFileName), specimen.Truth,
+            new NiftiWriteOptions { DataType = NiftiDataType.UInt8, Description = "StackBuild demo truth: stain density 0-1" });
 }

@@ -26,12 +26,16 @@ public enum LinkRoute
 /// Mean distance in registration pixels, over the section's corners, between its placement through the
 /// nearest neighbour and through the second-nearest; null when only one route exists.
 /// </param>
-public sealed record ChainPlacement(Transform2D ToReference, LinkRoute Route, int LinkedTo, PairResult? Pair, double? RouteDisagreement);
+/// <param name="PathConfidence">The weakest pair confidence on the way to the reference (1 for the reference).</param>
+public sealed record ChainPlacement(Transform2D ToReference, LinkRoute Route, int LinkedTo, PairResult? Pair, double? RouteDisagreement,
+    double PathConfidence = 1);
 
 public sealed record ChainOptions
 {
     /// <summary>A pair whose confidence is below this is not trusted for placing a section.</summary>
     public double MinConfidence { get; init; } = 0.2;
+    /// <summary>The second neighbour's route is taken only when its path confidence beats the nearest's by more than this.</summary>
+    public double PreferNearestMargin { get; init; } = 0.1;
 }
 
 /// <summary>
@@ -89,7 +93,9 @@ public static class ChainSolver
         var routes = candidates.Select(c =>
         {
             var r = Oriented(pair, i, c.Index);
-            return (c.Index, c.Route, Result: r.Result, ToReference: r.Map.Then(placed[c.Index]!.ToReference));
+            var through = placed[c.Index]!;
+            return (c.Index, c.Route, Result: r.Result, ToReference: r.Map.Then(through.ToReference),
+                Path: Math.Min(r.Result.Confidence, through.PathConfidence));
         }).ToList();
 
         double? disagreement = null;
@@ -103,10 +109,14 @@ public static class ChainSolver
                 return Math.Sqrt((a.X - b.X) * (a.X - b.X) + (a.Y - b.Y) * (a.Y - b.Y));
             });
         }
-        var chosen = routes.FirstOrDefault(r => r.Result.Confidence >= options.MinConfidence);
-        if (chosen.Result is null)
-            return new ChainPlacement(Transform2D.Identity, LinkRoute.Failed, -1, routes.Count > 0 ? routes.MaxBy(r => r.Result.Confidence).Result : null, disagreement);
-        return new ChainPlacement(chosen.ToReference, chosen.Route, chosen.Index, chosen.Result, disagreement);
+        // The nearest neighbour is preferred; the second one is taken when the route through it is clearly more
+        // trustworthy (a weak pair, or a neighbour that was itself placed with little confidence).
+        var usable = routes.Where(r => r.Result.Confidence >= options.MinConfidence).ToList();
+        if (usable.Count == 0)
+            return new ChainPlacement(Transform2D.Identity, LinkRoute.Failed, -1, routes.Count > 0 ? routes.MaxBy(r => r.Result.Confidence).Result : null, disagreement, 0);
+        var chosen = usable[0];
+        if (usable.Count > 1 && usable[1].Path > chosen.Path + options.PreferNearestMargin) chosen = usable[1];
+        return new ChainPlacement(chosen.ToReference, chosen.Route, chosen.Index, chosen.Result, disagreement, chosen.Path);
     }
 
     /// <summary>The map from section <paramref name="moving"/> to <paramref name="target"/>; registered later-onto-earlier and inverted when needed, so each pair is computed once.</summary>
