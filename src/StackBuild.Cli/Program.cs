@@ -16,8 +16,21 @@ public static class Program
             "Example:\n  stackbuild demo my-demo\n  stackbuild build my-demo -o my-demo-volume.nii.gz\n  stackbuild info my-demo-volume.nii.gz");
         var console = new CliOutput(stdout, stderr);
         foreach (var command in Commands(console)) root.Subcommands.Add(command);
+        foreach (var version in root.Options.OfType<VersionOption>()) version.Action = new VersionAction(stdout);
         var config = new InvocationConfiguration { Output = stdout, Error = stderr };
         return root.Parse(args).Invoke(config);
+    }
+
+    /// <summary>--version: the version and the FFT in use (FFTW when Debian's libfftw3-single3 is installed).</summary>
+    private sealed class VersionAction(TextWriter stdout) : System.CommandLine.Invocation.SynchronousCommandLineAction
+    {
+        public override int Invoke(ParseResult parseResult)
+        {
+            stdout.WriteLine($"stackbuild {StackBuild.Pipeline.BuildPipeline.Version}");
+            stdout.WriteLine($"FFT: {StackBuild.Register.Fft2D.ProviderName}");
+            stdout.WriteLine("Research software; not for clinical use.");
+            return 0;
+        }
     }
 
     private static IEnumerable<Command> Commands(CliOutput console)

@@ -129,3 +129,17 @@ public sealed class BuildCommandTests : IDisposable
         Assert.Contains("--pixel-size", stderr);
     }
 }
+
+/// <summary>The version line names the FFT in use.</summary>
+public class VersionTests
+{
+    [Fact]
+    public void VersionNamesTheFft()
+    {
+        var o = new StringWriter();
+        int code = Cli.Program.Run(["--version"], o, new StringWriter());
+        Assert.Equal(0, code);
+        Assert.Contains("FFT: ", o.ToString());
+        Assert.Contains("not for clinical use", o.ToString());
+    }
+}
