@@ -25,5 +25,6 @@ public static class Program
         yield return InfoCommand.Create(console);
         yield return DemoCommand.Create(console);
         yield return BuildCommand.Create(console);
+        yield return ResliceCommand.Create(console);
     }
 }
