@@ -23,9 +23,9 @@ public static class ResliceCommand
         var tilt = new Option<string?>("--tilt", "-t")
         {
             Description = "Two tilts in degrees, H,V (each −90 to 90): H about the image's horizontal axis " +
-                          "(positive: lower edge away from you), then V about its vertical axis (positive: right edge away).",
+                          "(positive: the lower edge goes deeper), then V about its vertical axis (positive: the right edge goes deeper).",
         };
-        var offset = new Option<double>("--offset") { Description = "Move the plane along its normal by this many mm (default 0: through the middle)." };
+        var offset = new Option<double>("--offset") { Description = "Move the plane this many mm deeper (towards later sections for the section plane); default 0, through the middle." };
         var size = new Option<string?>("--size") { Description = "Output size in pixels, N or WxH (default: enough to cover the volume)." };
         var pixel = new Option<double?>("--pixel") { Description = "Pixel size in mm (default: the smallest voxel size)." };
         var nearest = new Option<bool>("--nearest") { Description = "Take the nearest voxel instead of trilinear interpolation (for label volumes)." };

@@ -42,8 +42,11 @@ public readonly record struct IntensityWindow(double Low, double High)
         FromPercentiles(volume.Voxels, DefaultLowPercentile, DefaultHighPercentile);
 
     /// <summary>
-    /// Percentiles of the finite values, located in a 65 536-bin histogram between the minimum and maximum and
-    /// interpolated within the bin (accurate to one bin width, 1/65 536 of the range; two passes, no sorting).
+    /// Percentiles of the finite values with numpy's default ("linear") definition: the value at rank
+    /// p/100·(n − 1) among the sorted values, interpolated between the two neighbouring ranks. Found without
+    /// sorting everything: a 65 536-bin histogram between minimum and maximum tells which bins hold those ranks,
+    /// and only those bins' values are sorted (exact unless one bin holds over a million different values, when
+    /// the result is interpolated within the bin, accurate to 1/65 536 of the range).
     /// </summary>
     public static IntensityWindow FromPercentiles(ReadOnlySpan<float> values, double lowPercent, double highPercent)
     {
@@ -58,33 +61,45 @@ public readonly record struct IntensityWindow(double Low, double High)
         }
         if (count == 0) return new IntensityWindow(0, 1);
         if (!(max > min)) return new IntensityWindow(min, min + 1.0);
-        const int bins = 1 << 16;
-        var histogram = new long[bins];
-        double scale = bins / ((double)max - min);
-        foreach (float v in values)
-        {
-            if (!float.IsFinite(v)) continue;
-            histogram[Math.Min((int)((v - (double)min) * scale), bins - 1)]++;
-        }
-        double low = Locate(histogram, count, lowPercent, min, max);
-        double high = Locate(histogram, count, highPercent, min, max);
-        if (!(high > low)) high = low + ((double)max - min) / bins;
+        var histogram = new Histogram(min, max);
+        foreach (float v in values) if (float.IsFinite(v)) histogram.Add(v);
+        double low = histogram.Percentile(values, count, lowPercent);
+        double high = histogram.Percentile(values, count, highPercent);
+        if (!(high > low)) high = low + ((double)max - min) / Histogram.Bins;
         return new IntensityWindow(low, high);
     }
 
-    private static double Locate(long[] histogram, long count, double percent, double min, double max)
+    private sealed class Histogram(float min, float max)
     {
-        // Rank of the wanted value among the sorted values, counted from 0 (the "linear" percentile definition).
-        double rank = Math.Clamp(percent, 0, 100) / 100.0 * (count - 1);
-        double width = (max - min) / histogram.Length;
-        long below = 0;
-        for (int b = 0; b < histogram.Length; b++)
+        public const int Bins = 1 << 16;
+        private const int MaxSorted = 1 << 20;
+        private readonly long[] _counts = new long[Bins];
+        private readonly double _scale = Bins / ((double)max - min);
+
+        private int BinOf(float v) => Math.Min((int)((v - (double)min) * _scale), Bins - 1);
+
+        public void Add(float v) => _counts[BinOf(v)]++;
+
+        public double Percentile(ReadOnlySpan<float> values, long count, double percent)
         {
-            long inBin = histogram[b];
-            if (inBin > 0 && below + inBin > rank)
-                return min + width * (b + (rank - below + 0.5) / inBin);
-            below += inBin;
+            double rank = Math.Clamp(percent, 0, 100) / 100.0 * (count - 1);
+            long below = (long)Math.Floor(rank);
+            double lower = Ranked(values, below), upper = below + 1 < count ? Ranked(values, below + 1) : lower;
+            return lower + (rank - below) * (upper - lower);
         }
-        return max;
+
+        // The value at 0-based rank r among the sorted finite values.
+        private double Ranked(ReadOnlySpan<float> values, long r)
+        {
+            long before = 0;
+            int bin = 0;
+            while (before + _counts[bin] <= r) before += _counts[bin++];
+            if (_counts[bin] > MaxSorted)
+                return min + (bin + (r - before + 0.5) / _counts[bin]) / _scale;
+            var inBin = new List<float>((int)_counts[bin]);
+            foreach (float v in values) if (float.IsFinite(v) && BinOf(v) == bin) inBin.Add(v);
+            inBin.Sort();
+            return inBin[(int)(r - before)];
+        }
     }
 }

@@ -22,7 +22,7 @@ public sealed record PlaneDescription(
     double[] CentreMm,
     double[] RightDirection,
     double[] DownDirection,
-    double[] Normal,
+    double[] DepthDirection,
     double[][] PixelToWorldMm,
     double[][] PixelToVoxel,
     IReadOnlyList<CornerDescription> Corners,
@@ -55,7 +55,7 @@ public sealed record PlaneDescription(
             spec.Orientation.Name, spec.TiltAboutHorizontalDeg, spec.TiltAboutVerticalDeg, spec.OffsetMm, offsetMin, offsetMax,
             interpolation == Reslice.Interpolation.Nearest ? "nearest" : "linear",
             plane.Width, plane.Height, plane.PixelSizeMm,
-            plane.Centre.ToArray(), plane.Right.ToArray(), plane.Down.ToArray(), plane.Normal.ToArray(),
+            plane.Centre.ToArray(), plane.Right.ToArray(), plane.Down.ToArray(), spec.Axes(volume.Affine).Depth.ToArray(),
             world, voxel,
             plane.Corners(volume.Affine).Select(c => new CornerDescription(c.Name, [c.PixelX, c.PixelY], c.WorldMm.ToArray(), c.Voxel.ToArray())).ToArray(),
             PlaneCut.VoxelPolygon(volume, plane).Select(p => p.ToArray()).ToArray());

@@ -33,6 +33,9 @@ public sealed record PlaneOrientation
     /// <summary>True when the plane follows two voxel axes (rather than world letters).</summary>
     public bool FollowsVoxelAxes => _rightAxis >= 0;
 
+    /// <summary>The voxel axis the untilted plane is normal to (0 = i, 1 = j, 2 = k), or null for world letters.</summary>
+    public int? NormalAxis => FollowsVoxelAxes ? 3 - _rightAxis - _downAxis : null;
+
     public const string Accepted =
         "section (= ij), ik, jk, ji, ki, kj, axial, coronal, sagittal, or two anatomical letters such as RI";
 

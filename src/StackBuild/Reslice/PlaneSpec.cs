@@ -10,10 +10,10 @@ namespace StackBuild.Reslice;
 /// </summary>
 /// <param name="Orientation">The untilted plane (see <see cref="PlaneOrientation"/>).</param>
 /// <param name="TiltAboutHorizontalDeg">Tilt about the starting plane's horizontal (image x) axis, degrees in
-/// [−90, 90]; positive turns the lower edge away from the viewer.</param>
-/// <param name="TiltAboutVerticalDeg">Tilt about the (once tilted) vertical (image y) axis, degrees in [−90, 90];
-/// positive turns the right edge away from the viewer.</param>
-/// <param name="OffsetMm">Shift of the tilted plane along its own normal, in mm from the centre point.</param>
+/// [−90, 90]; positive turns the lower edge deeper (see <see cref="Axes"/>).</param>
+/// <param name="TiltAboutVerticalDeg">Then tilt about the plane's vertical (image y) axis, degrees in [−90, 90];
+/// positive turns the right edge deeper.</param>
+/// <param name="OffsetMm">Shift of the tilted plane along its depth direction, in mm from the centre point.</param>
 /// <param name="PixelSizeMm">Output pixel size; null = the volume's smallest voxel size.</param>
 /// <param name="Width">Output width in pixels; null = wide enough to cover the volume.</param>
 /// <param name="Height">Output height in pixels; null = high enough to cover the volume.</param>
@@ -35,14 +35,13 @@ public sealed record PlaneSpec(
     /// <remarks>
     /// The centre point is the centre of the volume, moved along the voxel axis closest to the starting plane's
     /// normal to the middle voxel (index n/2), so the untilted plane at offset 0 passes through voxel centres
-    /// (a real section rather than a blend of two). The tilts are applied in order: first about the horizontal
-    /// axis (turning down towards the normal), then about the new vertical axis (turning right towards the normal).
+    /// (a real section rather than a blend of two). The tilts are applied as <see cref="Axes"/> describes.
     /// </remarks>
     public ReslicePlane Build(Volume volume, string? source = null)
     {
         Check(source);
-        var (right, down, normal) = Axes(volume.Affine);
-        var centre = CentrePoint(volume) + OffsetMm * normal;
+        var (right, down, depth) = Axes(volume.Affine);
+        var centre = CentrePoint(volume) + OffsetMm * depth;
         double pixel = PixelSizeMm ?? SmallestVoxelSize(volume.Affine);
         var (halfRight, halfDown) = HalfExtents(volume, centre, right, down);
         int width = Width ?? CoveringCount(halfRight, pixel);
@@ -54,23 +53,30 @@ public sealed record PlaneSpec(
         return new ReslicePlane(centre, right, down, width, height, pixel);
     }
 
-    /// <summary>The tilted plane's right, down and normal directions (world unit vectors).</summary>
-    public (Vector3D Right, Vector3D Down, Vector3D Normal) Axes(Affine voxelToWorld)
+    /// <summary>
+    /// The tilted plane's right and down directions and its depth direction (world unit vectors): the way a
+    /// positive offset moves the plane. For a plane along two voxel axes the depth direction is that of the
+    /// increasing third index (deeper = later sections for <c>section</c>); for anatomical letters it is
+    /// right × down. Positive tilts turn the lower edge (about the horizontal axis), then the right edge (about
+    /// the vertical axis), towards the depth direction.
+    /// </summary>
+    public (Vector3D Right, Vector3D Down, Vector3D Depth) Axes(Affine voxelToWorld)
     {
         var (right, down) = Orientation.Directions(voxelToWorld);
-        // Tilt about right: down turns towards the normal (rotation by +angle about right).
-        down = down.RotatedAbout(right, TiltAboutHorizontalDeg);
-        // Tilt about the new down: right turns towards the normal (rotation by −angle about down).
-        right = right.RotatedAbout(down, -TiltAboutVerticalDeg);
+        var depth = right.Cross(down);
+        if (Orientation.NormalAxis is int axis && depth.Dot(PlaneOrientation.Column(voxelToWorld, axis)) < 0) depth = -depth;
+        double a = TiltAboutHorizontalDeg * Math.PI / 180, b = TiltAboutVerticalDeg * Math.PI / 180;
+        (down, depth) = (Math.Cos(a) * down + Math.Sin(a) * depth, Math.Cos(a) * depth - Math.Sin(a) * down);
+        (right, depth) = (Math.Cos(b) * right + Math.Sin(b) * depth, Math.Cos(b) * depth - Math.Sin(b) * right);
         // Re-normalise against rounding so the plane's checks for unit, perpendicular vectors hold.
         right = right.Normalized();
         down = (down - down.Dot(right) * right).Normalized();
-        return (right, down, right.Cross(down));
+        return (right, down, depth.Normalized());
     }
 
     /// <summary>
-    /// The range of offsets (mm, along the tilted normal) at which the plane still cuts the volume's box of
-    /// voxel cells.
+    /// The range of offsets (mm, along the tilted depth direction) at which the plane still cuts the volume's
+    /// box of voxel cells.
     /// </summary>
     public (double Min, double Max) OffsetRange(Volume volume)
     {
