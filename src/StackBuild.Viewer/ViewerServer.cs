@@ -14,7 +14,7 @@ using StackBuild.Reslice;
 namespace StackBuild.Viewer;
 
 /// <summary>
-/// A small web server that shows one volume, resliced at any angle, in a browser. It serves exactly three page
+/// A small web server that shows one volume, resliced at any angle, in a browser. It serves only its own page
 /// assets compiled into this assembly and an API computed from the one volume it was given; nothing else, and
 /// never a file from disk.
 /// </summary>
@@ -101,6 +101,7 @@ public sealed class ViewerServer : IAsyncDisposable
         ("/", "index.html", "text/html; charset=utf-8"),
         ("/viewer.css", "viewer.css", "text/css; charset=utf-8"),
         ("/viewer.js", "viewer.js", "text/javascript; charset=utf-8"),
+        ("/favicon.svg", "favicon.svg", "image/svg+xml"),
     ];
 
     private static void MapAssets(WebApplication app)

@@ -5,6 +5,7 @@ using System.Text.Json;
 using StackBuild.Geometry;
 using StackBuild.Imaging;
 using StackBuild.IO;
+using StackBuild.Nifti;
 using StackBuild.Reslice;
 
 namespace StackBuild.Cli.Commands;
@@ -57,7 +58,7 @@ public static class ResliceCommand
             var windowText = parse.GetValue(window);
             var interpolation = parse.GetValue(nearest) ? Interpolation.Nearest : Interpolation.Linear;
 
-            var volume = VolumeInput.Load(path);
+            var volume = VolumeInput.Load(path, console.Error);
             var built = spec.Build(volume, path);
             var image = Reslicer.Reslice(volume, built, new ResliceOptions(interpolation, parse.GetValue(fill), MaxThreads: 0));
             var shown = windowText is null ? IntensityWindow.Robust(volume) : IntensityWindow.Parse(windowText);
@@ -72,7 +73,7 @@ public static class ResliceCommand
                     Window = new { shown.Low, shown.High },
                     Plane = PlaneDescription.Of(volume, spec, built, interpolation),
                 };
-                console.Out.WriteLine(JsonSerializer.Serialize(report, new JsonSerializerOptions(PlaneDescription.JsonOptions) { WriteIndented = true }));
+                console.Out.WriteLine(JsonSerializer.Serialize(report, PlaneDescription.JsonOptions));
             }
             else
             {
@@ -164,13 +165,16 @@ public static class ResliceCommand
     }
 }
 
-/// <summary>Reads the volume a command was given.</summary>
+/// <summary>Reads the volume a command was given (the first volume of a 4D file, saying so).</summary>
 internal static class VolumeInput
 {
-    public static Volume Load(string path)
+    public static Volume Load(string path, TextWriter notes)
     {
         if (!File.Exists(path))
-            throw new InputProblemException(path, "no such file", "check the path to the NIfTI volume");
-        throw new InputProblemException(path, "NIfTI reading is not wired yet", "build from the branch that has it");
+            throw new InputProblemException(path, "no such file", "check the path to the NIfTI volume (.nii or .nii.gz)");
+        var image = NiftiFile.Read(path);
+        if (image.VolumeCount > 1)
+            notes.WriteLine($"note: {path} holds {image.VolumeCount} volumes; using the first");
+        return image.ToVolume();
     }
 }

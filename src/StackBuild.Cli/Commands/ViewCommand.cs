@@ -32,7 +32,7 @@ public static class ViewCommand
             var listenText = parse.GetValue(listen) ?? "127.0.0.1";
             var address = listenText == "localhost" ? IPAddress.Loopback : IPAddress.TryParse(listenText, out var a) ? a
                 : throw new InputProblemException(null, $"--listen '{listenText}' is not an IP address", "give an address such as 127.0.0.1 or 0.0.0.0");
-            var volume = VolumeInput.Load(path);
+            var volume = VolumeInput.Load(path, console.Error);
             if (!IPAddress.IsLoopback(address))
                 console.Error.WriteLine($"warning: listening on {address}: anyone who can reach this computer can see this volume");
             ViewerServer server;

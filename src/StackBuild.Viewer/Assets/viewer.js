@@ -77,18 +77,23 @@ function layoutImage() {
   const g = view.geometry;
   if (!g) return;
   const stage = $("stage").getBoundingClientRect();
+  const footHeight = 44;
   // One scale for every tilt: the volume's diagonal fits the stage, so turning the plane never rescales it.
-  const pxPerMm = Math.max(0.01, (Math.min(stage.width, stage.height) - 64) / view.info.diagonalMm);
+  const pxPerMm = Math.max(0.01, (Math.min(stage.width, stage.height - footHeight) - 56) / view.info.diagonalMm);
   const img = $("plane");
   const cssPerPixel = g.pixelSizeMm * pxPerMm;
   img.style.width = (g.width * cssPerPixel) + "px";
   img.style.height = (g.height * cssPerPixel) + "px";
   img.classList.toggle("crisp", cssPerPixel >= 2);
+  // The volume's edge on the plane, in the image's own pixel coordinates (pixel centres at whole numbers).
+  const bounds = $("bounds");
+  bounds.setAttribute("viewBox", `-0.5 -0.5 ${g.width} ${g.height}`);
+  $("bounds-line").setAttribute("points", g.cutPixel.map((p) => `${p[0]},${p[1]}`).join(" "));
   drawScale(pxPerMm, stage.width);
 }
 
 function drawScale(pxPerMm, stageWidth) {
-  const target = stageWidth * 0.16 / pxPerMm;
+  const target = Math.min(160, stageWidth * 0.14) / pxPerMm;
   const power = Math.pow(10, Math.floor(Math.log10(target)));
   const mm = [5, 2, 1].map((m) => m * power).find((m) => m <= target) || power;
   $("scale-bar").style.width = (mm * pxPerMm) + "px";
@@ -160,107 +165,115 @@ function onPointer(event) {
 
 // ---- outline of the volume box with the cut ----
 
+const OUTLINE_W = 280, OUTLINE_H = 180;
+
 function drawOutline(pointVoxel = null) {
   const canvas = $("outline");
   const g = view.geometry;
   const info = view.info;
   if (!info) return;
   const ratio = window.devicePixelRatio || 1;
-  if (canvas.width !== 272 * ratio) {
-    canvas.width = 272 * ratio;
-    canvas.height = 200 * ratio;
+  if (canvas.width !== OUTLINE_W * ratio) {
+    canvas.width = OUTLINE_W * ratio;
+    canvas.height = OUTLINE_H * ratio;
   }
   const ctx = canvas.getContext("2d");
   ctx.setTransform(ratio, 0, 0, ratio, 0, 0);
-  ctx.clearRect(0, 0, 272, 200);
+  ctx.clearRect(0, 0, OUTLINE_W, OUTLINE_H);
 
-  // Box in voxel-aligned mm; drawn as a section seen face on (i right, j down) with sections receding up-right.
+  // The box in voxel-aligned mm, drawn like a stack on the bench: the first section face on (i right, j down),
+  // later sections receding up and to the right.
   const [nx, ny, nz] = info.dims;
   const [si, sj, sk] = info.voxelSizeMm;
-  const depthX = Math.cos(Math.PI / 6) * 0.55, depthY = -Math.sin(Math.PI / 6) * 0.55;
+  const recede = [Math.cos(Math.PI / 6) * 0.55, -Math.sin(Math.PI / 6) * 0.55];
   const raw = (v) => {
     const i = (v[0] + 0.5) * si, j = (v[1] + 0.5) * sj, k = (v[2] + 0.5) * sk;
-    return [i + k * depthX, j + k * depthY];
+    return [i + k * recede[0], j + k * recede[1]];
   };
-  const corners = [];
-  for (const k of [-0.5, nz - 0.5]) for (const j of [-0.5, ny - 0.5]) for (const i of [-0.5, nx - 0.5]) corners.push([i, j, k]);
-  const flat = corners.map(raw);
-  const xs = flat.map((p) => p[0]), ys = flat.map((p) => p[1]);
-  const minX = Math.min(...xs), maxX = Math.max(...xs), minY = Math.min(...ys), maxY = Math.max(...ys);
-  const scale = Math.min((272 - 44) / (maxX - minX), (200 - 40) / (maxY - minY));
-  const ox = (272 - (maxX - minX) * scale) / 2 - minX * scale;
-  const oy = (200 - (maxY - minY) * scale) / 2 - minY * scale + 4;
-  const P = (v) => { const r = raw(v); return [ox + r[0] * scale, oy + r[1] * scale]; };
-
-  const line = (a, b) => { ctx.beginPath(); ctx.moveTo(...P(a)); ctx.lineTo(...P(b)); ctx.stroke(); };
   const lo = [-0.5, -0.5, -0.5], hi = [nx - 0.5, ny - 0.5, nz - 0.5];
-  const edges = [];
+  const boxCorners = [];
+  for (const k of [lo[2], hi[2]]) for (const j of [lo[1], hi[1]]) for (const i of [lo[0], hi[0]]) boxCorners.push([i, j, k]);
+  // Fit the box (and the whole image's frame, which may reach beyond it) into the canvas, leaving room for the axes.
+  const fitted = boxCorners.concat(g ? g.corners.map((c) => c.voxel) : []).map(raw);
+  const xs = fitted.map((p) => p[0]), ys = fitted.map((p) => p[1]);
+  const minX = Math.min(...xs), maxX = Math.max(...xs), minY = Math.min(...ys), maxY = Math.max(...ys);
+  const left = 46, margin = 10;
+  const scale = Math.min((OUTLINE_W - left - margin) / (maxX - minX), (OUTLINE_H - 2 * margin) / (maxY - minY));
+  const ox = left + (OUTLINE_W - left - margin - (maxX - minX) * scale) / 2 - minX * scale;
+  const oy = margin + (OUTLINE_H - 2 * margin - (maxY - minY) * scale) / 2 - minY * scale;
+  const P = (v) => { const r = raw(v); return [ox + r[0] * scale, oy + r[1] * scale]; };
+  const path = (points) => {
+    ctx.beginPath();
+    points.forEach((v, n) => { const p = P(v); if (n === 0) ctx.moveTo(...p); else ctx.lineTo(...p); });
+    ctx.closePath();
+  };
+
+  ctx.lineWidth = 1;
+  ctx.strokeStyle = "#bdb6c8";
   for (let a = 0; a < 3; a++) {
     for (let c = 0; c < 4; c++) {
-      const from = [0, 0, 0];
       const b1 = (a + 1) % 3, b2 = (a + 2) % 3;
+      const from = [0, 0, 0];
       from[a] = lo[a];
       from[b1] = c & 1 ? hi[b1] : lo[b1];
       from[b2] = c & 2 ? hi[b2] : lo[b2];
       const to = from.slice();
       to[a] = hi[a];
-      edges.push([from, to]);
+      ctx.beginPath(); ctx.moveTo(...P(from)); ctx.lineTo(...P(to)); ctx.stroke();
     }
   }
-  ctx.lineWidth = 1;
-  ctx.strokeStyle = "#b9b2c4";
-  edges.forEach(([a, b]) => line(a, b));
-  // The first section, face on, drawn a little stronger: it anchors the reading of the box.
+  // The first section, a little stronger: it anchors the reading of the box.
   ctx.strokeStyle = "#8d85a0";
-  ctx.beginPath();
-  [[lo[0], lo[1], lo[2]], [hi[0], lo[1], lo[2]], [hi[0], hi[1], lo[2]], [lo[0], hi[1], lo[2]]].forEach((v, n) => {
-    const p = P(v);
-    if (n === 0) ctx.moveTo(...p); else ctx.lineTo(...p);
-  });
-  ctx.closePath();
+  path([[lo[0], lo[1], lo[2]], [hi[0], lo[1], lo[2]], [hi[0], hi[1], lo[2]], [lo[0], hi[1], lo[2]]]);
   ctx.stroke();
 
-  if (g && g.cutVoxel && g.cutVoxel.length >= 3) {
-    ctx.beginPath();
-    g.cutVoxel.forEach((v, n) => { const p = P(v); if (n === 0) ctx.moveTo(...p); else ctx.lineTo(...p); });
-    ctx.closePath();
-    ctx.fillStyle = "rgba(208, 80, 127, 0.28)";
-    ctx.fill();
-    ctx.strokeStyle = "#d0507f";
-    ctx.lineWidth = 1.6;
+  if (g) {
+    ctx.setLineDash([4, 3]);
+    ctx.strokeStyle = "#8d85a0";
+    path(g.corners.map((c) => c.voxel));
     ctx.stroke();
-    // The plane image's top-left corner, so the drawing and the image can be matched.
-    const tl = g.corners[0].voxel;
-    const p = P(tl);
-    ctx.fillStyle = "#d0507f";
-    ctx.fillRect(p[0] - 2.5, p[1] - 2.5, 5, 5);
+    ctx.setLineDash([]);
+    if (g.cutVoxel.length >= 3) {
+      path(g.cutVoxel);
+      ctx.fillStyle = "rgba(208, 80, 127, 0.30)";
+      ctx.fill();
+      ctx.strokeStyle = "#d0507f";
+      ctx.lineWidth = 1.6;
+      ctx.stroke();
+    }
+    const p = P(g.corners[0].voxel);
+    ctx.fillStyle = "#4d3b84";
+    ctx.fillRect(p[0] - 3, p[1] - 3, 6, 6);
   }
 
-  // Axis arrows from the first voxel's corner.
+  // Axis key in the lower left: which way i, j and k run, and the body direction each points to.
+  const codes = info.axisCodes || "???";
+  const origin = [12, OUTLINE_H - 46];
+  const unit = [[1, 0], [0, 1], recede.map((r) => r / 0.55)];
   ctx.font = "11px DejaVu Sans, sans-serif";
   ctx.lineWidth = 1.2;
-  const arrow = (to, label) => {
-    const a = P(lo), b = P(to);
+  ["i", "j", "k"].forEach((name, a) => {
+    const len = a === 2 ? 20 : 24;
+    const end = [origin[0] + unit[a][0] * len, origin[1] + unit[a][1] * len];
     ctx.strokeStyle = ctx.fillStyle = "#4d3b84";
-    ctx.beginPath(); ctx.moveTo(...a); ctx.lineTo(...b); ctx.stroke();
-    const ang = Math.atan2(b[1] - a[1], b[0] - a[0]);
+    ctx.beginPath(); ctx.moveTo(...origin); ctx.lineTo(...end); ctx.stroke();
+    const ang = Math.atan2(end[1] - origin[1], end[0] - origin[0]);
     ctx.beginPath();
-    ctx.moveTo(...b);
-    ctx.lineTo(b[0] - 6 * Math.cos(ang - 0.4), b[1] - 6 * Math.sin(ang - 0.4));
-    ctx.lineTo(b[0] - 6 * Math.cos(ang + 0.4), b[1] - 6 * Math.sin(ang + 0.4));
+    ctx.moveTo(...end);
+    ctx.lineTo(end[0] - 5 * Math.cos(ang - 0.45), end[1] - 5 * Math.sin(ang - 0.45));
+    ctx.lineTo(end[0] - 5 * Math.cos(ang + 0.45), end[1] - 5 * Math.sin(ang + 0.45));
     ctx.closePath(); ctx.fill();
-    ctx.fillText(label, b[0] + 4 * Math.cos(ang) - 3, b[1] + 10 * Math.sin(ang) + 4);
-  };
-  const reach = (a, n) => { const v = lo.slice(); v[a] = -0.5 + Math.max(1, n * 0.28); return v; };
-  arrow(reach(0, nx), "i");
-  arrow(reach(1, ny), "j");
-  arrow(reach(2, nz), "k");
+    const label = `${name} ${codes[a]}`;
+    const at = a === 0 ? [end[0] + 3, end[1] + 4] : a === 1 ? [end[0] + 4, end[1] + 2] : [end[0] + 2, end[1] - 3];
+    ctx.fillStyle = "#6c6773";
+    ctx.fillText(label, ...at);
+  });
 
   if (pointVoxel) {
     const p = P(pointVoxel);
     ctx.fillStyle = "#4d3b84";
-    ctx.beginPath(); ctx.arc(p[0], p[1], 3.2, 0, 2 * Math.PI); ctx.fill();
-    ctx.strokeStyle = "#fff"; ctx.lineWidth = 1; ctx.stroke();
+    ctx.beginPath(); ctx.arc(p[0], p[1], 3.4, 0, 2 * Math.PI); ctx.fill();
+    ctx.strokeStyle = "#fff"; ctx.lineWidth = 1.2; ctx.stroke();
   }
 }
 

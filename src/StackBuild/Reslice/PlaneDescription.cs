@@ -6,7 +6,8 @@ namespace StackBuild.Reslice;
 
 /// <summary>
 /// Everything about one resliced plane that a reader needs to place its pixels: how it was asked for, where it
-/// lies, and its corners in mm and voxels. Serialised as JSON by <c>stackbuild reslice --json</c> and by the viewer.
+/// lies, its corners in mm and voxels, and the polygon where it meets the volume's box of voxel cells (in voxel
+/// indices and in the plane's own pixel coordinates). Serialised as JSON by <c>stackbuild reslice --json</c> and by the viewer.
 /// </summary>
 public sealed record PlaneDescription(
     string Orientation,
@@ -26,7 +27,8 @@ public sealed record PlaneDescription(
     double[][] PixelToWorldMm,
     double[][] PixelToVoxel,
     IReadOnlyList<CornerDescription> Corners,
-    IReadOnlyList<double[]> CutVoxel)
+    IReadOnlyList<double[]> CutVoxel,
+    IReadOnlyList<double[]> CutPixel)
 {
     public static JsonSerializerOptions JsonOptions { get; } = new(JsonSerializerDefaults.Web)
     {
@@ -51,6 +53,13 @@ public sealed record PlaneDescription(
                 voxel[r][c] = s;
             }
         }
+        var cut = PlaneCut.VoxelPolygon(volume, plane);
+        var origin = plane.PixelToWorld(0, 0);
+        var cutPixel = cut.Select(p =>
+        {
+            Vector3D w = volume.Affine.Apply(p.X, p.Y, p.Z);
+            return new[] { (w - origin).Dot(plane.Right) / plane.PixelSizeMm, (w - origin).Dot(plane.Down) / plane.PixelSizeMm };
+        }).ToArray();
         return new PlaneDescription(
             spec.Orientation.Name, spec.TiltAboutHorizontalDeg, spec.TiltAboutVerticalDeg, spec.OffsetMm, offsetMin, offsetMax,
             interpolation == Reslice.Interpolation.Nearest ? "nearest" : "linear",
@@ -58,7 +67,8 @@ public sealed record PlaneDescription(
             plane.Centre.ToArray(), plane.Right.ToArray(), plane.Down.ToArray(), spec.Axes(volume.Affine).Depth.ToArray(),
             world, voxel,
             plane.Corners(volume.Affine).Select(c => new CornerDescription(c.Name, [c.PixelX, c.PixelY], c.WorldMm.ToArray(), c.Voxel.ToArray())).ToArray(),
-            PlaneCut.VoxelPolygon(volume, plane).Select(p => p.ToArray()).ToArray());
+            cut.Select(p => p.ToArray()).ToArray(),
+            cutPixel);
     }
 
     public string ToJson(bool indented = false) =>
