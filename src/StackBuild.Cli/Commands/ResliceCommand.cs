@@ -26,13 +26,13 @@ public static class ResliceCommand
             Description = "Two tilts in degrees, H,V (each −90 to 90): H about the image's horizontal axis " +
                           "(positive: the lower edge goes deeper), then V about its vertical axis (positive: the right edge goes deeper).",
         };
-        var offset = new Option<double>("--offset") { Description = "Move the plane this many mm deeper (towards later sections for the section plane); default 0, through the middle." };
+        var offset = new Option<string?>("--offset") { Description = "Move the plane this many mm deeper (towards later sections for the section plane); default 0, through the middle." };
         var size = new Option<string?>("--size") { Description = "Output size in pixels, N or WxH (default: enough to cover the volume)." };
-        var pixel = new Option<double?>("--pixel") { Description = "Pixel size in mm (default: the smallest voxel size)." };
+        var pixel = new Option<string?>("--pixel") { Description = "Pixel size in mm (default: the smallest voxel size)." };
         var nearest = new Option<bool>("--nearest") { Description = "Take the nearest voxel instead of trilinear interpolation (for label volumes)." };
-        var bits = new Option<int>("--bits") { Description = "PNG bit depth, 8 or 16.", DefaultValueFactory = _ => 8 };
+        var bits = new Option<string>("--bits") { Description = "PNG bit depth, 8 or 16.", DefaultValueFactory = _ => "8" };
         var window = new Option<string?>("--window", "-w") { Description = "Intensities shown black to white, LOW,HIGH (default: the volume's 0.5th to 99.5th percentiles)." };
-        var fill = new Option<float>("--fill") { Description = "Value for pixels outside the volume (before windowing; default 0)." };
+        var fill = new Option<string?>("--fill") { Description = "Value for pixels outside the volume (before windowing; default 0)." };
         var json = new Option<bool>("--json") { Description = "Print the plane definition and its corners (mm and voxels) as JSON." };
         var bench = new Option<bool>("--bench") { Description = "Time the reslicer on a synthetic 512³ volume (for docs/benchmarks-reslice.md).", Hidden = true };
 
@@ -51,16 +51,17 @@ public static class ResliceCommand
                 ?? throw new InputProblemException(null, "no volume given", "name a NIfTI file: stackbuild reslice VOL -o PLANE.png");
             var outPath = parse.GetValue(output)
                 ?? throw new InputProblemException(path, "no output PNG given", "add -o PLANE.png");
-            int depth = parse.GetValue(bits);
-            if (depth is not (8 or 16))
-                throw new InputProblemException(null, $"--bits must be 8 or 16, not {depth}", "use --bits 8 or --bits 16");
-            var spec = Spec(parse.GetValue(plane) ?? "section", parse.GetValue(tilt), parse.GetValue(offset), parse.GetValue(size), parse.GetValue(pixel));
+            var bitsText = parse.GetValue(bits) ?? "8";
+            int depth = bitsText switch { "8" => 8, "16" => 16, _ => throw new InputProblemException(null, $"--bits must be 8 or 16, not '{Shorten(bitsText)}'", "use --bits 8 or --bits 16") };
+            var spec = Spec(parse.GetValue(plane) ?? "section", parse.GetValue(tilt), Number(parse.GetValue(offset), "--offset", "mm") ?? 0,
+                parse.GetValue(size), Number(parse.GetValue(pixel), "--pixel", "mm"));
+            float fillValue = (float)(Number(parse.GetValue(fill), "--fill", "value") ?? 0);
             var windowText = parse.GetValue(window);
             var interpolation = parse.GetValue(nearest) ? Interpolation.Nearest : Interpolation.Linear;
 
             var volume = VolumeInput.Load(path, console.Error);
             var built = spec.Build(volume, path);
-            var image = Reslicer.Reslice(volume, built, new ResliceOptions(interpolation, parse.GetValue(fill), MaxThreads: 0));
+            var image = Reslicer.Reslice(volume, built, new ResliceOptions(interpolation, fillValue, MaxThreads: 0));
             var shown = windowText is null ? IntensityWindow.Robust(volume) : IntensityWindow.Parse(windowText);
             PlanePng.WriteFile(outPath, image, shown, depth);
             if (parse.GetValue(json))
@@ -106,6 +107,14 @@ public static class ResliceCommand
             height = parts.Length == 2 ? int.Parse(parts[1], CultureInfo.InvariantCulture) : width;
         }
         return new PlaneSpec(orientation, h, v, offsetMm, pixelMm, width, height);
+    }
+
+    /// <summary>An optional number option, or a one-line input problem naming the option.</summary>
+    internal static double? Number(string? text, string option, string what)
+    {
+        if (text is null) return null;
+        if (TryNumber(text, out var value)) return value;
+        throw new InputProblemException(null, $"{option} '{Shorten(text)}' is not a number", $"give a {what} such as 0.5");
     }
 
     private static bool TryNumber(string text, out double value) =>

@@ -10,7 +10,7 @@ public static class ViewCommand
     public static Command Create(CliOutput console)
     {
         var volumeArg = new Argument<string>("VOL") { Description = "The volume to show (NIfTI-1, .nii or .nii.gz)." };
-        var port = new Option<int>("--port") { Description = "Port to listen on (default 0: any free port; the address is printed)." };
+        var port = new Option<string?>("--port") { Description = "Port to listen on (default 0: any free port; the address is printed)." };
         var listen = new Option<string>("--listen")
         {
             Description = "Address to listen on (default 127.0.0.1, this computer only). Any other address lets other computers see the volume.",
@@ -26,9 +26,9 @@ public static class ViewCommand
         command.SetAction((parse, cancellation) => Task.FromResult(console.Guard(() =>
         {
             var path = parse.GetValue(volumeArg)!;
-            int portNumber = parse.GetValue(port);
-            if (portNumber is < 0 or > 65535)
-                throw new InputProblemException(null, $"--port must be 0 to 65535, not {portNumber}", "give a free port, or 0 to pick one");
+            var portText = parse.GetValue(port) ?? "0";
+            if (!int.TryParse(portText, System.Globalization.NumberStyles.None, System.Globalization.CultureInfo.InvariantCulture, out int portNumber) || portNumber > 65535)
+                throw new InputProblemException(null, $"--port must be a number from 0 to 65535, not '{portText}'", "give a free port, or 0 to pick one");
             var listenText = parse.GetValue(listen) ?? "127.0.0.1";
             var address = listenText == "localhost" ? IPAddress.Loopback : IPAddress.TryParse(listenText, out var a) ? a
                 : throw new InputProblemException(null, $"--listen '{listenText}' is not an IP address", "give an address such as 127.0.0.1 or 0.0.0.0");
