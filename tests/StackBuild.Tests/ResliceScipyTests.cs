@@ -1,4 +1,3 @@
-using System.Diagnostics;
 using System.Text.Json;
 using StackBuild.Geometry;
 using StackBuild.Imaging;
@@ -122,24 +121,16 @@ public class ResliceScipyTests
 /// <summary>Runs a script from tests/tools with Debian's /usr/bin/python3; fails clearly when it or SciPy is missing.</summary>
 internal static class PythonTool
 {
-    public const string Python = "/usr/bin/python3";
-
     public static string Run(string script, params string[] args)
     {
-        Assert.True(File.Exists(Python), $"{Python} is missing: install the Debian packages python3 and python3-scipy (apt-get install -y python3-scipy)");
-        var path = Path.Combine(AppContext.BaseDirectory, "tools", script);
+        Assert.True(File.Exists(NiftiPython.Python),
+            $"{NiftiPython.Python} is missing: install the Debian packages python3 and python3-scipy (apt-get install -y python3-scipy)");
+        var path = NiftiPython.Tool(script);
         Assert.True(File.Exists(path), $"{path} is missing: tests/tools should be copied to the test output folder");
-        var start = new ProcessStartInfo(Python) { RedirectStandardOutput = true, RedirectStandardError = true, UseShellExecute = false };
-        start.ArgumentList.Add(path);
-        foreach (var a in args) start.ArgumentList.Add(a);
-        using var process = Process.Start(start)!;
-        var stderrTask = process.StandardError.ReadToEndAsync();
-        var stdout = process.StandardOutput.ReadToEnd();
-        process.WaitForExit();
-        var stderr = stderrTask.Result;
+        var (exit, stdout, stderr) = NiftiPython.Process(NiftiPython.Python, [path, .. args]);
         if (stderr.Contains("No module named 'scipy'") || stderr.Contains("No module named 'numpy'"))
             Assert.Fail("SciPy is missing for /usr/bin/python3: install the Debian package python3-scipy (apt-get install -y python3-scipy)");
-        Assert.True(process.ExitCode == 0, $"{script} failed ({process.ExitCode}): {stderr}");
+        Assert.True(exit == 0, $"{script} failed ({exit}): {stderr}");
         return stdout;
     }
 }
