@@ -130,6 +130,16 @@ public sealed class ResliceCommandTests : IDisposable
     }
 
     [Fact]
+    public async Task ABusyPortIsAOneLineError()
+    {
+        await using var busy = await StackBuild.Viewer.ViewerServer.StartAsync(_volume, "busy", System.Net.IPAddress.Loopback, 0);
+        var (exit, _, stderr) = ResliceTestSupport.Cli("view", _volumePath, "--port", busy.Url.Port.ToString(System.Globalization.CultureInfo.InvariantCulture));
+        Assert.Equal(1, exit);
+        Assert.Contains("cannot listen", stderr);
+        Assert.Single(stderr.TrimEnd().Split('\n'));
+    }
+
+    [Fact]
     public void NegativeNumbersAreTakenAsValues()
     {
         var png = Path.Combine(_folder, "negative.png");
