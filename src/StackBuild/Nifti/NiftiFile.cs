@@ -1,3 +1,4 @@
+using System.Runtime.CompilerServices;
 using System.Buffers;
 using System.Buffers.Binary;
 using System.IO.Compression;
@@ -207,6 +208,8 @@ public static class NiftiFile
         }
     }
 
+    // Hot loop, called once per volume: compile it optimised at once rather than start in tier-0 code.
+    [MethodImpl(MethodImplOptions.AggressiveOptimization)]
     private static void WriteIntegers<T>(Stream stream, float[] voxels, NiftiHeader header)
         where T : unmanaged, INumberBase<T>
     {

@@ -1,3 +1,4 @@
+using System.Runtime.CompilerServices;
 using System.Numerics;
 using StackBuild.Geometry;
 using StackBuild.Imaging;
@@ -110,6 +111,8 @@ public sealed class NiftiImage
     }
 
     /// <summary>Smallest and largest finite value over all voxels (scaled; luminance for rgb24), or null if none is finite.</summary>
+    // Hot loop, called once per volume: compile it optimised at once rather than start in tier-0 code.
+    [MethodImpl(MethodImplOptions.AggressiveOptimization)]
     public (double Min, double Max)? DataRange()
     {
         double min = double.PositiveInfinity, max = double.NegativeInfinity;
@@ -123,6 +126,8 @@ public sealed class NiftiImage
         return min <= max ? (min, max) : null;
     }
 
+    // Hot loop, called once per volume: compile it optimised at once rather than start in tier-0 code.
+    [MethodImpl(MethodImplOptions.AggressiveOptimization)]
     private static void Convert<T>(T[] source, long start, float[] target, double slope, double inter)
         where T : unmanaged, INumberBase<T>
     {

@@ -1,3 +1,4 @@
+using System.Runtime.CompilerServices;
 namespace StackBuild.Nifti;
 
 /// <summary>
@@ -40,6 +41,8 @@ public sealed record NiftiWriteOptions
 internal static class NiftiScaling
 {
     /// <summary>Finite minimum and maximum, or (0, 0) when there is no finite value.</summary>
+    // Hot loop, called once per volume: compile it optimised at once rather than start in tier-0 code.
+    [MethodImpl(MethodImplOptions.AggressiveOptimization)]
     public static (double Min, double Max) FiniteRange(ReadOnlySpan<float> values)
     {
         double min = double.PositiveInfinity, max = double.NegativeInfinity;
@@ -53,6 +56,8 @@ internal static class NiftiScaling
     }
 
     /// <summary>(scl_slope, scl_inter) as they will be stored (float32), for values going into integer type <paramref name="type"/>.</summary>
+    // Hot loop, called once per volume: compile it optimised at once rather than start in tier-0 code.
+    [MethodImpl(MethodImplOptions.AggressiveOptimization)]
     public static (float Slope, float Inter) Choose(ReadOnlySpan<float> values, NiftiDataType type)
     {
         var (tmin, tmax) = NiftiDataTypes.IntegerRange(type);
