@@ -47,6 +47,13 @@ public class ViewerBrowserTests(ITestOutputHelper output)
             var pageErrors = new List<string>();
             page.PageError += (_, e) => pageErrors.Add(e);
             page.Console += (_, m) => { if (m.Type == "error") pageErrors.Add(m.Text); };
+            // Coalescing: never more than one plane request open at a time, however fast the controls move.
+            int open = 0, mostOpen = 0, planeRequests = 0;
+            var gate = new object();
+            bool IsPlane(IRequest r) => r.Url.Contains("/api/plane.png", StringComparison.Ordinal);
+            page.Request += (_, r) => { if (IsPlane(r)) lock (gate) { planeRequests++; mostOpen = Math.Max(mostOpen, ++open); } };
+            page.RequestFinished += (_, r) => { if (IsPlane(r)) lock (gate) open--; };
+            page.RequestFailed += (_, r) => { if (IsPlane(r)) lock (gate) open--; };
             await page.GotoAsync(server.Url.ToString());
             await WaitUntilShownAsync(page);
             var before = await ShownPixelsAsync(page);
@@ -59,6 +66,11 @@ public class ViewerBrowserTests(ITestOutputHelper output)
             var query = await page.Locator("#plane").GetAttributeAsync("data-shown") ?? "";
             var parameters = query.Split('&').Select(p => p.Split('=')).ToDictionary(p => p[0], p => Uri.UnescapeDataString(p[1]));
             Assert.Equal("15", parameters["tiltH"]);
+            lock (gate)
+            {
+                Assert.Equal(1, mostOpen);
+                Assert.InRange(planeRequests, 2, 33); // the first plane, then at most one per control change
+            }
             Assert.Equal("-12.5", parameters["tiltV"]);
             var after = await ShownPixelsAsync(page);
             Assert.True(before.Width != after.Width || before.Height != after.Height || !before.Gray.SequenceEqual(after.Gray),

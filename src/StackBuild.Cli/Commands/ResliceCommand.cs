@@ -39,8 +39,8 @@ public static class ResliceCommand
         var command = new Command("reslice",
             "Cut one plane out of a volume, at any angle, and write it as a grey PNG.\n\n" +
             "Examples:\n" +
-            "  stackbuild reslice brain.nii.gz -o section.png\n" +
-            "  stackbuild reslice brain.nii.gz --plane jk --tilt 15,-10 --offset 2.5 -o oblique.png --json")
+            "  stackbuild reslice volume.nii.gz -o section.png\n" +
+            "  stackbuild reslice volume.nii.gz --plane jk --tilt 15,-10 --offset 2.5 -o oblique.png --json")
         {
             volumeArg, output, plane, tilt, offset, size, pixel, nearest, bits, window, fill, json, bench,
         };

@@ -19,7 +19,7 @@ public static class ViewCommand
         var command = new Command("view",
             "Show a volume in your web browser and reslice it at any angle: tilt, depth, window.\n" +
             "Stop with Ctrl+C.\n\n" +
-            "Example:\n  stackbuild view brain.nii.gz --port 8080")
+            "Example:\n  stackbuild view volume.nii.gz --port 8080")
         {
             volumeArg, port, listen,
         };
