@@ -271,6 +271,20 @@ public class ResliceTests
         Assert.Equal(c[0].Voxel.Y, c[2].Voxel.Y, 9);
     }
 
+    [Fact]
+    public void RobustWindowIsExactForALargeUniformBackground()
+    {
+        // 3 million zeros and 1 million values 1..100: the 0.5th percentile is exactly 0, and the 99.5th is the
+        // value at rank 0.995·(n − 1) in numpy's linear definition, counted out below (sorted values in closed form).
+        var values = new float[4_000_000];
+        for (int p = 3_000_000; p < values.Length; p++) values[p] = 1 + (p - 3_000_000) % 100;
+        var window = IntensityWindow.FromPercentiles(values, 0.5, 99.5);
+        Assert.Equal(0, window.Low);
+        // Rank 0.995 × 3 999 999 = 3 979 999.005 falls among the 1e6 non-zero values at position 979 999, i.e. the
+        // values 1..100 each appear 10 000 times: positions 970 000..979 999 hold 98, 980 000.. hold 99.
+        Assert.Equal(98 + 0.005, window.High, 9);
+    }
+
     private static void AssertClose(Vector3D expected, Vector3D actual, double tolerance = 1e-9)
     {
         Assert.True((expected - actual).Length <= tolerance, $"expected {expected}, got {actual}");

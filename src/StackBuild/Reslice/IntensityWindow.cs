@@ -45,8 +45,8 @@ public readonly record struct IntensityWindow(double Low, double High)
     /// Percentiles of the finite values with numpy's default ("linear") definition: the value at rank
     /// p/100·(n − 1) among the sorted values, interpolated between the two neighbouring ranks. Found without
     /// sorting everything: a 65 536-bin histogram between minimum and maximum tells which bins hold those ranks,
-    /// and only those bins' values are sorted (exact unless one bin holds over a million different values, when
-    /// the result is interpolated within the bin, accurate to 1/65 536 of the range).
+    /// and only those bins' values are sorted (exact, unless one bin holds over a million values that are not all
+    /// the same, when the result is interpolated within the bin, accurate to 1/65 536 of the range).
     /// </summary>
     public static IntensityWindow FromPercentiles(ReadOnlySpan<float> values, double lowPercent, double highPercent)
     {
@@ -69,16 +69,34 @@ public readonly record struct IntensityWindow(double Low, double High)
         return new IntensityWindow(low, high);
     }
 
-    private sealed class Histogram(float min, float max)
+    private sealed class Histogram
     {
         public const int Bins = 1 << 16;
         private const int MaxSorted = 1 << 20;
+        private readonly float _min;
+        private readonly double _scale;
         private readonly long[] _counts = new long[Bins];
-        private readonly double _scale = Bins / ((double)max - min);
+        // Smallest and largest value seen in each bin: a bin of one repeated value (a uniform background) is exact
+        // without sorting.
+        private readonly float[] _low = new float[Bins], _high = new float[Bins];
 
-        private int BinOf(float v) => Math.Min((int)((v - (double)min) * _scale), Bins - 1);
+        public Histogram(float min, float max)
+        {
+            _min = min;
+            _scale = Bins / ((double)max - min);
+            Array.Fill(_low, float.PositiveInfinity);
+            Array.Fill(_high, float.NegativeInfinity);
+        }
 
-        public void Add(float v) => _counts[BinOf(v)]++;
+        private int BinOf(float v) => Math.Min((int)((v - (double)_min) * _scale), Bins - 1);
+
+        public void Add(float v)
+        {
+            int b = BinOf(v);
+            _counts[b]++;
+            if (v < _low[b]) _low[b] = v;
+            if (v > _high[b]) _high[b] = v;
+        }
 
         public double Percentile(ReadOnlySpan<float> values, long count, double percent)
         {
@@ -94,8 +112,9 @@ public readonly record struct IntensityWindow(double Low, double High)
             long before = 0;
             int bin = 0;
             while (before + _counts[bin] <= r) before += _counts[bin++];
+            if (_low[bin] == _high[bin]) return _low[bin];
             if (_counts[bin] > MaxSorted)
-                return min + (bin + (r - before + 0.5) / _counts[bin]) / _scale;
+                return _low[bin] + (_high[bin] - (double)_low[bin]) * (r - before + 0.5) / _counts[bin];
             var inBin = new List<float>((int)_counts[bin]);
             foreach (float v in values) if (float.IsFinite(v) && BinOf(v) == bin) inBin.Add(v);
             inBin.Sort();
