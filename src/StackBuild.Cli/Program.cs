@@ -39,5 +39,7 @@ public static class Program
         yield return DemoCommand.Create(console);
         yield return BuildCommand.Create(console);
         yield return EvaluateCommand.Create(console);
+        yield return ResliceCommand.Create(console);
+        yield return ViewCommand.Create(console);
     }
 }

@@ -1,0 +1,62 @@
+using System.CommandLine;
+using System.Net;
+using StackBuild.IO;
+using StackBuild.Viewer;
+
+namespace StackBuild.Cli.Commands;
+
+public static class ViewCommand
+{
+    public static Command Create(CliOutput console)
+    {
+        var volumeArg = new Argument<string>("VOL") { Description = "The volume to show (NIfTI-1, .nii or .nii.gz)." };
+        var port = new Option<string?>("--port") { Description = "Port to listen on (default 0: any free port; the address is printed)." };
+        var listen = new Option<string>("--listen")
+        {
+            Description = "Address to listen on (default 127.0.0.1, this computer only). Any other address lets other computers see the volume.",
+            DefaultValueFactory = _ => "127.0.0.1",
+        };
+        var command = new Command("view",
+            "Show a volume in your web browser and reslice it at any angle: tilt, depth, window.\n" +
+            "Stop with Ctrl+C.\n\n" +
+            "Example:\n  stackbuild view volume.nii.gz --port 8080")
+        {
+            volumeArg, port, listen,
+        };
+        command.SetAction((parse, cancellation) => Task.FromResult(console.Guard(() =>
+        {
+            var path = parse.GetValue(volumeArg)!;
+            var portText = parse.GetValue(port) ?? "0";
+            if (!int.TryParse(portText, System.Globalization.NumberStyles.None, System.Globalization.CultureInfo.InvariantCulture, out int portNumber) || portNumber > 65535)
+                throw new InputProblemException(null, $"--port must be a number from 0 to 65535, not '{portText}'", "give a free port, or 0 to pick one");
+            var listenText = parse.GetValue(listen) ?? "127.0.0.1";
+            var address = listenText == "localhost" ? IPAddress.Loopback : IPAddress.TryParse(listenText, out var a) ? a
+                : throw new InputProblemException(null, $"--listen '{listenText}' is not an IP address", "give an address such as 127.0.0.1 or 0.0.0.0");
+            var volume = VolumeInput.Load(path, console.Error);
+            if (!IPAddress.IsLoopback(address))
+                console.Error.WriteLine($"warning: listening on {address}: anyone who can reach this computer can see this volume");
+            ViewerServer server;
+            try
+            {
+                server = ViewerServer.StartAsync(volume, Path.GetFileName(path), address, portNumber, cancellation).GetAwaiter().GetResult();
+            }
+            catch (IOException e)
+            {
+                throw new InputProblemException(null, $"cannot listen on {address}:{portNumber} ({e.Message})", "choose another --port, or 0 for any free one");
+            }
+            try
+            {
+                console.Out.WriteLine($"viewing {path} at {server.Url}");
+                console.Out.WriteLine("press Ctrl+C to stop");
+                console.Out.Flush();
+                server.WaitForShutdownAsync(cancellation).GetAwaiter().GetResult();
+            }
+            finally
+            {
+                server.DisposeAsync().AsTask().GetAwaiter().GetResult();
+            }
+            return CliOutput.ExitOk;
+        })));
+        return command;
+    }
+}

@@ -1,0 +1,126 @@
+using System.Net;
+using System.Reflection;
+using Microsoft.AspNetCore.Builder;
+using Microsoft.AspNetCore.Hosting;
+using Microsoft.AspNetCore.Hosting.Server;
+using Microsoft.AspNetCore.Hosting.Server.Features;
+using Microsoft.AspNetCore.Http;
+using Microsoft.Extensions.DependencyInjection;
+using Microsoft.Extensions.Hosting;
+using Microsoft.Extensions.Logging;
+using StackBuild.Imaging;
+using StackBuild.Reslice;
+
+namespace StackBuild.Viewer;
+
+/// <summary>
+/// A small web server that shows one volume, resliced at any angle, in a browser. It serves only its own page
+/// assets compiled into this assembly and an API computed from the one volume it was given; nothing else, and
+/// never a file from disk.
+/// </summary>
+public sealed class ViewerServer : IAsyncDisposable
+{
+    private readonly WebApplication _app;
+
+    /// <summary>The address the page is served at (with the real port when 0 was asked for).</summary>
+    public Uri Url { get; }
+
+    private ViewerServer(WebApplication app, Uri url)
+    {
+        _app = app;
+        Url = url;
+    }
+
+    /// <summary>
+    /// Prepares the volume (a compact copy for fast reslicing, the default window), binds to
+    /// <paramref name="address"/>:<paramref name="port"/> (0 = any free port) and starts serving.
+    /// </summary>
+    /// <param name="name">Shown on the page (a file name, not a path).</param>
+    public static async Task<ViewerServer> StartAsync(Volume volume, string name, IPAddress address, int port, CancellationToken cancellation = default)
+    {
+        var state = new ViewerVolume(volume, name);
+        // The empty builder reads no configuration files or environment variables and adds no middleware.
+        var builder = WebApplication.CreateEmptyBuilder(new WebApplicationOptions { ApplicationName = "StackBuild.Viewer" });
+        builder.Logging.ClearProviders();
+        builder.WebHost.UseKestrelCore();
+        builder.WebHost.ConfigureKestrel(k =>
+        {
+            k.AddServerHeader = false;
+            k.Limits.MaxRequestLineSize = 8 * 1024;
+            k.Listen(address, port);
+        });
+        builder.Services.AddRoutingCore();
+        var app = builder.Build();
+        app.Use(async (context, next) =>
+        {
+            context.Response.Headers.XContentTypeOptions = "nosniff";
+            context.Response.Headers.CacheControl = "no-store";
+            context.Response.Headers.ContentSecurityPolicy =
+                "default-src 'none'; script-src 'self'; style-src 'self'; img-src 'self' blob:; connect-src 'self'; base-uri 'none'; form-action 'none'";
+            context.Response.Headers["Referrer-Policy"] = "no-referrer";
+            if (IPAddress.IsLoopback(address) && !IsLoopbackHost(context.Request.Host))
+            {
+                // A page elsewhere cannot reach this server through a made-up host name (DNS rebinding).
+                await Problem(context, StatusCodes.Status400BadRequest, "this viewer answers only to localhost addresses");
+                return;
+            }
+            await next(context);
+        });
+        app.UseRouting();
+        MapAssets(app);
+        ViewerApi.Map(app, state);
+        app.MapFallback(context => Problem(context, StatusCodes.Status404NotFound, "not found: this viewer serves only its page and /api/volume, /api/plane, /api/plane.png"));
+        await app.StartAsync(cancellation);
+        var addresses = app.Services.GetRequiredService<IServer>().Features.Get<IServerAddressesFeature>()?.Addresses;
+        var bound = addresses?.FirstOrDefault() ?? throw new InvalidOperationException("The viewer did not report the address it listens on.");
+        return new ViewerServer(app, new Uri(bound.Replace("[::]", "localhost").Replace("0.0.0.0", "localhost") + "/"));
+    }
+
+    /// <summary>Completes when the server has stopped (after <paramref name="cancellation"/> fires or on dispose).</summary>
+    public Task WaitForShutdownAsync(CancellationToken cancellation) => _app.WaitForShutdownAsync(cancellation);
+
+    public async ValueTask DisposeAsync()
+    {
+        await _app.StopAsync();
+        await _app.DisposeAsync();
+    }
+
+    private static bool IsLoopbackHost(HostString host) =>
+        host.Host is "localhost" or "127.0.0.1" or "[::1]" || host.Host.StartsWith("127.", StringComparison.Ordinal);
+
+    internal static Task Problem(HttpContext context, int status, string message)
+    {
+        context.Response.StatusCode = status;
+        context.Response.ContentType = "text/plain; charset=utf-8";
+        return context.Response.WriteAsync(message + "\n");
+    }
+
+    // The page's own files, by fixed name: no path from the request ever reaches a file or resource lookup.
+    private static readonly (string Route, string Resource, string ContentType)[] Assets =
+    [
+        ("/", "index.html", "text/html; charset=utf-8"),
+        ("/viewer.css", "viewer.css", "text/css; charset=utf-8"),
+        ("/viewer.js", "viewer.js", "text/javascript; charset=utf-8"),
+        ("/favicon.svg", "favicon.svg", "image/svg+xml"),
+    ];
+
+    private static void MapAssets(WebApplication app)
+    {
+        var assembly = Assembly.GetExecutingAssembly();
+        foreach (var (route, resource, type) in Assets)
+        {
+            using var stream = assembly.GetManifestResourceStream("StackBuild.Viewer.Assets." + resource)
+                ?? throw new InvalidOperationException($"The viewer's page asset {resource} is missing from the build.");
+            using var memory = new MemoryStream();
+            stream.CopyTo(memory);
+            var bytes = memory.ToArray();
+            app.MapGet(route, (HttpContext context) =>
+            {
+                if (context.Request.QueryString.HasValue)
+                    return Problem(context, StatusCodes.Status400BadRequest, "page assets take no query parameters");
+                context.Response.ContentType = type;
+                return context.Response.Body.WriteAsync(bytes).AsTask();
+            });
+        }
+    }
+}
