@@ -24,13 +24,19 @@ set +e
 dotnet test StackBuild.sln -c Release --logger "console;verbosity=normal" 2>&1 | tee "$log"
 status=${PIPESTATUS[0]}
 set -e
-# dotnet test's own summary is "Failed: a, Passed: b, Skipped: c"; repeat it in the plain form.
-summary=$(grep -Eo "Failed: +[0-9]+, Passed: +[0-9]+, Skipped: +[0-9]+" "$log" | tail -n 1 || true)
-if [ -n "$summary" ]; then
-  failed=$(sed -E 's/Failed: +([0-9]+).*/\1/' <<<"$summary")
-  passed=$(sed -E 's/.*Passed: +([0-9]+).*/\1/' <<<"$summary")
-  skipped=$(sed -E 's/.*Skipped: +([0-9]+).*/\1/' <<<"$summary")
-  echo "$passed passed, $failed failed, $skipped skipped"
+# Repeat dotnet test's summary in the plain form "N passed, N failed, N skipped". Its console logger prints
+# either "Failed: a, Passed: b, Skipped: c" on one line or "Passed: b" / "Failed: a" / "Skipped: c" lines.
+count() { grep -Eo "^\s*$1: +[0-9]+" "$log" | tail -n 1 | grep -Eo "[0-9]+" || true; }
+line=$(grep -Eo "Failed: +[0-9]+, Passed: +[0-9]+, Skipped: +[0-9]+" "$log" | tail -n 1 || true)
+if [ -n "$line" ]; then
+  failed=$(sed -E 's/Failed: +([0-9]+).*/\1/' <<<"$line")
+  passed=$(sed -E 's/.*Passed: +([0-9]+).*/\1/' <<<"$line")
+  skipped=$(sed -E 's/.*Skipped: +([0-9]+).*/\1/' <<<"$line")
+else
+  passed=$(count Passed); failed=$(count Failed); skipped=$(count Skipped)
+fi
+if [ -n "${passed:-}" ] || [ -n "${failed:-}" ]; then
+  echo "${passed:-0} passed, ${failed:-0} failed, ${skipped:-0} skipped"
 fi
 rm -f "$log"
 exit "$status"
