@@ -17,8 +17,9 @@ internal sealed class PairEngine : IDisposable
     private readonly IFft2D _fft;
     private readonly ComplexImage _fixedSpectrum, _movingSpectrum, _cross, _surface;
     private readonly float[] _warped, _warpedMask;
+    private readonly float[]? _spectralWeight;
 
-    public PairEngine(SectionCanvas fixedCanvas, SectionCanvas movingCanvas)
+    public PairEngine(SectionCanvas fixedCanvas, SectionCanvas movingCanvas, double lowPass)
     {
         _fixed = fixedCanvas;
         _moving = movingCanvas;
@@ -31,6 +32,7 @@ internal sealed class PairEngine : IDisposable
         _surface = new ComplexImage(_n, _n);
         _warped = new float[_n * _n];
         _warpedMask = new float[_n * _n];
+        _spectralWeight = lowPass > 0 ? PhaseCorrelation.GaussianSpectralWeight(_n, _n, lowPass) : null;
     }
 
     /// <summary>
@@ -44,7 +46,7 @@ internal sealed class PairEngine : IDisposable
         ImageOps.Warp(_moving.Signal, _n, turn, _warped);
         SectionCanvas.LoadWindowed(_warped, _fixed.Window, _movingSpectrum);
         _fft.Forward(_movingSpectrum);
-        var shift = PhaseCorrelation.Correlate(_fixedSpectrum, _movingSpectrum, _fft, _cross, _surface, upsample);
+        var shift = PhaseCorrelation.Correlate(_fixedSpectrum, _movingSpectrum, _fft, _cross, _surface, upsample, _spectralWeight);
         var map = turn.Then(Transform2D.Translation(shift.Dx, shift.Dy));
         return new Evaluation(mirrored, Normalise(degrees), map, shift, Ncc(map));
     }
