@@ -104,6 +104,19 @@ public class RegisterPreprocessingTests(ITestOutputHelper output)
     }
 
     [Fact]
+    public void AnEmptySlideGivesZeroConfidenceNotAnError()
+    {
+        var options = new RegistrationOptions();
+        var blank = new GrayImage(96, 80);
+        Array.Fill(blank.Pixels, 0.8f);
+        var pb = SectionRegistration.Prepare(blank, options);
+        Assert.Equal(0, pb.TissueFraction);
+        var r = SectionRegistration.Register(SectionRegistration.Prepare(RegisterTestImages.Tissue(96, 80, 2), options), pb, options);
+        Assert.Equal(0, r.Confidence);
+        Assert.True(double.IsFinite(r.Best.MovingToFixed.M02) && double.IsFinite(r.Best.MovingToFixed.M12));
+    }
+
+    [Fact]
     public void MirrorSymmetricSectionsCannotTellTheMirrorAndSaySo()
     {
         // A section symmetric about its vertical midline: mirrored and unmirrored fit equally well.

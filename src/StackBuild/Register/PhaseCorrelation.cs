@@ -147,9 +147,9 @@ public static class PhaseCorrelation
             // Two passes of the same DFT upsampling: 1/4 px over ±0.75 px, then 1/U px over ±0.15 px around
             // that. Same answer as one pass at 1/U over ±0.75 px for a single smooth peak, at half the cost.
             double coarse = Math.Min(upsample, 4);
-            (dx, dy, peak) = Upsample(cross.Span, w, h, dx, dy, coarse, (int)Math.Ceiling(1.5 * coarse));
+            (dx, dy, peak) = Upsample(cross, w, h, dx, dy, coarse, (int)Math.Ceiling(1.5 * coarse));
             if (upsample > coarse)
-                (dx, dy, peak) = Upsample(cross.Span, w, h, dx, dy, upsample, 2 * (int)Math.Ceiling(0.15 * upsample) + 1);
+                (dx, dy, peak) = Upsample(cross, w, h, dx, dy, upsample, 2 * (int)Math.Ceiling(0.15 * upsample) + 1);
         }
         return new ShiftEstimate(dx, dy, peak, psr);
     }
@@ -211,7 +211,7 @@ public static class PhaseCorrelation
     /// spaced 1/U around (dx, dy), as two matrix products. Returns the best grid point and its height
     /// (normalised as the inverse FFT is, so a perfect match gives 1).
     /// </summary>
-    private static (double Dx, double Dy, double Peak) Upsample(ReadOnlySpan<Complex32> r, int w, int h, double dx0, double dy0, double upsample, int size)
+    private static unsafe (double Dx, double Dy, double Peak) Upsample(ComplexImage cross, int w, int h, double dx0, double dy0, double upsample, int size)
     {
         double centre = Math.Floor(size / 2.0);
         var xs = new double[size];
@@ -219,19 +219,23 @@ public static class PhaseCorrelation
         for (int j = 0; j < size; j++) { xs[j] = dx0 + (j - centre) / upsample; ys[j] = dy0 + (j - centre) / upsample; }
         var (kxRe, kxIm) = Kernel(w, xs);   // [kx * size + j]
         var (kyRe, kyIm) = Kernel(h, ys);   // [ky * size + i]
-        // Step 1: T[ky, j] = Σ_kx R[ky, kx]·e^(2πi·fx·x_j/w), rows in parallel.
+        // Step 1: T[ky, j] = Σ_kx c·R[ky, kx]·e^(2πi·fx·x_j/w) over kx = 0…w/2 only. Both images are real, so
+        // R is Hermitian (R(−k) = conj R(k)) and the real part we need counts each column kx and its mirror −kx
+        // alike: c = 2 for the columns that have a distinct mirror, 1 for kx = 0 and the Nyquist column.
         var tRe = new double[h * size];
         var tIm = new double[h * size];
-        var rArray = r.ToArray();
+        nint address = (nint)cross.Pointer;
+        int half = w / 2;
         Parallel.For(0, h, () => (new double[size], new double[size]), (ky, _, acc) =>
         {
             var (aRe, aIm) = acc;
             Array.Clear(aRe);
             Array.Clear(aIm);
-            int rowStart = ky * w;
-            for (int kx = 0; kx < w; kx++)
+            var row = (Complex32*)address + (long)ky * w;
+            for (int kx = 0; kx <= half; kx++)
             {
-                double vr = rArray[rowStart + kx].Real, vi = rArray[rowStart + kx].Imaginary;
+                double c = kx == 0 || 2 * kx == w ? 1 : 2;
+                double vr = c * row[kx].Real, vi = c * row[kx].Imaginary;
                 int k0 = kx * size;
                 for (int j = 0; j < size; j++)
                 {

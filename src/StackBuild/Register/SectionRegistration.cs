@@ -61,7 +61,7 @@ public sealed record PairResult(PairHypothesis Best, PairHypothesis? RunnerUp, d
 /// </remarks>
 public static class SectionRegistration
 {
-    private const double CoarseUpsample = 4;
+    private const double CoarseUpsample = 1; // whole pixels suffice to rank hypotheses; the best two are refined
     private const double DistinctDegrees = 10;
 
     /// <summary>Preprocessing done once per section; the result is reused for every pair it is part of.</summary>
