@@ -17,8 +17,9 @@ internal sealed class PairEngine : IDisposable
     private readonly IFft2D _fft;
     private readonly ComplexImage _fixedSpectrum, _movingSpectrum, _cross, _surface;
     private readonly float[] _warped, _warpedMask;
+    private readonly float[]? _spectralWeight;
 
-    public PairEngine(SectionCanvas fixedCanvas, SectionCanvas movingCanvas)
+    public PairEngine(SectionCanvas fixedCanvas, SectionCanvas movingCanvas, double lowPass)
     {
         _fixed = fixedCanvas;
         _moving = movingCanvas;
@@ -31,6 +32,7 @@ internal sealed class PairEngine : IDisposable
         _surface = new ComplexImage(_n, _n);
         _warped = new float[_n * _n];
         _warpedMask = new float[_n * _n];
+        _spectralWeight = lowPass > 0 ? PhaseCorrelation.GaussianSpectralWeight(_n, _n, lowPass) : null;
     }
 
     /// <summary>
@@ -44,42 +46,42 @@ internal sealed class PairEngine : IDisposable
         ImageOps.Warp(_moving.Signal, _n, turn, _warped);
         SectionCanvas.LoadWindowed(_warped, _fixed.Window, _movingSpectrum);
         _fft.Forward(_movingSpectrum);
-        var shift = PhaseCorrelation.Correlate(_fixedSpectrum, _movingSpectrum, _fft, _cross, _surface, upsample);
+        var shift = PhaseCorrelation.Correlate(_fixedSpectrum, _movingSpectrum, _fft, _cross, _surface, upsample, _spectralWeight);
         var map = turn.Then(Transform2D.Translation(shift.Dx, shift.Dy));
         return new Evaluation(mirrored, Normalise(degrees), map, shift, Ncc(map));
     }
 
     /// <summary>
-    /// Golden-section search of NCC over angle within ±<paramref name="bracket"/>° of the hypothesis, the
-    /// translation re-estimated at each angle; stops when the bracket is narrower than
-    /// <paramref name="tolerance"/>. Returns the best angle evaluated.
+    /// Local search of NCC over angle, the translation re-estimated at each angle: three angles ±<paramref name="step"/>°
+    /// about the hypothesis (moved along while the best is at an end), a parabola through them, then again with
+    /// a step five times smaller about its vertex until the step is below <paramref name="tolerance"/>°.
+    /// Successive parabolic interpolation (common practice; the smooth half of Brent's method, Brent 1973,
+    /// Algorithms for Minimization without Derivatives, ch. 5). Returns the best angle evaluated.
     /// </summary>
-    public Evaluation Refine(Evaluation start, double bracket, double tolerance, double upsample)
+    public Evaluation Refine(Evaluation start, double step, double tolerance, double upsample)
     {
-        double invPhi = (Math.Sqrt(5) - 1) / 2;
-        double a = start.Degrees - bracket, b = start.Degrees + bracket;
-        double x1 = b - invPhi * (b - a), x2 = a + invPhi * (b - a);
         var best = Evaluate(start.Mirrored, start.Degrees, upsample);
-        var e1 = Evaluate(start.Mirrored, x1, upsample);
-        var e2 = Evaluate(start.Mirrored, x2, upsample);
-        while (b - a > tolerance)
+        double centre = start.Degrees;
+        var c = best;
+        for (int round = 0; ; round++)
         {
-            if (e1.Ncc >= e2.Ncc)
+            var lower = Evaluate(start.Mirrored, centre - step, upsample);
+            var upper = Evaluate(start.Mirrored, centre + step, upsample);
+            for (int walk = 0; round == 0 && walk < 4 && Math.Max(lower.Ncc, upper.Ncc) > c.Ncc; walk++)
             {
-                b = x2; x2 = x1; e2 = e1;
-                x1 = b - invPhi * (b - a);
-                e1 = Evaluate(start.Mirrored, x1, upsample);
+                // The peak lies outside the three angles: move them one step towards it.
+                if (upper.Ncc > lower.Ncc) { (lower, c) = (c, upper); centre += step; upper = Evaluate(start.Mirrored, centre + step, upsample); }
+                else { (upper, c) = (c, lower); centre -= step; lower = Evaluate(start.Mirrored, centre - step, upsample); }
             }
-            else
-            {
-                a = x1; x1 = x2; e1 = e2;
-                x2 = a + invPhi * (b - a);
-                e2 = Evaluate(start.Mirrored, x2, upsample);
-            }
-            if (e1.Ncc > best.Ncc) best = e1;
-            if (e2.Ncc > best.Ncc) best = e2;
+            foreach (var e in (ReadOnlySpan<Evaluation>)[lower, upper, c]) if (e.Ncc > best.Ncc) best = e;
+            double curvature = lower.Ncc - 2 * c.Ncc + upper.Ncc;
+            double offset = curvature < 0 ? Math.Clamp(0.5 * (lower.Ncc - upper.Ncc) / curvature, -1, 1) * step : 0;
+            centre += offset;
+            c = Evaluate(start.Mirrored, centre, upsample);
+            if (c.Ncc > best.Ncc) best = c;
+            step /= 5;
+            if (step < tolerance || round == 3) return best;
         }
-        return best;
     }
 
     /// <summary>NCC of fixed and moving-laid-on-fixed over the union of their tissue masks.</summary>

