@@ -18,7 +18,15 @@ public static class Program
         foreach (var command in Commands(console)) root.Subcommands.Add(command);
         foreach (var version in root.Options.OfType<VersionOption>()) version.Action = new VersionAction(stdout);
         var config = new InvocationConfiguration { Output = stdout, Error = stderr };
-        return root.Parse(args).Invoke(config);
+        var parsed = root.Parse(args.Length == 0 ? ["--help"] : args);
+        if (parsed.Errors.Count > 0)
+        {
+            // One line per problem and a pointer to the help, instead of the whole help text.
+            var commandName = parsed.CommandResult.Command == root ? "stackbuild" : $"stackbuild {parsed.CommandResult.Command.Name}";
+            foreach (var error in parsed.Errors) stderr.WriteLine($"error: {error.Message} — see '{commandName} --help'");
+            return 2;
+        }
+        return parsed.Invoke(config);
     }
 
     /// <summary>--version: the version and the FFT in use (FFTW when Debian's libfftw3-single3 is installed).</summary>

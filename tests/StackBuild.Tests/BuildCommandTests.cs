@@ -142,4 +142,25 @@ public class VersionTests
         Assert.Contains("FFT: ", o.ToString());
         Assert.Contains("not for clinical use", o.ToString());
     }
+
+    [Fact]
+    public void UsageErrorsAreOneLineEach()
+    {
+        var e = new StringWriter();
+        int code = Cli.Program.Run(["build", "somewhere"], new StringWriter(), e);
+        Assert.Equal(2, code);
+        var lines = e.ToString().Split('\n', StringSplitOptions.RemoveEmptyEntries);
+        Assert.Single(lines);
+        Assert.Contains("--output", lines[0]);
+        Assert.Contains("stackbuild build --help", lines[0]);
+    }
+
+    [Fact]
+    public void NoArgumentsShowsTheHelp()
+    {
+        var o = new StringWriter();
+        Assert.Equal(0, Cli.Program.Run([], o, new StringWriter()));
+        Assert.Contains("build", o.ToString());
+        Assert.Contains("not for clinical use", o.ToString());
+    }
 }
