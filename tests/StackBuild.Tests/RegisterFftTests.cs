@@ -75,13 +75,22 @@ public class RegisterFftTests
         for (int i = 0; i < w * h; i++) Assert.Equal(i == 5 * w + 3 ? 1.0 : 0.0, d.Span[i].Real, 1e-5);
     }
 
+    [Theory]
+    [InlineData(null, true, FftProvider.Fftw)]
+    [InlineData("", true, FftProvider.Fftw)]
+    [InlineData("fftw", true, FftProvider.Fftw)]
+    [InlineData("managed", true, FftProvider.Managed)]
+    [InlineData("Managed ", true, FftProvider.Managed)]
+    [InlineData(null, false, FftProvider.Managed)]
+    public void TheEnvironmentVariableForcesTheManagedFft(string? value, bool fftwAvailable, FftProvider expected) =>
+        Assert.Equal(expected, Fft2D.Choose(value, fftwAvailable));
+
     [Fact]
-    public void ManagedIsForcedByTheEnvironmentVariableAndFftwIsTheDefaultOtherwise()
+    public void TheProviderNameSaysWhichFftIsInUse()
     {
-        // Runs in-process, so only read the variable as the factory does; both answers are checked.
-        bool forced = string.Equals(Environment.GetEnvironmentVariable(Fft2D.EnvironmentVariable), "managed", StringComparison.OrdinalIgnoreCase);
-        Assert.Equal(forced ? FftProvider.Managed : FftProvider.Fftw, Fft2D.DefaultProvider);
-        Assert.Contains(forced ? "managed" : "FFTW", Fft2D.ProviderName);
+        var expected = Fft2D.Choose(Environment.GetEnvironmentVariable(Fft2D.EnvironmentVariable), fftwAvailable: true);
+        Assert.Contains(expected == FftProvider.Managed ? "managed" : "FFTW", Fft2D.ProviderName);
+        Assert.Equal(Fft2D.ProviderName, Fft2D.Create(8, 8).ProviderName);
     }
 
     [Theory]

@@ -32,8 +32,11 @@ public static class Fft2D
     public const string EnvironmentVariable = "STACKBUILD_FFT";
 
     /// <summary>The provider <see cref="Create(int, int, FftProvider)"/> uses with <see cref="FftProvider.Auto"/>.</summary>
-    public static FftProvider DefaultProvider =>
-        string.Equals(Environment.GetEnvironmentVariable(EnvironmentVariable), "managed", StringComparison.OrdinalIgnoreCase) || !Fftw.IsAvailable
+    public static FftProvider DefaultProvider => Choose(Environment.GetEnvironmentVariable(EnvironmentVariable), Fftw.IsAvailable);
+
+    /// <summary>The rule behind <see cref="DefaultProvider"/>: "managed" (any case) forces the fallback, else FFTW when it loads.</summary>
+    internal static FftProvider Choose(string? environmentValue, bool fftwAvailable) =>
+        string.Equals(environmentValue?.Trim(), "managed", StringComparison.OrdinalIgnoreCase) || !fftwAvailable
             ? FftProvider.Managed
             : FftProvider.Fftw;
 
@@ -53,6 +56,13 @@ public static class Fft2D
             throw new InvalidOperationException($"{Fftw.LibraryName} could not be loaded; install the Debian package libfftw3-single3 (or set {EnvironmentVariable}=managed).");
         return Fftw.Create(width, height);
     }
+
+    /// <summary>
+    /// The transform size to pad to for the provider in use: <see cref="NextFastSize"/> for FFTW; the next power
+    /// of two for the managed FFT, whose other lengths go through Bluestein's algorithm at several times the cost.
+    /// </summary>
+    public static int PaddedSize(int minimum) =>
+        DefaultProvider == FftProvider.Fftw ? NextFastSize(minimum) : (int)System.Numerics.BitOperations.RoundUpToPowerOf2((uint)Math.Max(1, minimum));
 
     /// <summary>The smallest n ≥ <paramref name="minimum"/> of the form 2^a·3^b·5^c (sizes FFTs handle fastest).</summary>
     public static int NextFastSize(int minimum)

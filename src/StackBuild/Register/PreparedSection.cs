@@ -40,7 +40,7 @@ public sealed class PreparedSection
         UsesForegroundMask = useForegroundMask;
         TissueMask = Preprocessing.TissueMask(work.Pixels, work.Width, work.Height);
         TissueFraction = TissueMask.Count(t => t) / (double)TissueMask.Length;
-        Canvas = new SectionCanvas(this, Fft2D.NextFastSize(Math.Max(work.Width, work.Height)));
+        Canvas = new SectionCanvas(this, Fft2D.PaddedSize(Math.Max(work.Width, work.Height)));
     }
 
     /// <summary>The same section at a smaller working scale (for pairing with a section prepared at that scale).</summary>
