@@ -94,6 +94,9 @@ public static class BuildCommand
         o.WriteLine($"Sidecar  {paths.Sidecar}");
         o.WriteLine($"Grid     {r.Dimensions[0]} × {r.Dimensions[1]} × {r.Dimensions[2]} voxels of {r.VoxelSizeMm[0] * 1000:0.###} × {r.VoxelSizeMm[1] * 1000:0.###} × {r.VoxelSizeMm[2] * 1000:0.###} µm, axes {r.AxisCodes}");
         o.WriteLine($"Sections {string.Join(", ", counts.OrderBy(c => c.Key).Select(c => $"{c.Value} {c.Key}"))}");
+        var doubtful = r.Sections.Where(s => s.Confidence < 0.5 && s.Status is "aligned").ToList();
+        if (doubtful.Count > 0)
+            o.WriteLine($"Check    {string.Join(", ", doubtful.Select(s => $"section {s.Number} (confidence {s.Confidence:0.00})"))}: placed, but the match with its neighbour was weak");
         foreach (var w in r.Warnings) o.WriteLine($"warning: {w}");
         if (!r.Aligned)
             o.WriteLine("Note: sections were placed centred and NOT aligned (--no-align); this volume shows the series as scanned.");
