@@ -10,15 +10,8 @@ namespace StackBuild.Tests;
 /// The aligned build on a demo specimen against its ground truth (the phantom's applied transforms, written
 /// by the demo maker before any registration ran).
 /// </summary>
-public sealed class AlignedBuildTests(ITestOutputHelper output) : IDisposable
+public sealed class AlignedBuildTests(ITestOutputHelper output)
 {
-    private readonly string _dir = Directory.CreateTempSubdirectory("sb-aligned-").FullName;
-
-    public void Dispose()
-    {
-        try { Directory.Delete(_dir, true); } catch (IOException) { }
-    }
-
     [Fact]
     public void AlignedDemoSeriesMatchesTheTruth()
     {
