@@ -48,6 +48,8 @@ public static class BuildReport
     /// <summary>Largest side of a plane image in the report, in pixels.</summary>
     public const int PlaneSide = 420;
     public const int ThumbnailSide = 200;
+    /// <summary>Shown size (CSS pixels) of the section plane's long side; the other planes share its scale.</summary>
+    public const int PlaneDisplay = 380;
 
     private static readonly CultureInfo Inv = CultureInfo.InvariantCulture;
 
@@ -130,14 +132,18 @@ public static class BuildReport
         var window = IntensityWindow.Robust(volume);
         string a = r.AxisCodes;
         o.Write("<section><h2>Planes through the centre of the volume</h2><div class=\"planes\">");
-        PlaneFigure(o, volume, window, PlaneOrientation.Section, 0, 0,
+        // All four at one display scale (the section plane's long side shown at PlaneDisplay pixels), so distances compare.
+        var section = ReportImages.Plane(volume, new PlaneSpec(PlaneOrientation.Section), PlaneSide);
+        double display = PlaneDisplay / (double)Math.Max(section.Width, section.Height);
+        PlaneFigure(o, section, window, display,
             $"Section plane at k = {volume.Nz / 2} (right → {ReportImages.Letter(a, 0)}, down → {ReportImages.Letter(a, 1)})", "plane-section");
-        PlaneFigure(o, volume, window, Orientation("ik"), 0, 0,
-            $"Across the sections, i–k at j = {volume.Ny / 2} (right → {ReportImages.Letter(a, 0)}, down → {ReportImages.Letter(a, 2)})", "plane-ik");
-        PlaneFigure(o, volume, window, Orientation("jk"), 0, 0,
-            $"Across the sections, j–k at i = {volume.Nx / 2} (right → {ReportImages.Letter(a, 1)}, down → {ReportImages.Letter(a, 2)})", "plane-jk");
-        PlaneFigure(o, volume, window, PlaneOrientation.Section, 30, 20,
-            "Oblique: the section plane tilted 30° about its horizontal and 20° about its vertical axis", "plane-oblique");
+        PlaneFigure(o, ReportImages.Plane(volume, new PlaneSpec(Orientation("ik")), PlaneSide), window, display,
+            $"Across the sections: i–k plane at j = {volume.Ny / 2} (right → {ReportImages.Letter(a, 0)}, down → {ReportImages.Letter(a, 2)})", "plane-ik");
+        PlaneFigure(o, ReportImages.Plane(volume, new PlaneSpec(Orientation("jk")), PlaneSide), window, display,
+            $"Across the sections: j–k plane at i = {volume.Nx / 2} (right → {ReportImages.Letter(a, 1)}, down → {ReportImages.Letter(a, 2)})", "plane-jk");
+        var (tiltH, tiltV) = ObliqueTilts(volume);
+        PlaneFigure(o, ReportImages.Plane(volume, new PlaneSpec(PlaneOrientation.Section, tiltH, tiltV), PlaneSide), window, display,
+            string.Create(Inv, $"Oblique: the section plane tilted {tiltH:0}° about its horizontal and {tiltV:0}° about its vertical axis, through the centre"), "plane-oblique");
         o.Write("</div><p class=\"note\">Across-section planes are shown at true scale (section spacing against pixel size); jagged edges there mean sections disagree.</p></section>");
 
         // Flagged sections.
@@ -159,10 +165,23 @@ public static class BuildReport
     private static PlaneOrientation Orientation(string name) =>
         PlaneOrientation.TryParse(name, out var orientation, out var problem) ? orientation : throw new InvalidOperationException(problem);
 
-    private static void PlaneFigure(TextWriter o, Volume volume, IntensityWindow window, PlaneOrientation orientation, double tiltH, double tiltV, string caption, string id)
+    private static void PlaneFigure(TextWriter o, GrayImage image, IntensityWindow window, double display, string caption, string id)
     {
-        var image = ReportImages.Plane(volume, new PlaneSpec(orientation, tiltH, tiltV), PlaneSide);
-        o.Write($"<figure id=\"{id}\"><img src=\"{DataUri(ReportImages.Gray(image, window))}\" alt=\"{E(caption)}\" width=\"{image.Width}\" height=\"{image.Height}\"><figcaption>{E(caption)}</figcaption></figure>");
+        int w = Math.Max(1, (int)Math.Round(image.Width * display)), h = Math.Max(1, (int)Math.Round(image.Height * display));
+        o.Write($"<figure id=\"{id}\"><img src=\"{DataUri(ReportImages.Gray(image, window))}\" alt=\"{E(caption)}\" width=\"{w}\" height=\"{h}\">" +
+            $"<figcaption style=\"max-width:{Math.Max(w, 240)}px\">{E(caption)}</figcaption></figure>");
+    }
+
+    /// <summary>
+    /// Tilts (degrees) that keep the oblique plane's central part inside the stack: a tilt whose depth change across
+    /// 80 % of the plane's height (width) equals the stack's depth, at most 30°.
+    /// </summary>
+    private static (double About, double Vertical) ObliqueTilts(Volume volume)
+    {
+        var (si, sj, sk) = volume.Affine.VoxelSizes;
+        double depth = volume.Nz * sk, width = volume.Nx * si, height = volume.Ny * sj;
+        double Tilt(double across) => Math.Round(Math.Min(30, Math.Atan2(depth, 0.8 * across) * 180 / Math.PI * 0.8));
+        return (Tilt(height), Tilt(width) / 2);
     }
 
     private static void FlaggedSection(TextWriter o, Volume volume, IntensityWindow window, BuildRecord r, SectionRecord s, IReadOnlyList<string> reasons,
@@ -182,7 +201,7 @@ public static class BuildReport
         {
             var other = ReportImages.SectionPlane(volume, neighbour.ZIndex, ThumbnailSide);
             Thumb(o, ReportImages.Gray(other, window), $"neighbour {neighbour.Number}");
-            Thumb(o, ReportImages.Overlay(own, other, window), "overlay");
+            if (s.Status != "failed") Thumb(o, ReportImages.Overlay(own, other, window), "overlay");
         }
         o.Write("</div>");
     }
@@ -263,8 +282,9 @@ public static class BuildReport
         .plots{display:grid;grid-template-columns:repeat(auto-fill,minmax(600px,1fr));gap:10px}
         .plots img{width:100%;height:auto;border:1px solid #edf2f7}
         .planes{display:flex;flex-wrap:wrap;gap:14px;align-items:flex-start}
-        figure{margin:0}figure img{display:block;background:#000;image-rendering:auto;max-width:100%;height:auto}
-        figcaption{font-size:12px;color:#4a5568;max-width:420px;margin-top:3px}
+        figure{margin:0}figure img{display:block;background:#000}
+        figcaption{font-size:12px;color:#4a5568;margin-top:3px}
+        .thumb figcaption{max-width:200px}
         .note{font-size:12px;color:#718096}
         .flag{display:flex;gap:12px;align-items:flex-start;border-top:1px solid #edf2f7;padding:10px 0}
         .flag-text{width:300px;font-size:13px}.flag-text ul{margin:0;padding-left:18px}.flag-text .file{color:#718096;font-family:"DejaVu Sans Mono",monospace;font-size:12px}

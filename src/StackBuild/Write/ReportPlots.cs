@@ -67,6 +67,7 @@ internal static class ReportPlots
     private static Plot NewPlot(string title, string yLabel)
     {
         var plot = new Plot();
+        plot.Font.Set("DejaVu Sans"); // fonts-dejavu-core; ScottPlot's default may pick a serif face
         plot.Title(title, size: 14);
         plot.YLabel(yLabel, size: 12);
         plot.XLabel("section number", size: 12);
