@@ -109,7 +109,7 @@ public static class BuildReport
         if (errors.Count > 0) Fact(o, "estimated error", $"median {F(Median(errors), "0.#")} µm, largest {F(errors.Max(), "0.#")} µm");
         o.Write("</table><table class=\"facts\" id=\"parameters\"><caption>Run parameters</caption>");
         Fact(o, "version", $"StackBuild {r.Version}");
-        foreach (var (key, value) in r.Parameters) Fact(o, key.Replace('_', ' '), value);
+        foreach (var (key, value) in r.Parameters) Fact(o, ParameterName(key), value);
         o.Write("</table></div>");
         if (r.Warnings.Count > 0)
         {
@@ -133,10 +133,13 @@ public static class BuildReport
         string a = r.AxisCodes;
         o.Write("<section><h2>Planes through the centre of the volume</h2><div class=\"planes\">");
         // All four at one display scale (the section plane's long side shown at PlaneDisplay pixels), so distances compare.
-        var section = ReportImages.Plane(volume, new PlaneSpec(PlaneOrientation.Section), PlaneSide);
+        // The section plane: the placed section nearest the middle (the middle plane itself may be a gap).
+        var middle = placed.OrderBy(s => Math.Abs(s.ZIndex - volume.Nz / 2)).ThenBy(s => s.ZIndex).FirstOrDefault();
+        int k = middle?.ZIndex ?? volume.Nz / 2;
+        var section = ReportImages.Plane(volume, new PlaneSpec(PlaneOrientation.Section, OffsetMm: (k - volume.Nz / 2) * volume.Affine.VoxelSizes.K), PlaneSide);
         double display = PlaneDisplay / (double)Math.Max(section.Width, section.Height);
         PlaneFigure(o, section, window, display,
-            $"Section plane at k = {volume.Nz / 2} (right → {ReportImages.Letter(a, 0)}, down → {ReportImages.Letter(a, 1)})", "plane-section");
+            $"Section plane k = {k}{(middle is null ? "" : $", section {middle.Number}")} (right → {ReportImages.Letter(a, 0)}, down → {ReportImages.Letter(a, 1)})", "plane-section");
         PlaneFigure(o, ReportImages.Plane(volume, new PlaneSpec(Orientation("ik")), PlaneSide), window, display,
             $"Across the sections: i–k plane at j = {volume.Ny / 2} (right → {ReportImages.Letter(a, 0)}, down → {ReportImages.Letter(a, 2)})", "plane-ik");
         PlaneFigure(o, ReportImages.Plane(volume, new PlaneSpec(Orientation("jk")), PlaneSide), window, display,
@@ -228,6 +231,15 @@ public static class BuildReport
         o.Write("</tbody></table><p class=\"note\">Translation: where the image's top-left pixel centre lands in the output plane. " +
             "Estimated error: one standard error relative to the reference section, from peak sharpness, route disagreement " +
             "and confidence, accumulated along the chain (see docs/uncertainty.md).</p></section>");
+    }
+
+    /// <summary>A sidecar key as a label: words apart, a trailing unit in brackets (output_pixel_size_um → output pixel size (µm)).</summary>
+    private static string ParameterName(string key)
+    {
+        var words = key.Split('_').ToList();
+        string unit = words.Count > 1 ? words[^1] switch { "um" => " (µm)", "px" => " (pixels)", "deg" => " (°)", _ => "" } : "";
+        if (unit.Length > 0) words.RemoveAt(words.Count - 1);
+        return string.Join(' ', words) + unit;
     }
 
     private static string Route(SectionRecord s) => s.Route switch

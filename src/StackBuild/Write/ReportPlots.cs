@@ -99,7 +99,7 @@ internal static class ReportPlots
     {
         if (record.Sections.Count > 0)
             plot.Axes.SetLimitsX(record.Sections.Min(s => s.Number) - 0.5, record.Sections.Max(s => s.Number) + 0.5);
-        plot.ShowLegend(Alignment.LowerLeft);
+        plot.ShowLegend(Edge.Right); // beside the data, never over it
         return plot.GetImageBytes(Width, Height, ImageFormat.Png);
     }
 }
