@@ -19,6 +19,7 @@ public sealed class UncertaintyTests(ITestOutputHelper output)
 
     private static BuildRecord Record(params SectionRecord[] sections) => new()
     {
+        Aligned = true,
         Dimensions = [100, 80, sections.Length], VoxelSizeMm = [0.01, 0.01, 0.05],
         Parameters = new() { ["registration_pixel_size_um"] = "10" }, Sections = [.. sections],
     };
@@ -44,6 +45,8 @@ public sealed class UncertaintyTests(ITestOutputHelper output)
         var annotated = Uncertainty.Annotate(record);
         Assert.Null(annotated.Sections[3].EstimatedErrorUm);
         Assert.Equal(Math.Round(e[5].AccumulatedUm, 2), annotated.Sections[4].EstimatedErrorUm);
+        // Sections placed without aligning have no estimate at all (rather than a misleading 0).
+        Assert.Empty(Uncertainty.Estimate(record with { Aligned = false }));
     }
 
     [Theory]

@@ -33,11 +33,12 @@ public static class Uncertainty
 
     /// <summary>
     /// Every placed section's estimate, by section number. Sections that were not placed (gaps, excluded,
-    /// failed) have none. A section whose chain cannot be followed back to the reference (a record edited by hand)
+    /// failed) have none, nor has any section of an unaligned build (its placement is not a registration). A section whose chain cannot be followed back to the reference (a record edited by hand)
     /// gets its link error only.
     /// </summary>
     public static IReadOnlyDictionary<int, SectionUncertainty> Estimate(BuildRecord record)
     {
+        if (!record.Aligned) return new Dictionary<int, SectionUncertainty>();
         double pixelUm = RegistrationPixelUm(record);
         double extentUm = record.Dimensions.Length >= 2 && record.VoxelSizeMm.Length >= 2
             ? Math.Max(record.Dimensions[0] * record.VoxelSizeMm[0], record.Dimensions[1] * record.VoxelSizeMm[1]) * 1000
