@@ -16,7 +16,7 @@ public static class BuildCommand
     public static Command Create(CliOutput console)
     {
         var series = new Argument<string>("series") { Description = "Folder of section images (with an optional manifest.csv), or a manifest file" };
-        var output = new Option<string>("--output", "-o") { Description = "Output volume, .nii.gz or .nii; the sidecar .json is written beside it", Required = true };
+        var output = new Option<string>("--output", "-o") { Description = "Output volume, .nii.gz or .nii; the sidecar .json and the report .report.html are written beside it", Required = true };
         var manifest = new Option<string?>("--manifest") { Description = "Manifest CSV to use instead of SERIES/manifest.csv" };
         var pixelSize = new Option<double?>("--pixel-size") { Description = "Input pixel size in µm (overrides the manifest)" };
         var spacing = new Option<double?>("--spacing") { Description = "Distance between consecutive section numbers in µm (overrides the manifest)" };
@@ -80,6 +80,7 @@ public static class BuildCommand
             {
                 volume = paths.Volume,
                 sidecar = paths.Sidecar,
+                report = paths.Report,
                 aligned = r.Aligned,
                 dimensions = r.Dimensions,
                 voxel_size_mm = r.VoxelSizeMm,
@@ -92,6 +93,7 @@ public static class BuildCommand
         var o = console.Out;
         o.WriteLine($"Volume   {paths.Volume}");
         o.WriteLine($"Sidecar  {paths.Sidecar}");
+        o.WriteLine($"Report   {paths.Report}");
         o.WriteLine($"Grid     {r.Dimensions[0]} × {r.Dimensions[1]} × {r.Dimensions[2]} voxels of {r.VoxelSizeMm[0] * 1000:0.###} × {r.VoxelSizeMm[1] * 1000:0.###} × {r.VoxelSizeMm[2] * 1000:0.###} µm, axes {r.AxisCodes}");
         o.WriteLine($"Sections {string.Join(", ", counts.OrderBy(c => c.Key).Select(c => $"{c.Value} {c.Key}"))}");
         var doubtful = r.Sections.Where(s => s.Confidence < 0.5 && s.Status is "aligned").ToList();

@@ -35,6 +35,8 @@ public sealed record SectionRecord
     [JsonPropertyName("damaged")] public bool Damaged { get; init; }
     [JsonPropertyName("matrix")] public double[][]? Matrix { get; init; }
     [JsonPropertyName("note")] public string? Note { get; init; }
+    /// <summary>Estimated placement error (µm, one standard error) relative to the reference section; see <see cref="Evaluate.Uncertainty"/>.</summary>
+    [JsonPropertyName("estimated_error_um")] public double? EstimatedErrorUm { get; init; }
 }
 
 /// <summary>The sidecar of a build: geometry, parameters and every section's record.</summary>

@@ -1,13 +1,17 @@
 using System.Text.Json;
+using StackBuild.Evaluate;
 using StackBuild.IO;
 using StackBuild.Nifti;
 using StackBuild.Pipeline;
 
 namespace StackBuild.Write;
 
-/// <summary>The output paths of a build: the volume and its sidecar (same base name, as BIDS does).</summary>
+/// <summary>The output paths of a build: the volume and its sidecar (same base name, as BIDS does), and the report.</summary>
 public sealed record BuildOutputPaths(string Volume, string Sidecar)
 {
+    /// <summary>The quality report beside the sidecar: OUT.report.html.</summary>
+    public string Report => Sidecar[..^".json".Length] + ".report.html";
+
     /// <summary>Checks the volume path and derives the sidecar path; refuses names that are not NIfTI.</summary>
     public static BuildOutputPaths For(string volumePath)
     {
@@ -21,16 +25,22 @@ public sealed record BuildOutputPaths(string Volume, string Sidecar)
     }
 }
 
-/// <summary>Writes a build's volume and sidecar, each atomically.</summary>
+/// <summary>Writes a build's volume, sidecar and report, each atomically.</summary>
 public static class BuildWriter
 {
     public static readonly JsonSerializerOptions JsonOptions = new() { WriteIndented = true };
 
+    /// <summary>
+    /// Writes the three files. The sidecar and the report carry each placed section's estimated placement error
+    /// (<see cref="Uncertainty.Annotate"/>), computed here from the record.
+    /// </summary>
     public static void Write(BuildResult result, BuildOutputPaths paths)
     {
+        result = result with { Record = Uncertainty.Annotate(result.Record) };
         var type = result.InputBitDepth > 8 ? NiftiDataType.UInt16 : NiftiDataType.UInt8;
         var description = result.Record.Aligned ? "StackBuild aligned section series" : "StackBuild section series (unaligned)";
         NiftiFile.Write(paths.Volume, result.Volume, new NiftiWriteOptions { DataType = type, Description = description });
         AtomicFile.WriteAllText(paths.Sidecar, JsonSerializer.Serialize(result.Record, JsonOptions) + "\n");
+        BuildReport.Write(paths.Report, result, Path.GetFileName(paths.Volume));
     }
 }

@@ -1,0 +1,132 @@
+using System.Globalization;
+using StackBuild.Pipeline;
+
+namespace StackBuild.Evaluate;
+
+/// <summary>One section's estimated placement error.</summary>
+/// <param name="LinkUm">Standard error (µm) of the one registration that tied the section to the section it was registered to.</param>
+/// <param name="AccumulatedUm">Standard error (µm) relative to the reference section: the link errors summed along the chain as a random walk.</param>
+public sealed record SectionUncertainty(int Number, double LinkUm, double AccumulatedUm);
+
+/// <summary>
+/// An estimate, from the build record alone (no ground truth), of how far each section may lie from where it
+/// should. It is a heuristic error budget, not a calibrated confidence interval: see docs/uncertainty.md for
+/// how well it tracks the true error on the demo phantom.
+/// </summary>
+/// <remarks>
+/// Each link (a section registered to a neighbour) contributes three independent terms, added in quadrature:
+/// <list type="bullet">
+/// <item>peak localisation: one registration pixel divided by √(peak-to-sidelobe ratio), so a sharp
+/// phase-correlation peak gives a fraction of a pixel and a blunt one about a pixel;</item>
+/// <item>route disagreement: when the placements through the first and the second neighbour differ by d, each
+/// is taken to be off by d/√2 (two estimates of equal variance);</item>
+/// <item>gross-error risk: (1 − confidence) × <see cref="GrossErrorFraction"/> of the volume's in-plane extent,
+/// for a close call between hypotheses that may have picked the wrong one.</item>
+/// </list>
+/// Errors of successive links are taken as independent, so variances add along the chain from the reference
+/// (a random walk; common practice for chained pairwise registration).
+/// </remarks>
+public static class Uncertainty
+{
+    /// <summary>Share of the in-plane extent charged per unit of missing confidence.</summary>
+    public const double GrossErrorFraction = 0.05;
+
+    /// <summary>
+    /// Every placed section's estimate, by section number. Sections that were not placed (gaps, excluded,
+    /// failed) have none, nor has any section of an unaligned build (its placement is not a registration). A section whose chain cannot be followed back to the reference (a record edited by hand)
+    /// gets its link error only.
+    /// </summary>
+    public static IReadOnlyDictionary<int, SectionUncertainty> Estimate(BuildRecord record)
+    {
+        if (!record.Aligned) return new Dictionary<int, SectionUncertainty>();
+        double pixelUm = RegistrationPixelUm(record);
+        double extentUm = record.Dimensions.Length >= 2 && record.VoxelSizeMm.Length >= 2
+            ? Math.Max(record.Dimensions[0] * record.VoxelSizeMm[0], record.Dimensions[1] * record.VoxelSizeMm[1]) * 1000
+            : 0;
+        var placed = record.Sections.Where(s => s.Status is "aligned" or "placed").ToDictionary(s => s.Number);
+        var link = placed.Values.ToDictionary(s => s.Number, s => LinkError(s, pixelUm, extentUm));
+        var result = new Dictionary<int, SectionUncertainty>();
+        foreach (var s in placed.Values)
+        {
+            double variance = 0;
+            var visited = new HashSet<int>();
+            var at = s;
+            // Walk to the reference; a loop or a missing parent stops the walk (only possible in an edited record).
+            while (visited.Add(at.Number))
+            {
+                variance += link[at.Number] * link[at.Number];
+                if (at.RegisteredTo is not int parent || !placed.TryGetValue(parent, out var next)) break;
+                at = next;
+            }
+            result[s.Number] = new SectionUncertainty(s.Number, link[s.Number], Math.Sqrt(variance));
+        }
+        return result;
+    }
+
+    /// <summary>The record with <see cref="SectionRecord.EstimatedErrorUm"/> filled in for every placed section.</summary>
+    public static BuildRecord Annotate(BuildRecord record)
+    {
+        var estimates = Estimate(record);
+        return record with
+        {
+            Sections = record.Sections
+                .Select(s => s with { EstimatedErrorUm = estimates.TryGetValue(s.Number, out var e) ? Math.Round(e.AccumulatedUm, 2) : null })
+                .ToList(),
+        };
+    }
+
+    /// <summary>The standard error (µm) of one link; 0 for the reference and for unaligned placement.</summary>
+    public static double LinkError(SectionRecord section, double pixelUm, double extentUm)
+    {
+        if (section.Route is "reference" || section.Confidence is null) return 0;
+        double psr = Math.Max(1, section.PeakToSidelobe ?? 1);
+        double peak = pixelUm / Math.Sqrt(psr);
+        double route = (section.RouteDisagreementUm ?? 0) / Math.Sqrt(2);
+        double gross = (1 - Math.Clamp(section.Confidence.Value, 0, 1)) * GrossErrorFraction * extentUm;
+        return Math.Sqrt(peak * peak + route * route + gross * gross);
+    }
+
+    /// <summary>The pixel size (µm) at which sections were registered, from the run parameters, else the output voxel size.</summary>
+    public static double RegistrationPixelUm(BuildRecord record)
+    {
+        if (record.Parameters.TryGetValue("registration_pixel_size_um", out var text)
+            && double.TryParse(text, NumberStyles.Float, CultureInfo.InvariantCulture, out var um) && um > 0)
+            return um;
+        return record.VoxelSizeMm.Length > 0 ? record.VoxelSizeMm[0] * 1000 : record.InputPixelSizeUm;
+    }
+
+    /// <summary>
+    /// Spearman's rank correlation (Spearman 1904, Am J Psychol 15:72): Pearson's correlation of the ranks,
+    /// ties given their mean rank. NaN for fewer than two pairs or when either side is constant.
+    /// </summary>
+    public static double Spearman(IReadOnlyList<double> a, IReadOnlyList<double> b)
+    {
+        if (a.Count != b.Count) throw new ArgumentException("Spearman needs two lists of the same length.");
+        if (a.Count < 2) return double.NaN;
+        var ra = Ranks(a);
+        var rb = Ranks(b);
+        double ma = ra.Average(), mb = rb.Average(), sab = 0, saa = 0, sbb = 0;
+        for (int i = 0; i < ra.Length; i++)
+        {
+            sab += (ra[i] - ma) * (rb[i] - mb);
+            saa += (ra[i] - ma) * (ra[i] - ma);
+            sbb += (rb[i] - mb) * (rb[i] - mb);
+        }
+        return saa == 0 || sbb == 0 ? double.NaN : sab / Math.Sqrt(saa * sbb);
+    }
+
+    private static double[] Ranks(IReadOnlyList<double> values)
+    {
+        var order = Enumerable.Range(0, values.Count).OrderBy(i => values[i]).ToArray();
+        var ranks = new double[values.Count];
+        for (int start = 0; start < order.Length;)
+        {
+            int end = start;
+            while (end + 1 < order.Length && values[order[end + 1]] == values[order[start]]) end++;
+            double mean = (start + end) / 2.0 + 1;
+            for (int t = start; t <= end; t++) ranks[order[t]] = mean;
+            start = end + 1;
+        }
+        return ranks;
+    }
+}

@@ -1,0 +1,311 @@
+using System.Globalization;
+using System.Net;
+using System.Text;
+using StackBuild.Imaging;
+using StackBuild.IO;
+using StackBuild.Pipeline;
+using StackBuild.Reslice;
+
+namespace StackBuild.Write;
+
+/// <summary>Why a section is flagged for a look in the report.</summary>
+public static class SectionFlags
+{
+    /// <summary>Sections whose pair confidence is below this are flagged.</summary>
+    public const double LowConfidence = 0.5;
+
+    /// <summary>
+    /// Route disagreement (µm) above which a section is flagged: three times the build's median disagreement,
+    /// and at least 2.5 registration pixels, so ordinary sub-pixel scatter is not flagged.
+    /// </summary>
+    public static double DisagreementLimitUm(BuildRecord record)
+    {
+        var values = record.Sections.Where(s => s.RouteDisagreementUm is not null).Select(s => s.RouteDisagreementUm!.Value).OrderBy(v => v).ToArray();
+        double median = values.Length == 0 ? 0 : values[values.Length / 2];
+        return Math.Max(3 * median, 2.5 * Evaluate.Uncertainty.RegistrationPixelUm(record));
+    }
+
+    /// <summary>The reasons (plain sentences) to look at a section; empty when there is none.</summary>
+    public static IReadOnlyList<string> Reasons(SectionRecord s, double disagreementLimitUm)
+    {
+        var reasons = new List<string>();
+        if (s.Status == "failed") reasons.Add("no confident match with a neighbour: left out of the volume");
+        if (s.Confidence is double c && c < LowConfidence)
+            reasons.Add(string.Create(CultureInfo.InvariantCulture, $"low registration confidence ({c:0.00})"));
+        if (s.RouteDisagreementUm is double d && d > disagreementLimitUm)
+            reasons.Add(string.Create(CultureInfo.InvariantCulture, $"placements through the first and second neighbour differ by {d:0} µm"));
+        if (s.Damaged) reasons.Add("marked damaged in the manifest" + (string.IsNullOrEmpty(s.Note) ? "" : $" ({s.Note})"));
+        return reasons;
+    }
+}
+
+/// <summary>
+/// The build's quality report: one self-contained HTML page (styles inline, images as data: URIs, no scripts
+/// or fonts fetched) written beside the volume and the sidecar. It uses only the build itself, never ground truth.
+/// </summary>
+public static class BuildReport
+{
+    /// <summary>Largest side of a plane image in the report, in pixels.</summary>
+    public const int PlaneSide = 420;
+    public const int ThumbnailSide = 200;
+    /// <summary>Shown size (CSS pixels) of the section plane's long side; the other planes share its scale.</summary>
+    public const int PlaneDisplay = 380;
+
+    private static readonly CultureInfo Inv = CultureInfo.InvariantCulture;
+
+    /// <summary>
+    /// Writes the report atomically (the whole page is produced into a temporary file first; a failure leaves no
+    /// partial report). <paramref name="result"/>'s record should carry the uncertainty estimates
+    /// (<see cref="Evaluate.Uncertainty.Annotate"/>).
+    /// </summary>
+    public static void Write(string path, BuildResult result, string volumeName) =>
+        AtomicFile.Write(path, stream =>
+        {
+            using var writer = new StreamWriter(stream, new UTF8Encoding(false), 1 << 16, leaveOpen: true);
+            Render(writer, result, volumeName);
+        });
+
+    public static void Render(TextWriter o, BuildResult result, string volumeName)
+    {
+        var r = result.Record;
+        var volume = result.Volume;
+        double limit = SectionFlags.DisagreementLimitUm(r);
+        var flagged = r.Sections.Select(s => (Section: s, Reasons: SectionFlags.Reasons(s, limit))).Where(t => t.Reasons.Count > 0).ToList();
+        var placed = r.Sections.Where(s => s.Status is "aligned" or "placed").ToList();
+        double minConfidence = r.Parameters.TryGetValue("min_confidence", out var mc) && double.TryParse(mc, NumberStyles.Float, Inv, out var m) ? m : 0.2;
+
+        o.Write($"""
+            <!DOCTYPE html>
+            <html lang="en"><head><meta charset="utf-8">
+            <meta name="viewport" content="width=device-width, initial-scale=1">
+            <title>Build report: {E(volumeName)}</title>
+            <style>{Css}</style>
+            </head><body>
+            <header><h1>Build report <span class="file">{E(volumeName)}</span></h1>
+            <p class="sub">StackBuild {E(r.Version)} · built {E(r.Created)} · input {E(r.Input)}</p></header>
+            <p class="caution"><strong>For research use only.</strong> This volume was rebuilt automatically from
+            serial sections. Check the flagged sections and the planes below before drawing conclusions; the error
+            estimates are heuristic and not calibrated intervals.</p>
+            """);
+
+        // Summary: counts, grid, parameters.
+        int Count(string status) => r.Sections.Count(s => s.Status == status);
+        o.Write("<section><h2>Summary</h2><div class=\"cards\">");
+        Card(o, "found", r.Sections.Count(s => s.File is not null), "sections with an image");
+        Card(o, "aligned", Count("aligned") + Count("placed"), r.Aligned ? "placed in the volume" : "placed, not aligned");
+        Card(o, "mirrored", placed.Count(s => s.Mirrored == true), "turned face up");
+        Card(o, "gaps", Count("gap"), "lost sections (empty planes)");
+        Card(o, "excluded", Count("excluded"), "left out by the manifest");
+        Card(o, "failed", Count("failed"), "no confident match");
+        Card(o, "flagged", flagged.Count, "worth a look", flagged.Count > 0 ? "warn" : "");
+        o.Write("</div><div class=\"columns\"><table class=\"facts\" id=\"volume\"><caption>Volume</caption>");
+        Fact(o, "grid", $"{r.Dimensions[0]} × {r.Dimensions[1]} × {r.Dimensions[2]} voxels");
+        Fact(o, "voxel size", $"{Um(r.VoxelSizeMm[0])} × {Um(r.VoxelSizeMm[1])} × {Um(r.VoxelSizeMm[2])} µm", "voxel-size");
+        Fact(o, "axis codes", $"{r.AxisCodes} (image right, image down, increasing section number)", "axis-codes");
+        Fact(o, "input pixel size", $"{F(r.InputPixelSizeUm, "0.###")} µm");
+        Fact(o, "section spacing", $"{F(r.SpacingUm, "0.###")} µm");
+        Fact(o, "reference section", r.ReferenceSection.ToString(Inv));
+        var errors = placed.Where(s => s.EstimatedErrorUm is not null).Select(s => s.EstimatedErrorUm!.Value).ToList();
+        if (errors.Count > 0) Fact(o, "estimated error", $"median {F(Median(errors), "0.#")} µm, largest {F(errors.Max(), "0.#")} µm");
+        o.Write("</table><table class=\"facts\" id=\"parameters\"><caption>Run parameters</caption>");
+        Fact(o, "version", $"StackBuild {r.Version}");
+        foreach (var (key, value) in r.Parameters) Fact(o, ParameterName(key), value);
+        o.Write("</table></div>");
+        if (r.Warnings.Count > 0)
+        {
+            o.Write("<div class=\"warnings\"><h3>Warnings</h3><ul>");
+            foreach (var w in r.Warnings) o.Write($"<li>{E(w)}</li>");
+            o.Write("</ul></div>");
+        }
+        o.Write("</section>");
+
+        // Plots along the stack.
+        o.Write("<section><h2>Along the stack</h2><div class=\"plots\">");
+        Img(o, ReportPlots.Confidence(r, minConfidence, SectionFlags.LowConfidence), "Registration confidence per section", "plot-confidence");
+        Img(o, ReportPlots.EstimatedError(r), "Estimated placement error per section", "plot-error");
+        Img(o, ReportPlots.Similarity(r), "Similarity (NCC) to the neighbour per section", "plot-ncc");
+        Img(o, ReportPlots.Rotation(r), "Rotation per section", "plot-rotation");
+        Img(o, ReportPlots.Translation(r), "Translation per section", "plot-translation");
+        o.Write("</div></section>");
+
+        // Planes through the volume.
+        var window = IntensityWindow.Robust(volume);
+        string a = r.AxisCodes;
+        o.Write("<section><h2>Planes through the centre of the volume</h2><div class=\"planes\">");
+        // All four at one display scale (the section plane's long side shown at PlaneDisplay pixels), so distances compare.
+        // The section plane: the placed section nearest the middle (the middle plane itself may be a gap).
+        var middle = placed.OrderBy(s => Math.Abs(s.ZIndex - volume.Nz / 2)).ThenBy(s => s.ZIndex).FirstOrDefault();
+        int k = middle?.ZIndex ?? volume.Nz / 2;
+        var section = ReportImages.Plane(volume, new PlaneSpec(PlaneOrientation.Section, OffsetMm: (k - volume.Nz / 2) * volume.Affine.VoxelSizes.K), PlaneSide);
+        double display = PlaneDisplay / (double)Math.Max(section.Width, section.Height);
+        PlaneFigure(o, section, window, display,
+            $"Section plane k = {k}{(middle is null ? "" : $", section {middle.Number}")} (right → {ReportImages.Letter(a, 0)}, down → {ReportImages.Letter(a, 1)})", "plane-section");
+        PlaneFigure(o, ReportImages.Plane(volume, new PlaneSpec(Orientation("ik")), PlaneSide), window, display,
+            $"Across the sections: i–k plane at j = {volume.Ny / 2} (right → {ReportImages.Letter(a, 0)}, down → {ReportImages.Letter(a, 2)})", "plane-ik");
+        PlaneFigure(o, ReportImages.Plane(volume, new PlaneSpec(Orientation("jk")), PlaneSide), window, display,
+            $"Across the sections: j–k plane at i = {volume.Nx / 2} (right → {ReportImages.Letter(a, 1)}, down → {ReportImages.Letter(a, 2)})", "plane-jk");
+        var (tiltH, tiltV) = ObliqueTilts(volume);
+        PlaneFigure(o, ReportImages.Plane(volume, new PlaneSpec(PlaneOrientation.Section, tiltH, tiltV), PlaneSide), window, display,
+            string.Create(Inv, $"Oblique: the section plane tilted {tiltH:0}° about its horizontal and {tiltV:0}° about its vertical axis, through the centre"), "plane-oblique");
+        o.Write("</div><p class=\"note\">Across-section planes are shown at true scale (section spacing against pixel size); jagged edges there mean sections disagree.</p></section>");
+
+        // Flagged sections.
+        o.Write($"<section id=\"flagged\"><h2>Flagged sections ({flagged.Count})</h2>");
+        if (flagged.Count == 0) o.Write("<p>No section was flagged.</p>");
+        else
+        {
+            o.Write("<p class=\"note\">Each row: the section as placed in the volume, the neighbour it was compared with, and both overlaid " +
+                "(section in magenta, neighbour in green; grey where they agree).</p>");
+            var byNumber = placed.ToDictionary(s => s.Number);
+            foreach (var (s, reasons) in flagged) FlaggedSection(o, volume, window, r, s, reasons, byNumber);
+        }
+        o.Write("</section>");
+
+        SectionTable(o, r, flagged.Select(f => f.Section.Number).ToHashSet());
+        o.Write("<footer>Written by StackBuild beside the volume and its sidecar (.json); the sidecar holds every number shown here.</footer></body></html>\n");
+    }
+
+    private static PlaneOrientation Orientation(string name) =>
+        PlaneOrientation.TryParse(name, out var orientation, out var problem) ? orientation : throw new InvalidOperationException(problem);
+
+    private static void PlaneFigure(TextWriter o, GrayImage image, IntensityWindow window, double display, string caption, string id)
+    {
+        int w = Math.Max(1, (int)Math.Round(image.Width * display)), h = Math.Max(1, (int)Math.Round(image.Height * display));
+        o.Write($"<figure id=\"{id}\"><img src=\"{DataUri(ReportImages.Gray(image, window))}\" alt=\"{E(caption)}\" width=\"{w}\" height=\"{h}\">" +
+            $"<figcaption style=\"max-width:{Math.Max(w, 240)}px\">{E(caption)}</figcaption></figure>");
+    }
+
+    /// <summary>
+    /// Tilts (degrees) that keep the oblique plane's central part inside the stack: a tilt whose depth change across
+    /// 80 % of the plane's height (width) equals the stack's depth, at most 30°.
+    /// </summary>
+    private static (double About, double Vertical) ObliqueTilts(Volume volume)
+    {
+        var (si, sj, sk) = volume.Affine.VoxelSizes;
+        double depth = volume.Nz * sk, width = volume.Nx * si, height = volume.Ny * sj;
+        double Tilt(double across) => Math.Round(Math.Min(30, Math.Atan2(depth, 0.8 * across) * 180 / Math.PI * 0.8));
+        return (Tilt(height), Tilt(width) / 2);
+    }
+
+    private static void FlaggedSection(TextWriter o, Volume volume, IntensityWindow window, BuildRecord r, SectionRecord s, IReadOnlyList<string> reasons,
+        Dictionary<int, SectionRecord> placed)
+    {
+        // The neighbour: the section registered to, else the nearest placed section before (or after) it.
+        var neighbour = s.RegisteredTo is int t && placed.TryGetValue(t, out var n) ? n
+            : placed.Values.Where(p => p.Number < s.Number).MaxBy(p => p.Number) ?? placed.Values.Where(p => p.Number > s.Number).MinBy(p => p.Number);
+        o.Write($"<div class=\"flag\" id=\"flag-{s.Number}\"><div class=\"flag-text\"><h3>Section {s.Number}</h3><ul>");
+        foreach (var reason in reasons) o.Write($"<li>{E(reason)}</li>");
+        o.Write("</ul>");
+        if (s.File is not null) o.Write($"<p class=\"file\">{E(s.File)}</p>");
+        o.Write("</div>");
+        var own = ReportImages.SectionPlane(volume, s.ZIndex, ThumbnailSide);
+        Thumb(o, ReportImages.Gray(own, window), $"section {s.Number}" + (s.Status == "failed" ? " (not placed: empty)" : ""));
+        if (neighbour is not null && neighbour.Number != s.Number)
+        {
+            var other = ReportImages.SectionPlane(volume, neighbour.ZIndex, ThumbnailSide);
+            Thumb(o, ReportImages.Gray(other, window), $"neighbour {neighbour.Number}");
+            if (s.Status != "failed") Thumb(o, ReportImages.Overlay(own, other, window), "overlay");
+        }
+        o.Write("</div>");
+    }
+
+    private static void SectionTable(TextWriter o, BuildRecord r, HashSet<int> flagged)
+    {
+        double um = r.VoxelSizeMm.Length > 0 ? r.VoxelSizeMm[0] * 1000 : 1;
+        o.Write("""
+            <section><h2>Every section</h2>
+            <table class="sections" id="sections"><thead><tr>
+            <th>section</th><th>file</th><th>status</th><th>mirrored</th><th>rotation (°)</th><th>translation x, y (µm)</th>
+            <th>confidence</th><th>est. error (µm)</th><th>NCC</th><th>registered to</th></tr></thead><tbody>
+            """);
+        foreach (var s in r.Sections)
+        {
+            string css = flagged.Contains(s.Number) ? " class=\"flagged\"" : s.Status is "gap" or "excluded" ? " class=\"absent\"" : "";
+            string shift = s.ShiftPx is { Length: 2 } p ? $"{F(p[0] * um, "0.0")}, {F(p[1] * um, "0.0")}" : "";
+            o.Write($"<tr id=\"section-{s.Number}\"{css}><td class=\"number\">{s.Number}</td><td class=\"file\">{E(s.File ?? "")}</td>" +
+                $"<td class=\"status\">{E(s.Status)}</td><td class=\"mirrored\">{(s.Mirrored is bool mb ? (mb ? "yes" : "no") : "")}</td>" +
+                $"<td class=\"rotation\">{F(s.RotationDegrees, "0.00")}</td><td class=\"shift\">{shift}</td>" +
+                $"<td class=\"confidence\">{F(s.Confidence, "0.000")}</td><td class=\"error\">{F(s.EstimatedErrorUm, "0.0")}</td>" +
+                $"<td class=\"ncc\">{F(s.Ncc, "0.000")}</td><td class=\"route\">{Route(s)}</td></tr>");
+        }
+        o.Write("</tbody></table><p class=\"note\">Translation: where the image's top-left pixel centre lands in the output plane. " +
+            "Estimated error: one standard error relative to the reference section, from peak sharpness, route disagreement " +
+            "and confidence, accumulated along the chain (see docs/uncertainty.md).</p></section>");
+    }
+
+    /// <summary>A sidecar key as a label: words apart, a trailing unit in brackets (output_pixel_size_um → output pixel size (µm)).</summary>
+    private static string ParameterName(string key)
+    {
+        var words = key.Split('_').ToList();
+        string unit = words.Count > 1 ? words[^1] switch { "um" => " (µm)", "px" => " (pixels)", "deg" => " (°)", _ => "" } : "";
+        if (unit.Length > 0) words.RemoveAt(words.Count - 1);
+        return string.Join(' ', words) + unit;
+    }
+
+    private static string Route(SectionRecord s) => s.Route switch
+    {
+        null => "",
+        "reference" => "reference",
+        _ when s.RegisteredTo is int t => E($"{t} ({s.Route})"),
+        _ => E(s.Route),
+    };
+
+    private static void Card(TextWriter o, string name, int value, string hint, string css = "") =>
+        o.Write($"<div class=\"card {css}\" id=\"count-{name}\"><span class=\"value\">{value}</span><span class=\"name\">{E(name)}</span><span class=\"hint\">{E(hint)}</span></div>");
+
+    private static void Fact(TextWriter o, string name, string value, string? id = null) =>
+        o.Write($"<tr{(id is null ? "" : $" id=\"{id}\"")}><th>{E(name)}</th><td>{E(value)}</td></tr>");
+
+    private static void Img(TextWriter o, byte[] png, string alt, string id) =>
+        o.Write($"<img id=\"{id}\" class=\"plot\" src=\"{DataUri(png)}\" alt=\"{E(alt)}\" width=\"{ReportPlots.Width}\" height=\"{ReportPlots.Height}\">");
+
+    private static void Thumb(TextWriter o, byte[] png, string caption) =>
+        o.Write($"<figure class=\"thumb\"><img src=\"{DataUri(png)}\" alt=\"{E(caption)}\"><figcaption>{E(caption)}</figcaption></figure>");
+
+    private static string DataUri(byte[] png) => "data:image/png;base64," + Convert.ToBase64String(png);
+
+    private static string E(string text) => WebUtility.HtmlEncode(text);
+
+    private static string F(double? value, string format) => value is double v ? v.ToString(format, Inv) : "";
+
+    private static string Um(double mm) => (mm * 1000).ToString("0.###", Inv);
+
+    private static double Median(List<double> values)
+    {
+        var v = values.OrderBy(x => x).ToArray();
+        return v.Length % 2 == 1 ? v[v.Length / 2] : (v[v.Length / 2 - 1] + v[v.Length / 2]) / 2;
+    }
+
+    private const string Css = """
+        body{font-family:system-ui,"DejaVu Sans",sans-serif;color:#1a202c;margin:0 auto;max-width:1600px;padding:16px 28px;background:#fff;line-height:1.4}
+        header h1{font-size:22px;margin:0}header .file{font-weight:normal;color:#4a5568;font-family:"DejaVu Sans Mono",monospace;font-size:18px;margin-left:8px}
+        .sub{color:#718096;margin:2px 0 10px;font-size:13px}
+        .caution{background:#fffaf0;border-left:4px solid #dd6b20;padding:8px 12px;font-size:14px;margin:8px 0 16px}
+        h2{font-size:18px;border-bottom:1px solid #e2e8f0;padding-bottom:4px;margin:24px 0 10px}
+        h3{font-size:15px;margin:0 0 4px}
+        .cards{display:flex;flex-wrap:wrap;gap:10px;margin-bottom:14px}
+        .card{border:1px solid #e2e8f0;border-radius:6px;padding:8px 14px;min-width:110px;display:flex;flex-direction:column}
+        .card .value{font-size:26px;font-weight:600}.card .name{font-size:13px;text-transform:uppercase;letter-spacing:.04em;color:#4a5568}
+        .card .hint{font-size:12px;color:#a0aec0}.card.warn{border-color:#dd6b20;background:#fffaf0}
+        .columns{display:flex;flex-wrap:wrap;gap:28px;align-items:flex-start}
+        table.facts{border-collapse:collapse;font-size:13px}table.facts caption{text-align:left;font-weight:600;padding-bottom:4px}
+        table.facts th{text-align:left;color:#4a5568;font-weight:normal;padding:2px 14px 2px 0;vertical-align:top}table.facts td{padding:2px 0}
+        .warnings{margin-top:12px;font-size:13px;color:#9c4221}.warnings ul{margin:4px 0;padding-left:20px}
+        .plots{display:grid;grid-template-columns:repeat(auto-fill,minmax(600px,1fr));gap:10px}
+        .plots img{width:100%;height:auto;border:1px solid #edf2f7}
+        .planes{display:flex;flex-wrap:wrap;gap:14px;align-items:flex-start}
+        figure{margin:0}figure img{display:block;background:#000}
+        figcaption{font-size:12px;color:#4a5568;margin-top:3px}
+        .thumb figcaption{max-width:200px}
+        .note{font-size:12px;color:#718096}
+        .flag{display:flex;gap:12px;align-items:flex-start;border-top:1px solid #edf2f7;padding:10px 0}
+        .flag-text{width:300px;font-size:13px}.flag-text ul{margin:0;padding-left:18px}.flag-text .file{color:#718096;font-family:"DejaVu Sans Mono",monospace;font-size:12px}
+        .thumb img{width:200px}
+        table.sections{border-collapse:collapse;font-size:12.5px;width:100%}
+        table.sections th{background:#f7fafc;text-align:left;padding:4px 8px;border-bottom:2px solid #e2e8f0;position:sticky;top:0}
+        table.sections td{padding:2px 8px;border-bottom:1px solid #edf2f7;font-variant-numeric:tabular-nums}
+        table.sections td.rotation,table.sections td.shift,table.sections td.confidence,table.sections td.error,table.sections td.ncc{text-align:right}
+        tr.flagged td{background:#fffaf0}tr.flagged td.number{border-left:3px solid #dd6b20}tr.absent td{color:#a0aec0}
+        footer{margin:24px 0 8px;font-size:12px;color:#a0aec0}
+        """;
+}
