@@ -38,6 +38,17 @@ public sealed class SmoothingSolverTests(ITestOutputHelper output)
     private static double Gaussian(Random random) =>
         Math.Sqrt(-2 * Math.Log(1 - random.NextDouble())) * Math.Cos(2 * Math.PI * random.NextDouble());
 
+    /// <summary>First- and second-neighbour pairs from the truth with random errors; <paramref name="make"/>(moving, step, map) builds each result.</summary>
+    private static List<PairObservation> NeighbourPairs(Transform2D[] truth, Random random, double px, double degrees,
+        Func<int, int, Transform2D, PairResult> make)
+    {
+        var pairs = new List<PairObservation>();
+        for (int i = 1; i < truth.Length; i++)
+        for (int step = 1; step <= Math.Min(2, i); step++)
+            pairs.Add(new PairObservation(i, i - step, make(i, step, Relative(truth, i, i - step, Noise(random, px, degrees)))));
+        return pairs;
+    }
+
     private static Transform2D[] Chain(int count, IReadOnlyList<PairObservation> pairs)
     {
         var chain = new Transform2D[count];
@@ -60,18 +71,12 @@ public sealed class SmoothingSolverTests(ITestOutputHelper output)
         var random = new Random(3);
         const int count = 30;
         var truth = Truth(count, random);
-        var pairs = new List<PairObservation>();
-        for (int i = 1; i < count; i++)
-        for (int step = 1; step <= Math.Min(2, i); step++)
-        {
-            var exact = Relative(truth, i, i - step, Noise(random, 0.1, 0.05));
-            // Pair 15 → 14 locks on a wrong peak 15 px away; its runner-up is the right answer.
-            pairs.Add(i == 15 && step == 1
-                ? new PairObservation(i, i - step, Pair(exact.Then(Transform2D.Translation(15, 0)), runnerUp: exact))
-                : new PairObservation(i, i - step, Pair(exact)));
-        }
+        // Pair 15 → 14 locks on a wrong peak 15 px away; its runner-up is the right answer.
+        var pairs = NeighbourPairs(truth, random, 0.1, 0.05, (i, step, exact) => i == 15 && step == 1
+            ? Pair(exact.Then(Transform2D.Translation(15, 0)), runnerUp: exact)
+            : Pair(exact));
         var chain = Chain(count, pairs);
-        var result = SmoothingSolver.Solve(chain.Select(c => (Transform2D?)c).ToList(), 0, pairs, _ => Points, new SmoothingOptions());
+        var result = SmoothingSolver.Solve(chain.Select(c => (Transform2D?)c).ToList(), 0, pairs, _ => Points, new SmoothingOptions { Strength = 0 });
 
         double chainWorst = Enumerable.Range(0, count).Max(i => CentreError(chain[i], truth[i]));
         double solvedWorst = Enumerable.Range(0, count).Max(i => CentreError(result.ToReference[i], truth[i]));
@@ -92,16 +97,10 @@ public sealed class SmoothingSolverTests(ITestOutputHelper output)
         var random = new Random(5);
         const int count = 20;
         var truth = Truth(count, random);
-        var pairs = new List<PairObservation>();
-        for (int i = 1; i < count; i++)
-        for (int step = 1; step <= Math.Min(2, i); step++)
-        {
-            var exact = Relative(truth, i, i - step, Noise(random, 0.1, 0.05));
-            if (i == 8 && step == 1) exact = exact.Then(Transform2D.Rotation(6, 100, 100));
-            pairs.Add(new PairObservation(i, i - step, Pair(exact)));
-        }
+        var pairs = NeighbourPairs(truth, random, 0.1, 0.05, (i, step, exact) =>
+            Pair(i == 8 && step == 1 ? exact.Then(Transform2D.Rotation(6, 100, 100)) : exact));
         var chain = Chain(count, pairs);
-        var result = SmoothingSolver.Solve(chain.Select(c => (Transform2D?)c).ToList(), 0, pairs, _ => Points, new SmoothingOptions());
+        var result = SmoothingSolver.Solve(chain.Select(c => (Transform2D?)c).ToList(), 0, pairs, _ => Points, new SmoothingOptions { Strength = 0 });
         var wild = result.Pairs.Single(p => p.Moving == 8 && p.Fixed == 7);
         Assert.Equal(0, wild.Weight);
         Assert.NotNull(wild.Outlier);
@@ -121,12 +120,9 @@ public sealed class SmoothingSolverTests(ITestOutputHelper output)
         for (int trial = 0; trial < 4; trial++)
         {
             var truth = Truth(count, random);
-            var pairs = new List<PairObservation>();
-            for (int i = 1; i < count; i++)
-            for (int step = 1; step <= Math.Min(2, i); step++)
-                pairs.Add(new PairObservation(i, i - step, Pair(Relative(truth, i, i - step, Noise(random, 0.5, 0.1)))));
+            var pairs = NeighbourPairs(truth, random, 0.5, 0.1, (_, _, map) => Pair(map));
             var chain = Chain(count, pairs);
-            var result = SmoothingSolver.Solve(chain.Select(c => (Transform2D?)c).ToList(), 0, pairs, _ => Points, new SmoothingOptions());
+            var result = SmoothingSolver.Solve(chain.Select(c => (Transform2D?)c).ToList(), 0, pairs, _ => Points, new SmoothingOptions { Strength = 0 });
             chainRms += Enumerable.Range(0, count).Sum(i => Math.Pow(CentreError(chain[i], truth[i]), 2));
             solvedRms += Enumerable.Range(0, count).Sum(i => Math.Pow(CentreError(result.ToReference[i], truth[i]), 2));
         }
@@ -144,10 +140,7 @@ public sealed class SmoothingSolverTests(ITestOutputHelper output)
         var random = new Random(2);
         const int count = 15;
         var truth = Truth(count, random);
-        var pairs = new List<PairObservation>();
-        for (int i = 1; i < count; i++)
-        for (int step = 1; step <= Math.Min(2, i); step++)
-            pairs.Add(new PairObservation(i, i - step, Pair(Relative(truth, i, i - step, Transform2D.Identity))));
+        var pairs = NeighbourPairs(truth, random, 0, 0, (_, _, map) => Pair(map));
         var result = SmoothingSolver.Solve(truth.Select(c => (Transform2D?)c).ToList(), 0, pairs, _ => Points, new SmoothingOptions { Strength = 10 });
         Assert.All(result.CorrectionPx, c => Assert.True(c < 1e-6, $"moved by {c}"));
     }

@@ -25,8 +25,8 @@ public static class BuildCommand
         var outPixel = new Option<double?>("--output-pixel-size") { Description = "In-plane voxel size of the volume in µm (default: the input pixel size, coarsened so a plane is at most 2048 voxels)" };
         var channel = new Option<string>("--channel") { Description = "How colour images become gray: luminance, red, green or blue", DefaultValueFactory = _ => "luminance" };
         var interpolation = new Option<string>("--interpolation") { Description = "Resampling: bilinear or bicubic", DefaultValueFactory = _ => "bilinear" };
-        var smoothing = new Option<double>("--smoothing") { Description = "Strength of the drift-correcting smoothing prior over all neighbour pairs (0 = pair consistency only, negative = plain neighbour chain)", DefaultValueFactory = _ => new SmoothingOptions().Strength };
-        var fill = new Option<string>("--fill") { Description = "Fill gap, excluded and failed planes from their neighbours: flow (optical-flow interpolation), linear or none", DefaultValueFactory = _ => "flow" };
+        var smoothing = new Option<double>("--smoothing") { Description = "Solve all placements from every neighbour pair with outlier rejection: the smoothness strength (0 = pairs only; negative, the default, = plain neighbour chain)", DefaultValueFactory = _ => new SmoothingOptions().Strength };
+        var fill = new Option<string>("--fill") { Description = "Fill gap, excluded and failed planes of an aligned build from their neighbours: flow (optical-flow interpolation), linear or none", DefaultValueFactory = _ => "flow" };
         var json = new Option<bool>("--json") { Description = "Print a machine-readable summary instead of text" };
         var noAlign = new Option<bool>("--no-align") { Description = "Place the sections centred without aligning them (the series as scanned)" };
         var workSize = new Option<int>("--work-size") { Description = "Long side in pixels at which sections are registered", DefaultValueFactory = _ => 512 };

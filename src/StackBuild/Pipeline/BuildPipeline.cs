@@ -198,7 +198,9 @@ public static class BuildPipeline
             });
             progress?.Report($"rendering: section {s.Number} ({++rendered}/{working.Count})");
         }
-        if (options.Fill != GapFill.None)
+        // Only aligned planes are interpolated between: in a volume placed as scanned the neighbours do not line up.
+        var fillMethod = aligned ? options.Fill : GapFill.None;
+        if (fillMethod != GapFill.None)
         {
             var good = records.Where(r => r.Status is "aligned" or "placed").Select(r => r.ZIndex).ToHashSet();
             for (int r = 0; r < records.Count; r++)
@@ -209,11 +211,11 @@ public static class BuildPipeline
                 int above = good.Where(z => z > record.ZIndex).DefaultIfEmpty(-1).Min();
                 if (below < 0 || above < 0) continue;
                 double t = (record.ZIndex - below) / (double)(above - below);
-                var plane = GapFiller.Interpolate(volume.Plane(below), volume.Plane(above), nx, ny, t, options.Fill);
+                var plane = GapFiller.Interpolate(volume.Plane(below), volume.Plane(above), nx, ny, t, fillMethod);
                 plane.CopyTo(volume.Plane(record.ZIndex));
                 int from = records.First(x => x.ZIndex == below && x.Status is "aligned" or "placed").Number;
                 int to = records.First(x => x.ZIndex == above && x.Status is "aligned" or "placed").Number;
-                records[r] = record with { Filled = options.Fill == GapFill.Flow ? "flow" : "linear", FilledFrom = [from, to] };
+                records[r] = record with { Filled = fillMethod == GapFill.Flow ? "flow" : "linear", FilledFrom = [from, to] };
             }
         }
         RoundInPlace(volume.Voxels, (float)maxValue);
@@ -233,7 +235,7 @@ public static class BuildPipeline
             ["min_confidence"] = Num(options.Chain.MinConfidence),
             ["fft"] = Fft2D.ProviderName,
             ["smoothing"] = smoothing is null ? "off" : Num(options.Smoothing.Strength),
-            ["fill"] = options.Fill.ToString().ToLowerInvariant(),
+            ["fill"] = fillMethod.ToString().ToLowerInvariant(),
         };
         var buildRecord = new BuildRecord
         {
