@@ -48,7 +48,10 @@ public static class GapFiller
 
     public sealed record FlowOptions
     {
-        /// <summary>Smoothness weight α of Horn–Schunck, for intensities scaled to unit robust spread.</summary>
+        /// <summary>
+        /// Smoothness weight α of Horn–Schunck, for intensities scaled to unit robust spread (p95 − p5). Set on the
+        /// demo phantom's aligned planes: smaller values (0.1, 0.03) fitted texture noise and filled worse than blending.
+        /// </summary>
         public double Alpha { get; init; } = 0.5;
         public int IterationsPerWarp { get; init; } = 40;
         public int WarpsPerLevel { get; init; } = 2;
