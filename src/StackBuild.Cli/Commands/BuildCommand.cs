@@ -5,6 +5,7 @@ using StackBuild.Imaging;
 using StackBuild.IO;
 using StackBuild.Pipeline;
 using StackBuild.Register;
+using StackBuild.Render;
 using StackBuild.Series;
 using StackBuild.Solve;
 using StackBuild.Write;
@@ -24,6 +25,8 @@ public static class BuildCommand
         var outPixel = new Option<double?>("--output-pixel-size") { Description = "In-plane voxel size of the volume in µm (default: the input pixel size, coarsened so a plane is at most 2048 voxels)" };
         var channel = new Option<string>("--channel") { Description = "How colour images become gray: luminance, red, green or blue", DefaultValueFactory = _ => "luminance" };
         var interpolation = new Option<string>("--interpolation") { Description = "Resampling: bilinear or bicubic", DefaultValueFactory = _ => "bilinear" };
+        var smoothing = new Option<double>("--smoothing") { Description = "Solve all placements from every neighbour pair with outlier rejection: the smoothness strength (0 = pairs only; negative, the default, = plain neighbour chain)", DefaultValueFactory = _ => new SmoothingOptions().Strength };
+        var fill = new Option<string>("--fill") { Description = "Fill gap, excluded and failed planes of an aligned build from their neighbours: flow (optical-flow interpolation), linear or none", DefaultValueFactory = _ => "flow" };
         var json = new Option<bool>("--json") { Description = "Print a machine-readable summary instead of text" };
         var noAlign = new Option<bool>("--no-align") { Description = "Place the sections centred without aligning them (the series as scanned)" };
         var workSize = new Option<int>("--work-size") { Description = "Long side in pixels at which sections are registered", DefaultValueFactory = _ => 512 };
@@ -32,7 +35,7 @@ public static class BuildCommand
         var command = new Command("build", "Rebuild a section series into one NIfTI-1 volume with a sidecar of every section's placement.\n\n" +
             "Example:\n  stackbuild build demo-series -o demo-volume.nii.gz")
         {
-            series, output, manifest, pixelSize, spacing, axes, outPixel, channel, interpolation, noAlign, workSize, minConfidence, json,
+            series, output, manifest, pixelSize, spacing, axes, outPixel, channel, interpolation, noAlign, workSize, minConfidence, smoothing, fill, json,
         };
         command.SetAction(parse => console.Guard(() =>
         {
@@ -55,6 +58,8 @@ public static class BuildCommand
                 Align = !parse.GetValue(noAlign),
                 Registration = new RegistrationOptions { WorkSize = WorkSize(parse.GetValue(workSize)) },
                 Chain = new ChainOptions { MinConfidence = Fraction(parse.GetValue(minConfidence), "--min-confidence") },
+                Smoothing = new SmoothingOptions { Strength = Finite(parse.GetValue(smoothing), "--smoothing") },
+                Fill = ParseFill(parse.GetValue(fill)!),
             };
             var result = BuildPipeline.Run(options, new SyncProgress(console));
             console.EndProgress();
@@ -117,6 +122,17 @@ public static class BuildCommand
 
     internal static double Fraction(double value, string name) => value is >= 0 and <= 1 ? value
         : throw new InputProblemException(null, $"{name} must be between 0 and 1, not {value}", $"give {name} a value such as 0.2");
+
+    internal static double Finite(double value, string name) => double.IsFinite(value) ? value
+        : throw new InputProblemException(null, $"{name} must be a number, not {value}", $"give {name} a value such as 1");
+
+    internal static GapFill ParseFill(string text) => text.Trim().ToLowerInvariant() switch
+    {
+        "flow" => GapFill.Flow,
+        "linear" => GapFill.Linear,
+        "none" => GapFill.None,
+        _ => throw new InputProblemException(null, $"--fill '{text}' is not known", "use flow, linear or none"),
+    };
 
     internal static GrayChannel ParseChannel(string text) => text.Trim().ToLowerInvariant() switch
     {

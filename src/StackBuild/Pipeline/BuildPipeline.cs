@@ -27,6 +27,10 @@ public sealed record BuildOptions
     public bool Align { get; init; } = true;
     public RegistrationOptions Registration { get; init; } = new();
     public ChainOptions Chain { get; init; } = new();
+    /// <summary>The reference-free smoothing prior on top of the chain (<see cref="SmoothingSolver"/>); Strength &lt; 0 turns it off.</summary>
+    public SmoothingOptions Smoothing { get; init; } = new();
+    /// <summary>How gap, excluded and failed planes are filled from their nearest placed neighbours.</summary>
+    public GapFill Fill { get; init; } = GapFill.Flow;
 }
 
 /// <summary>A built volume (intensities in the input's own units: 0–255 for 8-bit, 0–65535 for 16-bit) and its record.</summary>
@@ -63,12 +67,22 @@ public static class BuildPipeline
 
         // 2–3. Register neighbours and chain them into the reference frame.
         IReadOnlyList<ChainPlacement> chain;
+        SmoothingResult? smoothing = null;
         var warnings = new List<string>(series.Warnings);
         if (options.Align && working.Count > 1)
         {
             var pairs = RegisterNeighbours(working, options, progress);
             chain = ChainSolver.Solve(working.Count, (m, f) => pairs.GetOrAdd((m, f), k => RegisterPair(working, k.Item1, k.Item2, options)),
                 i => Corners(working[i].Image), options.Chain);
+            if (options.Smoothing.Strength >= 0 && working.Count > 2)
+            {
+                var observations = pairs.Select(kv => new PairObservation(kv.Key.Item1, kv.Key.Item2, kv.Value)).OrderBy(o => o.Moving).ThenBy(o => o.Fixed).ToList();
+                int referenceIndex = chain.Select((c, i) => (c, i)).First(t => t.c.Route == LinkRoute.Reference).i;
+                smoothing = SmoothingSolver.Solve(chain.Select(c => c.Route == LinkRoute.Failed ? (Transform2D?)null : c.ToReference).ToList(),
+                    referenceIndex, observations, i => SamplePoints(working[i].Image), options.Smoothing with { MinConfidence = options.Chain.MinConfidence });
+                var solved = smoothing.ToReference;
+                chain = chain.Select((c, i) => c.Route == LinkRoute.Failed ? c : c with { ToReference = solved[i] }).ToList();
+            }
             chain = FaceMajorityUp(chain, working);
         }
         else
@@ -144,6 +158,16 @@ public static class BuildPipeline
                 Route = place.Route.ToString().ToLowerInvariant() switch { "secondneighbour" => "second-neighbour", var r => r },
                 RouteDisagreementUm = place.RouteDisagreement is { } d ? d * workUm : null,
                 RunnerUp = pair?.RunnerUp is { } ru ? new HypothesisRecord(ru.Mirrored, ru.RotationDegrees, ru.Ncc) : null,
+                DriftCorrectionUm = smoothing is null ? null : smoothing.CorrectionPx[n] * workUm,
+                Pairs = smoothing?.Pairs.Where(d => d.Moving == n || d.Fixed == n).Select(d => new PairLinkRecord
+                {
+                    With = working[d.Moving == n ? d.Fixed : d.Moving].Entry.Number,
+                    Confidence = d.Confidence,
+                    Weight = d.Weight,
+                    ResidualUm = d.ResidualPx * workUm,
+                    Hypothesis = d.UsedRunnerUp ? "runner-up" : "best",
+                    Outlier = d.Outlier,
+                }).ToList(),
             };
             if (place.Route == LinkRoute.Failed)
             {
@@ -174,6 +198,26 @@ public static class BuildPipeline
             });
             progress?.Report($"rendering: section {s.Number} ({++rendered}/{working.Count})");
         }
+        // Only aligned planes are interpolated between: in a volume placed as scanned the neighbours do not line up.
+        var fillMethod = aligned ? options.Fill : GapFill.None;
+        if (fillMethod != GapFill.None)
+        {
+            var good = records.Where(r => r.Status is "aligned" or "placed").Select(r => r.ZIndex).ToHashSet();
+            for (int r = 0; r < records.Count; r++)
+            {
+                var record = records[r];
+                if (record.Status is "aligned" or "placed" || good.Contains(record.ZIndex)) continue;
+                int below = good.Where(z => z < record.ZIndex).DefaultIfEmpty(-1).Max();
+                int above = good.Where(z => z > record.ZIndex).DefaultIfEmpty(-1).Min();
+                if (below < 0 || above < 0) continue;
+                double t = (record.ZIndex - below) / (double)(above - below);
+                var plane = GapFiller.Interpolate(volume.Plane(below), volume.Plane(above), nx, ny, t, fillMethod);
+                plane.CopyTo(volume.Plane(record.ZIndex));
+                int from = records.First(x => x.ZIndex == below && x.Status is "aligned" or "placed").Number;
+                int to = records.First(x => x.ZIndex == above && x.Status is "aligned" or "placed").Number;
+                records[r] = record with { Filled = fillMethod == GapFill.Flow ? "flow" : "linear", FilledFrom = [from, to] };
+            }
+        }
         RoundInPlace(volume.Voxels, (float)maxValue);
 
         int failed = records.Count(r => r.Status == "failed");
@@ -190,6 +234,8 @@ public static class BuildPipeline
             ["work_size_px"] = options.Registration.WorkSize.ToString(CultureInfo.InvariantCulture),
             ["min_confidence"] = Num(options.Chain.MinConfidence),
             ["fft"] = Fft2D.ProviderName,
+            ["smoothing"] = smoothing is null ? "off" : Num(options.Smoothing.Strength),
+            ["fill"] = fillMethod.ToString().ToLowerInvariant(),
         };
         var buildRecord = new BuildRecord
         {
@@ -277,6 +323,13 @@ public static class BuildPipeline
         bool? a = working[moving].Entry.MountedMirrored, b = working[fixedIndex].Entry.MountedMirrored;
         var o = options.Registration with { KnownMirrored = a is { } ma && b is { } mb ? ma != mb : null };
         return SectionRegistration.Register(working[fixedIndex].Prepared!, working[moving].Prepared!, o);
+    }
+
+    /// <summary>The centre and the corners of the middle half of a section: where the solver measures disagreement.</summary>
+    private static (double X, double Y)[] SamplePoints(GrayImage image)
+    {
+        double w = image.Width - 1, h = image.Height - 1;
+        return [(w / 2, h / 2), (w / 4, h / 4), (3 * w / 4, h / 4), (w / 4, 3 * h / 4), (3 * w / 4, 3 * h / 4)];
     }
 
     private static (double X, double Y)[] Corners(GrayImage image) =>

@@ -35,8 +35,32 @@ public sealed record SectionRecord
     [JsonPropertyName("damaged")] public bool Damaged { get; init; }
     [JsonPropertyName("matrix")] public double[][]? Matrix { get; init; }
     [JsonPropertyName("note")] public string? Note { get; init; }
+    /// <summary>How far (µm, at the section's centre) the smoothing prior moved the section from its chain placement; null when the prior was off.</summary>
+    [JsonPropertyName("drift_correction_um")] public double? DriftCorrectionUm { get; init; }
+    /// <summary>Every pairwise registration the smoothing prior used with this section, with its weight and any outlier flag.</summary>
+    [JsonPropertyName("pairs")] public List<PairLinkRecord>? Pairs { get; init; }
+    /// <summary>For a gap, excluded or failed plane filled from its neighbours: "flow" or "linear"; null when left empty.</summary>
+    [JsonPropertyName("filled")] public string? Filled { get; init; }
+    /// <summary>The two placed sections the fill was interpolated between.</summary>
+    [JsonPropertyName("filled_from")] public int[]? FilledFrom { get; init; }
     /// <summary>Estimated placement error (µm, one standard error) relative to the reference section; see <see cref="Evaluate.Uncertainty"/>.</summary>
     [JsonPropertyName("estimated_error_um")] public double? EstimatedErrorUm { get; init; }
+}
+
+/// <summary>One pairwise registration as the smoothing prior weighed it.</summary>
+public sealed record PairLinkRecord
+{
+    /// <summary>The other section of the pair.</summary>
+    [JsonPropertyName("with")] public int With { get; init; }
+    [JsonPropertyName("confidence")] public double Confidence { get; init; }
+    /// <summary>Weight in the solve: confidence × robust weight (0 = set aside).</summary>
+    [JsonPropertyName("weight")] public double Weight { get; init; }
+    /// <summary>RMS disagreement (µm) between the pair's map and the solved placements.</summary>
+    [JsonPropertyName("residual_um")] public double ResidualUm { get; init; }
+    /// <summary>"best", or "runner-up" when the second hypothesis replaced it.</summary>
+    [JsonPropertyName("hypothesis")] public string Hypothesis { get; init; } = "best";
+    /// <summary>Why the pair was set aside, or null.</summary>
+    [JsonPropertyName("outlier")] public string? Outlier { get; init; }
 }
 
 /// <summary>The sidecar of a build: geometry, parameters and every section's record.</summary>
