@@ -100,7 +100,9 @@ public static class BuildCommand
         o.WriteLine($"Sidecar  {paths.Sidecar}");
         o.WriteLine($"Report   {paths.Report}");
         o.WriteLine($"Grid     {r.Dimensions[0]} × {r.Dimensions[1]} × {r.Dimensions[2]} voxels of {r.VoxelSizeMm[0] * 1000:0.###} × {r.VoxelSizeMm[1] * 1000:0.###} × {r.VoxelSizeMm[2] * 1000:0.###} µm, axes {r.AxisCodes}");
-        o.WriteLine($"Sections {string.Join(", ", counts.OrderBy(c => c.Key).Select(c => $"{c.Value} {c.Key}"))}");
+        int filled = r.Sections.Count(s => s.Filled is not null);
+        o.WriteLine($"Sections {string.Join(", ", counts.OrderBy(c => c.Key).Select(c => $"{c.Value} {c.Key}"))}" +
+            (filled > 0 ? $"; {filled} empty plane(s) filled from their neighbours" : ""));
         var doubtful = r.Sections.Where(s => s.Confidence < 0.5 && s.Status is "aligned").ToList();
         if (doubtful.Count > 0)
             o.WriteLine($"Check    {string.Join(", ", doubtful.Select(s => $"section {s.Number} (confidence {s.Confidence:0.00})"))}: placed, but the match with its neighbour was weak");
