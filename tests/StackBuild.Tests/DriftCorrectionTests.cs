@@ -72,6 +72,16 @@ public sealed class DriftCorrectionTests(DriftBuilds builds, ITestOutputHelper o
             if (between) Assert.Equal(2, s.FilledFrom!.Length);
         }
         Assert.All(builds.Chain.Record.Sections, s => Assert.Null(s.Filled));
+
+        // Before and after: the chain's own placement is kept beside the solved one, and only then.
+        Assert.All(aligned, s => { Assert.NotNull(s.ChainRotationDegrees); Assert.Equal(2, s.ChainShiftPx!.Length); });
+        Assert.All(builds.Chain.Record.Sections, s => Assert.Null(s.ChainShiftPx));
+        // Neighbour similarity before alignment (as mounted) is far below that after it on the demo's random mounts.
+        var chainAligned = builds.Chain.Record.Sections.Where(s => s.Status == "aligned" && s.Ncc is not null).ToList();
+        Assert.All(chainAligned, s => Assert.NotNull(s.NccBefore));
+        double Median(IEnumerable<double> v) { var a = v.OrderBy(x => x).ToArray(); return a[a.Length / 2]; }
+        double before = Median(chainAligned.Select(s => s.NccBefore!.Value)), after = Median(chainAligned.Select(s => s.Ncc!.Value));
+        Assert.True(after > before + 0.3, $"median NCC before {before:0.000}, after {after:0.000}");
     }
 
     [Fact]

@@ -68,14 +68,17 @@ public static class BuildPipeline
         // 2–3. Register neighbours and chain them into the reference frame.
         IReadOnlyList<ChainPlacement> chain;
         SmoothingResult? smoothing = null;
+        IReadOnlyList<ChainPlacement>? chainBefore = null; // the neighbour chain, kept when the global solve replaces it
         var warnings = new List<string>(series.Warnings);
         if (options.Align && working.Count > 1)
         {
             var pairs = RegisterNeighbours(working, options, progress);
             chain = ChainSolver.Solve(working.Count, (m, f) => pairs.GetOrAdd((m, f), k => RegisterPair(working, k.Item1, k.Item2, options)),
                 i => Corners(working[i].Image), options.Chain);
+            chain = FaceMajorityUp(chain, working);
             if (options.Smoothing.Strength >= 0 && working.Count > 2)
             {
+                chainBefore = chain;
                 var observations = pairs.Select(kv => new PairObservation(kv.Key.Item1, kv.Key.Item2, kv.Value)).OrderBy(o => o.Moving).ThenBy(o => o.Fixed).ToList();
                 int referenceIndex = chain.Select((c, i) => (c, i)).First(t => t.c.Route == LinkRoute.Reference).i;
                 smoothing = SmoothingSolver.Solve(chain.Select(c => c.Route == LinkRoute.Failed ? (Transform2D?)null : c.ToReference).ToList(),
@@ -83,7 +86,6 @@ public static class BuildPipeline
                 var solved = smoothing.ToReference;
                 chain = chain.Select((c, i) => c.Route == LinkRoute.Failed ? c : c with { ToReference = solved[i] }).ToList();
             }
-            chain = FaceMajorityUp(chain, working);
         }
         else
         {
@@ -159,6 +161,8 @@ public static class BuildPipeline
                 RouteDisagreementUm = place.RouteDisagreement is { } d ? d * workUm : null,
                 RunnerUp = pair?.RunnerUp is { } ru ? new HypothesisRecord(ru.Mirrored, ru.RotationDegrees, ru.Ncc) : null,
                 DriftCorrectionUm = smoothing is null ? null : smoothing.CorrectionPx[n] * workUm,
+                NccBefore = place.LinkedTo >= 0 && working[n].Prepared is { } a && working[place.LinkedTo].Prepared is { } b
+                    ? CentredNcc(a.WorkImage, b.WorkImage) : null,
                 Pairs = smoothing?.Pairs.Where(d => d.Moving == n || d.Fixed == n).Select(d => new PairLinkRecord
                 {
                     With = working[d.Moving == n ? d.Fixed : d.Moving].Entry.Number,
@@ -195,7 +199,10 @@ public static class BuildPipeline
                 RotationDegrees = imageToPlane.RotationDegrees,
                 ShiftPx = [imageToPlane.M02, imageToPlane.M12],
                 Matrix = imageToPlane.ToRows(),
+                ChainRotationDegrees = chainBefore is null ? null : ChainMap(chainBefore[n]).RotationDegrees,
+                ChainShiftPx = chainBefore is null ? null : [ChainMap(chainBefore[n]).M02, ChainMap(chainBefore[n]).M12],
             });
+            Transform2D ChainMap(ChainPlacement p) => working[n].FullToWork.Then(p.ToReference).Then(workToOut).Then(toGrid);
             progress?.Report($"rendering: section {s.Number} ({++rendered}/{working.Count})");
         }
         // Only aligned planes are interpolated between: in a volume placed as scanned the neighbours do not line up.
@@ -354,6 +361,30 @@ public static class BuildPipeline
         var r = working[referenceIndex].Image;
         var mirror = Transform2D.MirrorX((r.Width - 1) / 2.0);
         return chain.Select(c => c.Route == LinkRoute.Failed ? c : c with { ToReference = c.ToReference.Then(mirror) }).ToList();
+    }
+
+    /// <summary>
+    /// Normalised cross-correlation of two images laid centre on centre, over their overlap: how alike two
+    /// neighbouring sections look as they were mounted, before any alignment.
+    /// </summary>
+    internal static double CentredNcc(GrayImage a, GrayImage b)
+    {
+        int w = Math.Min(a.Width, b.Width), h = Math.Min(a.Height, b.Height);
+        int ax = (a.Width - w) / 2, ay = (a.Height - h) / 2, bx = (b.Width - w) / 2, by = (b.Height - h) / 2;
+        double sa = 0, sb = 0, saa = 0, sbb = 0, sab = 0;
+        for (int y = 0; y < h; y++)
+        {
+            var ra = a.Row(ay + y).Slice(ax, w);
+            var rb = b.Row(by + y).Slice(bx, w);
+            for (int x = 0; x < w; x++)
+            {
+                double u = ra[x], v = rb[x];
+                sa += u; sb += v; saa += u * u; sbb += v * v; sab += u * v;
+            }
+        }
+        double n = (double)w * h;
+        double cov = sab - sa * sb / n, va = saa - sa * sa / n, vb = sbb - sb * sb / n;
+        return va > 0 && vb > 0 ? cov / Math.Sqrt(va * vb) : 0;
     }
 
     private static double BorderMedian(GrayImage image)

@@ -45,6 +45,12 @@ public sealed record SectionRecord
     [JsonPropertyName("filled_from")] public int[]? FilledFrom { get; init; }
     /// <summary>Estimated placement error (µm, one standard error) relative to the reference section; see <see cref="Evaluate.Uncertainty"/>.</summary>
     [JsonPropertyName("estimated_error_um")] public double? EstimatedErrorUm { get; init; }
+    /// <summary>NCC with the section it was registered to before alignment (both registration images centred, as mounted); compare with <see cref="Ncc"/>.</summary>
+    [JsonPropertyName("ncc_before")] public double? NccBefore { get; init; }
+    /// <summary>With the global solve: the rotation the neighbour chain gave, before drift correction.</summary>
+    [JsonPropertyName("chain_rotation_deg")] public double? ChainRotationDegrees { get; init; }
+    /// <summary>With the global solve: the shift the neighbour chain gave, before drift correction.</summary>
+    [JsonPropertyName("chain_shift_px")] public double[]? ChainShiftPx { get; init; }
 }
 
 /// <summary>One pairwise registration as the smoothing prior weighed it.</summary>

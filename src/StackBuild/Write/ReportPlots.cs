@@ -8,6 +8,7 @@ internal static class ReportPlots
 {
     public const int Width = 760, Height = 250;
 
+    private static readonly Color Before = Color.FromHex("#a0aec0");
     private static readonly Color Blue = Color.FromHex("#2b6cb0"), Orange = Color.FromHex("#dd6b20"),
         Red = Color.FromHex("#c53030"), Grey = Color.FromHex("#718096");
 
@@ -32,6 +33,7 @@ internal static class ReportPlots
         var placed = Placed(record).Where(s => s.RotationDegrees is not null).ToList();
         AddSeries(plot, placed.Where(s => s.Mirrored != true).ToList(), s => s.RotationDegrees!.Value, Blue, "face up");
         AddSeries(plot, placed.Where(s => s.Mirrored == true).ToList(), s => s.RotationDegrees!.Value, Orange, "mirrored (face down)", lines: false);
+        AddSeries(plot, placed.Where(s => s.ChainRotationDegrees is not null).ToList(), s => s.ChainRotationDegrees!.Value, Before, "before drift correction", lines: false);
         return Finish(plot, record);
     }
 
@@ -43,6 +45,9 @@ internal static class ReportPlots
         var placed = Placed(record).Where(s => s.ShiftPx is { Length: 2 }).ToList();
         AddSeries(plot, placed, s => s.ShiftPx![0] * um, Blue, "along image x (right)");
         AddSeries(plot, placed, s => s.ShiftPx![1] * um, Orange, "along image y (down)");
+        var chained = placed.Where(s => s.ChainShiftPx is { Length: 2 }).ToList();
+        AddSeries(plot, chained, s => s.ChainShiftPx![0] * um, Before, "x before drift correction", lines: false);
+        AddSeries(plot, chained, s => s.ChainShiftPx![1] * um, Before, "y before drift correction", lines: false);
         return Finish(plot, record);
     }
 
@@ -50,8 +55,9 @@ internal static class ReportPlots
     public static byte[] Similarity(BuildRecord record)
     {
         var plot = NewPlot("Similarity to the neighbour registered to", "NCC");
-        AddSeries(plot, record.Sections.Where(s => s.Ncc is not null).ToList(), s => s.Ncc!.Value, Blue, "normalised cross-correlation");
-        plot.Axes.SetLimitsY(Math.Min(0, record.Sections.Min(s => s.Ncc ?? 0)) - 0.03, 1.03);
+        AddSeries(plot, record.Sections.Where(s => s.Ncc is not null).ToList(), s => s.Ncc!.Value, Blue, "after alignment");
+        AddSeries(plot, record.Sections.Where(s => s.NccBefore is not null).ToList(), s => s.NccBefore!.Value, Before, "before (as mounted)");
+        plot.Axes.SetLimitsY(Math.Min(0, record.Sections.Min(s => Math.Min(s.Ncc ?? 0, s.NccBefore ?? 0))) - 0.03, 1.03);
         return Finish(plot, record);
     }
 
