@@ -102,7 +102,7 @@ public class DemoSpecimenTests(DemoSpecimenFixture fixture) : IClassFixture<Demo
 
         var present = sections.Where(s => !s.Lost).ToList();
         double mirroredShare = present.Count(s => s.Mirrored) / (double)present.Count;
-        Assert.InRange(mirroredShare, 0.07, 0.13); // about one in ten, as the brief asks
+        Assert.InRange(mirroredShare, 0.07, 0.13); // about one in ten, as issue 2 asks
 
         for (int k = 0; k < sections.Count; k++)
         {
