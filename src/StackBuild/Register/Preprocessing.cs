@@ -32,7 +32,7 @@ public static class Preprocessing
         return (s, ScaleMap(s));
     }
 
-    internal static Transform2D ScaleMap(double s) => Transform2D.Scale(s).Then(Transform2D.Translation(0.5 * s - 0.5, 0.5 * s - 0.5));
+    internal static Transform2D ScaleMap(double s) => Resampler.EdgeAlignedScale(s);
 
     /// <summary>Area-averaged reduction by <paramref name="scale"/> (≤ 1); scale 1 returns a copy.</summary>
     public static GrayImage Reduce(GrayImage image, double scale)
