@@ -32,6 +32,13 @@ public sealed class CliOutput(TextWriter stdout, TextWriter stderr)
             Error.WriteLine($"error: {one.Message}");
             return ExitInputProblem;
         }
+        catch (AggregateException many) when (many.Flatten().InnerExceptions.All(e => e is InputProblemException))
+        {
+            // Problems found while sections were read in parallel: one line each, each file once.
+            foreach (var message in many.Flatten().InnerExceptions.Select(e => e.Message).Distinct())
+                Error.WriteLine($"error: {message}");
+            return ExitInputProblem;
+        }
         catch (IOException io)
         {
             Error.WriteLine($"error: {io.Message} — check the path, free disk space and permissions, then run again");
@@ -40,6 +47,13 @@ public sealed class CliOutput(TextWriter stdout, TextWriter stderr)
         catch (UnauthorizedAccessException denied)
         {
             Error.WriteLine($"error: {denied.Message} — choose a location you may write to");
+            return ExitFailure;
+        }
+        catch (Exception unexpected) when (unexpected is not OutOfMemoryException)
+        {
+            var inner = unexpected is AggregateException a ? a.Flatten().InnerExceptions[0] : unexpected;
+            Error.WriteLine($"error: StackBuild stopped on an unexpected problem ({inner.GetType().Name}: {inner.Message}) — " +
+                "nothing was written; please report it with the command you ran");
             return ExitFailure;
         }
     }

@@ -106,6 +106,58 @@ public sealed class BuildCommandTests : IDisposable
         Assert.Empty(Directory.GetFiles(_dir)); // no partial or temporary files beside the output
     }
 
+    [Fact]
+    public void ImageThatFailsToDecodeDuringTheBuildIsOneLine()
+    {
+        var series = MakeSeries();
+        var png = File.ReadAllBytes(Path.Combine(series, "s_002.png"));
+        File.WriteAllBytes(Path.Combine(series, "s_002.png"), png.AsSpan(0, 60).ToArray()); // header intact, data cut off
+        var output = Path.Combine(_dir, "cut.nii.gz");
+        var (code, _, stderr) = Run("build", series, "-o", output);
+        Assert.NotEqual(0, code);
+        var lines = stderr.Split('\n', StringSplitOptions.RemoveEmptyEntries);
+        Assert.All(lines, l => Assert.StartsWith("error:", l));
+        Assert.Contains(lines, l => l.Contains("s_002.png"));
+        Assert.DoesNotContain("   at ", stderr); // no stack trace
+        Assert.False(File.Exists(output));
+    }
+
+    [Fact]
+    public void TinySectionsAreRefusedWithAReason()
+    {
+        var folder = Directory.CreateDirectory(Path.Combine(_dir, "tiny")).FullName;
+        for (int n = 1; n <= 3; n++) WriteSection(folder, $"s_{n:000}.png", 3, 2, 1, 1);
+        var (code, _, stderr) = Run("build", folder, "-o", Path.Combine(_dir, "tiny.nii.gz"), "--pixel-size", "20", "--spacing", "50");
+        Assert.Equal(1, code);
+        Assert.Contains("too small to register", stderr);
+        Assert.DoesNotContain("   at ", stderr);
+    }
+
+    [Fact]
+    public void MissingOutputFolderIsFoundBeforeTheBuild()
+    {
+        var series = MakeSeries();
+        var (code, _, stderr) = Run("build", series, "-o", Path.Combine(_dir, "no-such-folder", "v.nii.gz"));
+        Assert.Equal(1, code);
+        Assert.Contains("folder for this output does not exist", stderr);
+        Directory.CreateDirectory(Path.Combine(_dir, "clash.json")); // a folder where the sidecar would go
+        (code, _, stderr) = Run("build", series, "-o", Path.Combine(_dir, "clash.nii.gz"));
+        Assert.Equal(1, code);
+        Assert.Contains("replace a folder", stderr);
+        Assert.False(File.Exists(Path.Combine(_dir, "clash.nii.gz")));
+    }
+
+    [Fact]
+    public void DamagedSidecarIsRefusedByEvaluate()
+    {
+        var sidecar = Path.Combine(_dir, "bad.json");
+        File.WriteAllText(sidecar, "{\"sections\":[{\"number\":1,\"status\":\"aligned\",\"matrix\":[[1,0],[0,1]]}]}");
+        var truth = Path.Combine(RepositoryPaths.DemoSeries, "truth.json");
+        var (code, _, stderr) = Run("evaluate", sidecar, "--truth", truth);
+        Assert.Equal(1, code);
+        Assert.Contains("not 3×3", stderr);
+    }
+
     [Theory]
     [InlineData("vol.nrrd", "must be a NIfTI-1 file")]
     [InlineData("vol.nii.gz", "--axes")]

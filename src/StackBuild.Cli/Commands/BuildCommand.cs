@@ -42,6 +42,7 @@ public static class BuildCommand
             if (!AxisCodes.TryParse(parse.GetValue(axes), out var axisCodes, out var axisProblem))
                 throw new InputProblemException(null, $"--axes: {axisProblem}", "see README, 'Geometry'");
             var paths = BuildOutputPaths.For(parse.GetValue(output)!);
+            paths.CheckWritable();
             var options = new BuildOptions
             {
                 Input = parse.GetValue(series)!,
@@ -107,7 +108,7 @@ public static class BuildCommand
         if (doubtful.Count > 0)
             o.WriteLine($"Check    {string.Join(", ", doubtful.Select(s => $"section {s.Number} (confidence {s.Confidence:0.00})"))}: placed, but the match with its neighbour was weak");
         foreach (var w in r.Warnings) o.WriteLine($"warning: {w}");
-        if (!r.Aligned)
+        if (!r.Aligned && r.Parameters.GetValueOrDefault("alignment", "").StartsWith("none", StringComparison.Ordinal))
             o.WriteLine("Note: sections were placed centred and NOT aligned (--no-align); this volume shows the series as scanned.");
     }
 

@@ -45,8 +45,15 @@ public static class EvaluateCommand
     {
         try
         {
-            return JsonSerializer.Deserialize<BuildRecord>(File.ReadAllText(path))
+            var record = JsonSerializer.Deserialize<BuildRecord>(File.ReadAllText(path))
                 ?? throw new InputProblemException(path, "the sidecar is empty", "give the .json written beside the volume by 'stackbuild build'");
+            if (record.Sections is null)
+                throw new InputProblemException(path, "the sidecar lists no sections", "give the .json written beside the volume by 'stackbuild build'");
+            foreach (var s in record.Sections)
+                if (s.Matrix is { } m && (m.Length < 2 || m.Take(2).Any(row => row is null || row.Length != 3)))
+                    throw new InputProblemException(path, $"section {s.Number} has a matrix that is not 3×3",
+                        "give the .json written beside the volume by 'stackbuild build', unedited");
+            return record;
         }
         catch (JsonException e)
         {

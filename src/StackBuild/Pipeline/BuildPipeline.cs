@@ -47,6 +47,12 @@ public static class BuildPipeline
     /// <summary>A present section with its registration image.</summary>
     private sealed record Working(SectionEntry Entry, Transform2D FullToWork, GrayImage Image, PreparedSection? Prepared);
 
+    /// <summary>Most planes an output volume may have (far beyond any real series).</summary>
+    public const int MaxPlanes = 100_000;
+
+    /// <summary>Smallest registration image side, in pixels, that registration can work with.</summary>
+    public const int MinRegistrationSide = 16;
+
     public static BuildResult Run(BuildOptions options, IProgress<string>? progress = null)
     {
         var series = SeriesReader.Open(options.Input, options.Series);
@@ -116,6 +122,11 @@ public static class BuildPipeline
         int ny = Math.Max(1, (int)Math.Ceiling(maxY - minY));
         var toGrid = Transform2D.Translation(-minX - 0.5, -minY - 0.5);
         double firstPosition = series.Sections[0].PositionUm;
+        double lastPlane = series.Sections.Max(s => Math.Round((s.PositionUm - firstPosition) / series.SpacingUm));
+        if (!(lastPlane < MaxPlanes))
+            throw new InputProblemException(options.Input,
+                $"the section positions span {lastPlane + 1:0} planes at {series.SpacingUm} µm spacing, more than {MaxPlanes}",
+                "check the position_um column and the spacing (both in µm)");
         var zIndex = series.Sections.ToDictionary(s => s.Number, s => (int)Math.Round((s.PositionUm - firstPosition) / series.SpacingUm));
         int nz = zIndex.Values.Max() + 1;
         if ((long)nx * ny * nz > Array.MaxLength)
@@ -301,6 +312,10 @@ public static class BuildPipeline
                 image = Resampler.Warp(image, loadedToWork.Inverse(), w, h, (float)BorderMedian(image));
                 fullToWork = fullToLoaded.Then(loadedToWork);
             }
+            if (options.Align && Math.Max(image.Width, image.Height) < MinRegistrationSide)
+                throw new InputProblemException(entry.FilePath,
+                    $"is only {image.Width}×{image.Height} pixels at the registration pixel size ({common:0.###} µm), too small to register",
+                    "check this section's pixel size against the others, or leave it out with exclude=yes in the manifest");
             var prepared = options.Align ? SectionRegistration.Prepare(image, options.Registration with { WorkSize = Math.Max(image.Width, image.Height) }) : null;
             result[n] = new Working(entry, fullToWork, image, prepared);
         });

@@ -23,6 +23,20 @@ public sealed record BuildOutputPaths(string Volume, string Sidecar)
             throw new InputProblemException(volumePath, "the output name is empty", "give a file name such as volume.nii.gz");
         return new BuildOutputPaths(volumePath, baseName + ".json");
     }
+
+    /// <summary>
+    /// Checks, before any work is done, that the outputs can be written: the folder exists and none of the
+    /// three paths is a folder.
+    /// </summary>
+    public void CheckWritable()
+    {
+        var folder = Path.GetDirectoryName(Path.GetFullPath(Volume));
+        if (folder is null || !Directory.Exists(folder))
+            throw new InputProblemException(Volume, "the folder for this output does not exist", "create the folder first or choose another output path");
+        foreach (var path in new[] { Volume, Sidecar, Report })
+            if (Directory.Exists(path))
+                throw new InputProblemException(path, "an output would replace a folder of that name", "choose another output name");
+    }
 }
 
 /// <summary>Writes a build's volume, sidecar and report, each atomically.</summary>
@@ -39,8 +53,14 @@ public static class BuildWriter
         result = result with { Record = Uncertainty.Annotate(result.Record) };
         var type = result.InputBitDepth > 8 ? NiftiDataType.UInt16 : NiftiDataType.UInt8;
         var description = result.Record.Aligned ? "StackBuild aligned section series" : "StackBuild section series (unaligned)";
+        // Everything that can fail for reasons other than the disk is done in memory first, so a failure leaves
+        // no new file; each file is then written to a temporary name and renamed.
+        var sidecar = JsonSerializer.Serialize(result.Record, JsonOptions) + "\n";
+        var report = new StringWriter();
+        BuildReport.Render(report, result, Path.GetFileName(paths.Volume));
+        paths.CheckWritable();
         NiftiFile.Write(paths.Volume, result.Volume, new NiftiWriteOptions { DataType = type, Description = description });
-        AtomicFile.WriteAllText(paths.Sidecar, JsonSerializer.Serialize(result.Record, JsonOptions) + "\n");
-        BuildReport.Write(paths.Report, result, Path.GetFileName(paths.Volume));
+        AtomicFile.WriteAllText(paths.Sidecar, sidecar);
+        AtomicFile.WriteAllText(paths.Report, report.ToString());
     }
 }
