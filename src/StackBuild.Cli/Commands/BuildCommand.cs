@@ -108,7 +108,7 @@ public static class BuildCommand
         if (doubtful.Count > 0)
             o.WriteLine($"Check    {string.Join(", ", doubtful.Select(s => $"section {s.Number} (confidence {s.Confidence:0.00})"))}: placed, but the match with its neighbour was weak");
         foreach (var w in r.Warnings) o.WriteLine($"warning: {w}");
-        if (!r.Aligned && r.Parameters.GetValueOrDefault("alignment", "").StartsWith("none", StringComparison.Ordinal))
+        if (!r.Aligned && r.Sections.Count(s => s.Status == "placed") > 1)
             o.WriteLine("Note: sections were placed centred and NOT aligned (--no-align); this volume shows the series as scanned.");
     }
 
