@@ -2,6 +2,7 @@ using System.Text.Json;
 using StackBuild.Geometry;
 using StackBuild.IO;
 using StackBuild.Pipeline;
+using StackBuild.Numerics;
 
 namespace StackBuild.Evaluate;
 
@@ -195,13 +196,6 @@ public static class TruthEvaluation
     {
         var v = values.OrderBy(x => x).ToArray();
         if (v.Length == 0) return new Summary(double.NaN, double.NaN, double.NaN);
-        return new Summary(Quantile(v, 0.5), Quantile(v, 0.95), v[^1]);
-    }
-
-    private static double Quantile(double[] sorted, double q)
-    {
-        double pos = q * (sorted.Length - 1);
-        int lo = (int)Math.Floor(pos), hi = Math.Min(sorted.Length - 1, lo + 1);
-        return sorted[lo] + (sorted[hi] - sorted[lo]) * (pos - lo);
+        return new Summary(Quantiles.OfSorted(v, 0.5), Quantiles.OfSorted(v, 0.95), v[^1]);
     }
 }

@@ -1,6 +1,7 @@
 using System.Globalization;
 using StackBuild.Imaging;
 using StackBuild.IO;
+using StackBuild.Numerics;
 
 namespace StackBuild.Series;
 
@@ -303,7 +304,7 @@ public static class SeriesReader
             var steps = new List<double>();
             for (int i = 1; i < positioned.Count; i++)
                 steps.Add((positioned[i].Row!.PositionUm!.Value - positioned[i - 1].Row!.PositionUm!.Value) / (positioned[i].Number - positioned[i - 1].Number));
-            return Median(steps);
+            return Quantiles.Median(steps);
         }
         problems.Add(new InputProblemException(where, "the section spacing is unknown",
             $"give it with --spacing (micrometres between consecutive section numbers, for example --spacing 50) or a line '#! spacing_um = 50' in {manifestName}"));
@@ -375,12 +376,5 @@ public static class SeriesReader
         var (n0, p0) = known[upper - 1];
         var (n1, p1) = known[upper];
         return p0 + (p1 - p0) * (n - n0) / (n1 - n0);
-    }
-
-    private static double Median(List<double> values)
-    {
-        values.Sort();
-        int mid = values.Count / 2;
-        return values.Count % 2 == 1 ? values[mid] : (values[mid - 1] + values[mid]) / 2;
     }
 }

@@ -5,6 +5,7 @@ using StackBuild.Imaging;
 using StackBuild.IO;
 using StackBuild.Pipeline;
 using StackBuild.Reslice;
+using StackBuild.Numerics;
 
 namespace StackBuild.Write;
 
@@ -106,7 +107,7 @@ public static class BuildReport
         Fact(o, "section spacing", $"{F(r.SpacingUm, "0.###")} µm");
         Fact(o, "reference section", r.ReferenceSection.ToString(Inv));
         var errors = placed.Where(s => s.EstimatedErrorUm is not null).Select(s => s.EstimatedErrorUm!.Value).ToList();
-        if (errors.Count > 0) Fact(o, "estimated error", $"median {F(Median(errors), "0.#")} µm, largest {F(errors.Max(), "0.#")} µm");
+        if (errors.Count > 0) Fact(o, "estimated error", $"median {F(Quantiles.Median(errors), "0.#")} µm, largest {F(errors.Max(), "0.#")} µm");
         o.Write("</table><table class=\"facts\" id=\"parameters\"><caption>Run parameters</caption>");
         Fact(o, "version", $"StackBuild {r.Version}");
         foreach (var (key, value) in r.Parameters) Fact(o, ParameterName(key), value);
@@ -269,12 +270,6 @@ public static class BuildReport
     private static string F(double? value, string format) => value is double v ? v.ToString(format, Inv) : "";
 
     private static string Um(double mm) => (mm * 1000).ToString("0.###", Inv);
-
-    private static double Median(List<double> values)
-    {
-        var v = values.OrderBy(x => x).ToArray();
-        return v.Length % 2 == 1 ? v[v.Length / 2] : (v[v.Length / 2 - 1] + v[v.Length / 2]) / 2;
-    }
 
     private const string Css = """
         body{font-family:system-ui,"DejaVu Sans",sans-serif;color:#1a202c;margin:0 auto;max-width:1600px;padding:16px 28px;background:#fff;line-height:1.4}

@@ -1,0 +1,27 @@
+namespace StackBuild.Numerics;
+
+/// <summary>Order statistics used by summaries and reports: one definition for the whole project.</summary>
+public static class Quantiles
+{
+    /// <summary>
+    /// The <paramref name="q"/>-quantile (0–1) with linear interpolation between order statistics (the
+    /// default of numpy's <c>percentile</c>; common practice). NaN for no values.
+    /// </summary>
+    public static double Of(IEnumerable<double> values, double q)
+    {
+        var sorted = values.OrderBy(x => x).ToArray();
+        return OfSorted(sorted, q);
+    }
+
+    /// <summary>As <see cref="Of"/>, for values already in ascending order.</summary>
+    public static double OfSorted(IReadOnlyList<double> sorted, double q)
+    {
+        if (sorted.Count == 0) return double.NaN;
+        double pos = Math.Clamp(q, 0, 1) * (sorted.Count - 1);
+        int lo = (int)Math.Floor(pos), hi = Math.Min(sorted.Count - 1, lo + 1);
+        return sorted[lo] + (sorted[hi] - sorted[lo]) * (pos - lo);
+    }
+
+    /// <summary>The median (the mean of the two middle values for an even count).</summary>
+    public static double Median(IEnumerable<double> values) => Of(values, 0.5);
+}

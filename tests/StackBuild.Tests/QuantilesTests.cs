@@ -1,0 +1,18 @@
+using StackBuild.Numerics;
+using Xunit;
+
+namespace StackBuild.Tests;
+
+/// <summary>Linear-interpolation quantiles (numpy's default percentile definition; values worked by hand).</summary>
+public class QuantilesTests
+{
+    [Fact]
+    public void MatchesHandWorkedValues()
+    {
+        Assert.Equal(2.5, Quantiles.Median([4, 1, 3, 2]));
+        Assert.Equal(3, Quantiles.Median([5, 1, 3]));
+        // 1..20 at q = 0.95: position 0.95 × 19 = 18.05 → 19 + 0.05 × (20 − 19) = 19.05
+        Assert.Equal(19.05, Quantiles.Of(Enumerable.Range(1, 20).Select(i => (double)i), 0.95), 12);
+        Assert.True(double.IsNaN(Quantiles.Median([])));
+    }
+}
