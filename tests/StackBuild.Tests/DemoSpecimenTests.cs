@@ -1,4 +1,3 @@
-using System.Diagnostics;
 using System.Globalization;
 using System.Text.Json;
 using SixLabors.ImageSharp;
@@ -188,7 +187,7 @@ public class DemoSpecimenTests(DemoSpecimenFixture fixture) : IClassFixture<Demo
                 File.WriteAllBytes(Path.Combine(planes, $"plane_{s.Number:000}.f32"), bytes);
             }
             var script = Path.Combine(AppContext.BaseDirectory, "tools", "demo_check_transform.py");
-            var (code, output, error) = RunPython(script, [fixture.Folder, planes, .. picks.Select(s => s.Number.ToString(CultureInfo.InvariantCulture))]);
+            var (code, output, error) = NiftiPython.Process(NiftiPython.Python, [script, fixture.Folder, planes, .. picks.Select(s => s.Number.ToString(CultureInfo.InvariantCulture))]);
             Assert.True(code == 0, $"the scipy check did not run (are python3-scipy and python3-skimage installed?): {error}");
             var results = output.Split('\n', StringSplitOptions.RemoveEmptyEntries).Select(l => JsonDocument.Parse(l).RootElement).ToList();
             Assert.Equal(picks.Count, results.Count);
@@ -380,17 +379,5 @@ public class DemoSpecimenTests(DemoSpecimenFixture fixture) : IClassFixture<Demo
         var list = values.ToList();
         double mean = list.Average();
         return Math.Sqrt(list.Sum(v => (v - mean) * (v - mean)) / list.Count);
-    }
-
-    private static (int Code, string Output, string Error) RunPython(string script, string[] args)
-    {
-        var start = new ProcessStartInfo("/usr/bin/python3") { RedirectStandardOutput = true, RedirectStandardError = true };
-        start.ArgumentList.Add(script);
-        foreach (var a in args) start.ArgumentList.Add(a);
-        using var process = Process.Start(start) ?? throw new InvalidOperationException("could not start /usr/bin/python3");
-        var output = process.StandardOutput.ReadToEndAsync();
-        var error = process.StandardError.ReadToEndAsync();
-        process.WaitForExit();
-        return (process.ExitCode, output.Result, error.Result);
     }
 }

@@ -1,4 +1,3 @@
-using System.Diagnostics;
 using System.Globalization;
 using StackBuild.Evaluate;
 using StackBuild.Geometry;
@@ -58,14 +57,8 @@ public sealed class UncertaintyTests(ITestOutputHelper output)
         static double[] Parse(string s) => s.Split(',').Select(v => double.Parse(v, CultureInfo.InvariantCulture)).ToArray();
         double ours = Uncertainty.Spearman(Parse(a), Parse(b));
         // Reference: scipy.stats.spearmanr (Debian python3-scipy).
-        var psi = new ProcessStartInfo("/usr/bin/python3") { RedirectStandardOutput = true, RedirectStandardError = true };
-        psi.ArgumentList.Add(Path.Combine(AppContext.BaseDirectory, "tools", "spearman.py"));
-        psi.ArgumentList.Add(a);
-        psi.ArgumentList.Add(b);
-        using var p = Process.Start(psi)!;
-        string stdout = p.StandardOutput.ReadToEnd(), stderr = p.StandardError.ReadToEnd();
-        p.WaitForExit();
-        Assert.True(p.ExitCode == 0, $"python3-scipy is needed (apt-get install -y python3-scipy): {stderr}");
+        var (exit, stdout, stderr) = NiftiPython.Process(NiftiPython.Python, [NiftiPython.Tool("spearman.py"), a, b]);
+        Assert.True(exit == 0, $"python3-scipy is needed (apt-get install -y python3-scipy): {stderr}");
         Assert.Equal(double.Parse(stdout.Trim(), CultureInfo.InvariantCulture), ours, 12);
     }
 
