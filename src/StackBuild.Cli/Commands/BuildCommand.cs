@@ -65,7 +65,7 @@ public static class BuildCommand
             var result = BuildPipeline.Run(options, new SyncProgress(console));
             console.EndProgress();
             BuildWriter.Write(result, paths);
-            Report(console, result, paths, parse.GetValue(json));
+            Report(console, result, paths, parse.GetValue(json), alignRequested: options.Align);
             return CliOutput.ExitOk;
         }));
         return command;
@@ -76,7 +76,7 @@ public static class BuildCommand
         public void Report(string value) => console.Progress(value);
     }
 
-    private static void Report(CliOutput console, BuildResult result, BuildOutputPaths paths, bool json)
+    private static void Report(CliOutput console, BuildResult result, BuildOutputPaths paths, bool json, bool alignRequested)
     {
         var r = result.Record;
         var counts = r.Sections.GroupBy(s => s.Status).ToDictionary(g => g.Key, g => g.Count());
@@ -108,7 +108,7 @@ public static class BuildCommand
         if (doubtful.Count > 0)
             o.WriteLine($"Check    {string.Join(", ", doubtful.Select(s => $"section {s.Number} (confidence {s.Confidence:0.00})"))}: placed, but the match with its neighbour was weak");
         foreach (var w in r.Warnings) o.WriteLine($"warning: {w}");
-        if (!r.Aligned && r.Sections.Count(s => s.Status == "placed") > 1)
+        if (!alignRequested)
             o.WriteLine("Note: sections were placed centred and NOT aligned (--no-align); this volume shows the series as scanned.");
     }
 
