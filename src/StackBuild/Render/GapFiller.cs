@@ -58,8 +58,9 @@ public static class GapFiller
     public sealed record FlowOptions
     {
         /// <summary>
-        /// Smoothness weight α, for intensities scaled to unit robust spread (p95 − p5 of the pair). Set on the
-        /// measurements in GapFillTests (MRI template planes and the demo phantom).
+        /// Smoothness weight α, for intensities scaled to unit robust spread (p95 − p5 of the pair). Chosen on the
+        /// measurements of GapFillTests (2026-12-02, symmetric flow, quadratic terms): α = 0.5 and 0.7 filled best;
+        /// 0.25 was 3–5 % worse than 0.5 on MRI, 0.15 and 0.08 worse than linear blending on single MRI planes.
         /// </summary>
         public double Alpha { get; init; } = 0.5;
         public int IterationsPerWarp { get; init; } = 40;
@@ -69,13 +70,21 @@ public static class GapFiller
         /// <summary>
         /// ε of the robust (Charbonnier) data penalty √(r² + ε²) of <see cref="SymmetricFlow"/>, in the same scaled
         /// units; residuals much larger than ε (tissue that appears or ends between the sections) pull on the field
-        /// with weight ε/|r| instead of 1. 0 gives the quadratic data term of Horn–Schunck.
+        /// with weight ε/|r| instead of 1. 0 gives the quadratic data term of Horn–Schunck. Off by default: measured
+        /// with GapFillTests, ε = 0.02, 0.05 and 0.2 all filled slightly worse than the quadratic term (MRI runs of
+        /// three planes: 18–21.5 % below linear against 23 %).
         /// </summary>
-        public double RobustEpsilon { get; init; } = 0.05;
-        /// <summary>Side of the median filter applied to the field after each warp of <see cref="SymmetricFlow"/> (0 or 1: none).</summary>
-        public int MedianSide { get; init; } = 5;
-        /// <summary>σ in pixels of a Gaussian applied to both planes before the field is estimated (0: none); the blend uses the unsmoothed planes.</summary>
-        public double PreSmoothSigma { get; init; } = 1.0;
+        public double RobustEpsilon { get; init; }
+        /// <summary>
+        /// Side of the median filter applied to the field after each warp of <see cref="SymmetricFlow"/> (0 or 1: none).
+        /// Off by default: 3 and 5 made no measurable difference in GapFillTests and cost time.
+        /// </summary>
+        public int MedianSide { get; init; }
+        /// <summary>
+        /// σ in pixels of a Gaussian applied to both planes before the field is estimated (0: none); the blend uses the
+        /// unsmoothed planes. Off by default: σ = 1 filled MRI single planes worse (6.3 % against 8 % below linear).
+        /// </summary>
+        public double PreSmoothSigma { get; init; }
     }
 
     /// <summary>
