@@ -18,29 +18,38 @@ public static class GapFiller
 {
     /// <summary>
     /// The plane at fraction <paramref name="t"/> (0 = <paramref name="below"/>, 1 = <paramref name="above"/>) between two
-    /// planes of <paramref name="width"/> × <paramref name="height"/> voxels. <see cref="GapFill.Flow"/> computes the
-    /// displacement field u from below to above (below(x) ≈ above(x + u)) by <see cref="HornSchunck"/> and blends
-    /// below(x − t·u) and above(x + (1 − t)·u), so structure that moves between the sections moves part of the way
-    /// instead of showing twice; <see cref="GapFill.Linear"/> blends (1 − t)·below + t·above.
+    /// planes of <paramref name="width"/> × <paramref name="height"/> voxels. <see cref="GapFill.Linear"/> (and
+    /// <see cref="GapFill.None"/>) blend (1 − t)·below + t·above. <see cref="GapFill.Flow"/> finds one displacement field d
+    /// on the grid of the missing plane itself (<see cref="SymmetricFlow"/>), so that below(x − t·d) ≈ above(x + (1 − t)·d),
+    /// and blends those two warped planes with the same weights: structure that moves between the sections moves part
+    /// of the way instead of showing twice, and both neighbours are warped by the same field. A flat or empty pair
+    /// gives the linear blend; the result never holds NaN for finite input. <paramref name="t"/> is clamped to [0, 1].
     /// </summary>
-    public static float[] Interpolate(ReadOnlySpan<float> below, ReadOnlySpan<float> above, int width, int height, double t, GapFill method)
+    public static float[] Interpolate(ReadOnlySpan<float> below, ReadOnlySpan<float> above, int width, int height, double t, GapFill method) =>
+        Interpolate(below, above, width, height, t, method, new FlowOptions());
+
+    /// <inheritdoc cref="Interpolate(ReadOnlySpan{float}, ReadOnlySpan{float}, int, int, double, GapFill)"/>
+    public static float[] Interpolate(ReadOnlySpan<float> below, ReadOnlySpan<float> above, int width, int height, double t, GapFill method, FlowOptions options)
     {
-        var a = new GrayImage(width, height, below.ToArray());
-        var b = new GrayImage(width, height, above.ToArray());
+        if (width <= 0 || height <= 0 || below.Length != width * height || above.Length != width * height)
+            throw new ArgumentException($"Both planes must hold {width} × {height} values.");
+        t = double.IsNaN(t) ? 0.5 : Math.Clamp(t, 0, 1);
         var result = new float[width * height];
         float wa = (float)(1 - t), wb = (float)t;
-        if (method != GapFill.Flow)
+        if (method != GapFill.Flow || t == 0 || t == 1)
         {
-            for (int i = 0; i < result.Length; i++) result[i] = wa * a.Pixels[i] + wb * b.Pixels[i];
+            for (int i = 0; i < result.Length; i++) result[i] = wa * below[i] + wb * above[i];
             return result;
         }
-        var (u, v) = HornSchunck(a, b, new FlowOptions());
+        var a = new GrayImage(width, height, below.ToArray());
+        var b = new GrayImage(width, height, above.ToArray());
+        var (u, v) = SymmetricFlow(a, b, t, options);
         for (int y = 0; y < height; y++)
         for (int x = 0; x < width; x++)
         {
             int i = y * width + x;
-            float fromA = a.SampleBilinear(x - t * u[i], y - t * v[i], a.Pixels[i]);
-            float fromB = b.SampleBilinear(x + (1 - t) * u[i], y + (1 - t) * v[i], b.Pixels[i]);
+            float fromA = SampleClamped(a, x - t * u[i], y - t * v[i]);
+            float fromB = SampleClamped(b, x + (1 - t) * u[i], y + (1 - t) * v[i]);
             result[i] = wa * fromA + wb * fromB;
         }
         return result;
@@ -49,14 +58,222 @@ public static class GapFiller
     public sealed record FlowOptions
     {
         /// <summary>
-        /// Smoothness weight α of Horn–Schunck, for intensities scaled to unit robust spread (p95 − p5). Set on the
-        /// demo phantom's aligned planes: smaller values (0.1, 0.03) fitted texture noise and filled worse than blending.
+        /// Smoothness weight α, for intensities scaled to unit robust spread (p95 − p5 of the pair). Chosen on the
+        /// measurements of GapFillTests (2026-12-02, symmetric flow, quadratic terms): α = 0.5 and 0.7 filled best;
+        /// 0.25 was 3–5 % worse than 0.5 on MRI, 0.15 and 0.08 worse than linear blending on single MRI planes.
         /// </summary>
         public double Alpha { get; init; } = 0.5;
         public int IterationsPerWarp { get; init; } = 40;
         public int WarpsPerLevel { get; init; } = 2;
         /// <summary>The coarsest pyramid level has at least this many pixels on its short side.</summary>
         public int CoarsestSide { get; init; } = 24;
+        /// <summary>
+        /// ε of the robust (Charbonnier) data penalty √(r² + ε²) of <see cref="SymmetricFlow"/>, in the same scaled
+        /// units; residuals much larger than ε (tissue that appears or ends between the sections) pull on the field
+        /// with weight ε/|r| instead of 1. 0 gives the quadratic data term of Horn–Schunck. Off by default: measured
+        /// with GapFillTests, ε = 0.02, 0.05 and 0.2 all filled slightly worse than the quadratic term (MRI runs of
+        /// three planes: 18–21.5 % below linear against 23 %).
+        /// </summary>
+        public double RobustEpsilon { get; init; }
+        /// <summary>
+        /// Side of the median filter applied to the field after each warp of <see cref="SymmetricFlow"/> (0 or 1: none).
+        /// Off by default: 3 and 5 made no measurable difference in GapFillTests and cost time.
+        /// </summary>
+        public int MedianSide { get; init; }
+        /// <summary>
+        /// σ in pixels of a Gaussian applied to both planes before the field is estimated (0: none); the blend uses the
+        /// unsmoothed planes. Off by default: σ = 1 filled MRI single planes worse (6.3 % against 8 % below linear).
+        /// </summary>
+        public double PreSmoothSigma { get; init; }
+    }
+
+    /// <summary>
+    /// One displacement field d = (u, v) in pixels, on the grid of the plane at fraction <paramref name="t"/> between
+    /// <paramref name="a"/> (t = 0) and <paramref name="b"/> (t = 1), with a(x − t·d) ≈ b(x + (1 − t)·d): the symmetric
+    /// ("mid-point") form of the two-frame flow problem, so that neither neighbour is the reference and both are warped
+    /// by one field. Energy: Σ ψ((b(x + (1 − t)d) − a(x − t·d))²) + α² Σ |∇d|², with ψ(s²) = √(s² + ε²) the robust
+    /// Charbonnier penalty and its minimisation by warping on a coarse-to-fine pyramid with lagged weights as in
+    /// Brox, Bruhn, Papenberg &amp; Weickert 2004 (ECCV, LNCS 3024:25, "High accuracy optical flow estimation based on
+    /// a theory for warping"); the quadratic smoothness term and the Jacobi-type update are those of Horn &amp;
+    /// Schunck 1981 (Artif. Intell. 17:185); the median filter of the field after each warp follows Sun, Roth &amp;
+    /// Black 2010 (CVPR, "Secrets of optical flow estimation and their principles"). References from memory.
+    /// Interpolating a missing slice along such a field is registration-based slice interpolation (Penney, Schnabel,
+    /// Rueckert et al. 2004, IEEE TMI 23:922, from memory). Returns zero flow for flat images.
+    /// </summary>
+    public static (float[] U, float[] V) SymmetricFlow(GrayImage a, GrayImage b, double t, FlowOptions options)
+    {
+        double spread = Spread(a.Pixels, b.Pixels);
+        var na = Scaled(a, spread);
+        var nb = Scaled(b, spread);
+        if (options.PreSmoothSigma > 0)
+        {
+            na = Gaussian(na, options.PreSmoothSigma);
+            nb = Gaussian(nb, options.PreSmoothSigma);
+        }
+        var pyramidA = new List<GrayImage> { na };
+        var pyramidB = new List<GrayImage> { nb };
+        while (Math.Min(pyramidA[^1].Width, pyramidA[^1].Height) / 2 >= options.CoarsestSide)
+        {
+            pyramidA.Add(Half(pyramidA[^1]));
+            pyramidB.Add(Half(pyramidB[^1]));
+        }
+        float[] u = new float[pyramidA[^1].Pixels.Length], v = new float[u.Length];
+        for (int level = pyramidA.Count - 1; level >= 0; level--)
+        {
+            var la = pyramidA[level];
+            var lb = pyramidB[level];
+            if (level < pyramidA.Count - 1)
+                (u, v) = Upsample(u, v, pyramidA[level + 1].Width, pyramidA[level + 1].Height, la.Width, la.Height);
+            var (ax, ay) = Gradients(la);
+            var (bx, by) = Gradients(lb);
+            for (int warp = 0; warp < options.WarpsPerLevel; warp++)
+            {
+                RefineSymmetric(la, lb, ax, ay, bx, by, t, u, v, options);
+                if (options.MedianSide > 1)
+                {
+                    u = Median(u, la.Width, la.Height, options.MedianSide);
+                    v = Median(v, la.Width, la.Height, options.MedianSide);
+                }
+            }
+        }
+        for (int i = 0; i < u.Length; i++)
+            if (!float.IsFinite(u[i]) || !float.IsFinite(v[i])) { u[i] = 0; v[i] = 0; }
+        return (u, v);
+    }
+
+    /// <summary>One linearisation of the symmetric problem about the current field, then the iteration for the increment.</summary>
+    private static void RefineSymmetric(GrayImage a, GrayImage b, GrayImage ax, GrayImage ay, GrayImage bx, GrayImage by,
+        double t, float[] u, float[] v, FlowOptions options)
+    {
+        int w = a.Width, h = a.Height, n = w * h;
+        var gx = new float[n];
+        var gy = new float[n];
+        var it = new float[n];
+        float ta = (float)t, tb = (float)(1 - t);
+        for (int y = 0; y < h; y++)
+        for (int x = 0; x < w; x++)
+        {
+            int i = y * w + x;
+            double xa = x - t * u[i], ya = y - t * v[i], xb = x + (1 - t) * u[i], yb = y + (1 - t) * v[i];
+            // d/dd [b(x + (1 − t)d) − a(x − t·d)] = (1 − t)∇b + t∇a at the warped positions.
+            gx[i] = tb * SampleClamped(bx, xb, yb) + ta * SampleClamped(ax, xa, ya);
+            gy[i] = tb * SampleClamped(by, xb, yb) + ta * SampleClamped(ay, xa, ya);
+            it[i] = SampleClamped(b, xb, yb) - SampleClamped(a, xa, ya);
+        }
+        var du = new float[n];
+        var dv = new float[n];
+        var nu = new float[n];
+        var nv = new float[n];
+        var weight = new float[n];
+        Array.Fill(weight, 1f);
+        float alpha2 = (float)(options.Alpha * options.Alpha);
+        float eps = (float)options.RobustEpsilon;
+        int lag = Math.Max(1, options.IterationsPerWarp / 4);
+        for (int iteration = 0; iteration < options.IterationsPerWarp; iteration++)
+        {
+            if (eps > 0 && iteration % lag == 0)
+                for (int i = 0; i < n; i++)
+                {
+                    float r = it[i] + gx[i] * du[i] + gy[i] * dv[i];
+                    weight[i] = eps / MathF.Sqrt(r * r + eps * eps);
+                }
+            for (int y = 0; y < h; y++)
+            for (int x = 0; x < w; x++)
+            {
+                int i = y * w + x;
+                int xl = Math.Max(0, x - 1), xr = Math.Min(w - 1, x + 1), yu = Math.Max(0, y - 1), yd = Math.Min(h - 1, y + 1);
+                float mu = 0.25f * (du[y * w + xl] + du[y * w + xr] + du[yu * w + x] + du[yd * w + x]
+                                    + u[y * w + xl] + u[y * w + xr] + u[yu * w + x] + u[yd * w + x]) - u[i];
+                float mv = 0.25f * (dv[y * w + xl] + dv[y * w + xr] + dv[yu * w + x] + dv[yd * w + x]
+                                    + v[y * w + xl] + v[y * w + xr] + v[yu * w + x] + v[yd * w + x]) - v[i];
+                float wi = weight[i];
+                float k = wi * (gx[i] * mu + gy[i] * mv + it[i]) / (alpha2 + wi * (gx[i] * gx[i] + gy[i] * gy[i]));
+                nu[i] = mu - gx[i] * k;
+                nv[i] = mv - gy[i] * k;
+            }
+            (du, nu) = (nu, du);
+            (dv, nv) = (nv, dv);
+        }
+        for (int i = 0; i < n; i++) { u[i] += du[i]; v[i] += dv[i]; }
+    }
+
+    /// <summary>Central differences (one-sided at the border).</summary>
+    private static (GrayImage X, GrayImage Y) Gradients(GrayImage image)
+    {
+        int w = image.Width, h = image.Height;
+        var gx = new GrayImage(w, h);
+        var gy = new GrayImage(w, h);
+        for (int y = 0; y < h; y++)
+        for (int x = 0; x < w; x++)
+        {
+            int xl = Math.Max(0, x - 1), xr = Math.Min(w - 1, x + 1), yu = Math.Max(0, y - 1), yd = Math.Min(h - 1, y + 1);
+            gx.Pixels[y * w + x] = (image.Pixels[y * w + xr] - image.Pixels[y * w + xl]) / Math.Max(1, xr - xl);
+            gy.Pixels[y * w + x] = (image.Pixels[yd * w + x] - image.Pixels[yu * w + x]) / Math.Max(1, yd - yu);
+        }
+        return (gx, gy);
+    }
+
+    /// <summary>Bilinear sample with positions outside the image moved to its nearest edge (no made-up zeros at the border).</summary>
+    private static float SampleClamped(GrayImage image, double x, double y)
+    {
+        int w = image.Width, h = image.Height;
+        if (!double.IsFinite(x) || !double.IsFinite(y)) return image.Pixels[0];
+        double fx = Math.Clamp(x, 0, w - 1), fy = Math.Clamp(y, 0, h - 1);
+        int x0 = Math.Min((int)fx, Math.Max(0, w - 2)), y0 = Math.Min((int)fy, Math.Max(0, h - 2));
+        int x1 = Math.Min(x0 + 1, w - 1), y1 = Math.Min(y0 + 1, h - 1);
+        float tx = (float)(fx - x0), ty = (float)(fy - y0);
+        var p = image.Pixels;
+        float top = p[y0 * w + x0] + (p[y0 * w + x1] - p[y0 * w + x0]) * tx;
+        float bottom = p[y1 * w + x0] + (p[y1 * w + x1] - p[y1 * w + x0]) * tx;
+        return top + (bottom - top) * ty;
+    }
+
+    /// <summary>Square median filter of side <paramref name="side"/> (odd), the window cut at the border.</summary>
+    private static float[] Median(float[] field, int w, int h, int side)
+    {
+        int r = side / 2;
+        var result = new float[field.Length];
+        var window = new float[side * side];
+        for (int y = 0; y < h; y++)
+        for (int x = 0; x < w; x++)
+        {
+            int m = 0;
+            for (int yy = Math.Max(0, y - r); yy <= Math.Min(h - 1, y + r); yy++)
+            for (int xx = Math.Max(0, x - r); xx <= Math.Min(w - 1, x + r); xx++)
+                window[m++] = field[yy * w + xx];
+            var span = window.AsSpan(0, m);
+            span.Sort();
+            result[y * w + x] = (m & 1) == 1 ? span[m / 2] : 0.5f * (span[m / 2 - 1] + span[m / 2]);
+        }
+        return result;
+    }
+
+    /// <summary>Separable Gaussian blur (kernel cut at 3σ, edges clamped).</summary>
+    private static GrayImage Gaussian(GrayImage image, double sigma)
+    {
+        int r = Math.Max(1, (int)Math.Ceiling(3 * sigma));
+        var kernel = new float[2 * r + 1];
+        double sum = 0;
+        for (int i = -r; i <= r; i++) sum += kernel[i + r] = (float)Math.Exp(-i * i / (2 * sigma * sigma));
+        for (int i = 0; i < kernel.Length; i++) kernel[i] = (float)(kernel[i] / sum);
+        int w = image.Width, h = image.Height;
+        var tmp = new float[w * h];
+        var result = new GrayImage(w, h);
+        for (int y = 0; y < h; y++)
+        for (int x = 0; x < w; x++)
+        {
+            float s = 0;
+            for (int k = -r; k <= r; k++) s += kernel[k + r] * image.Pixels[y * w + Math.Clamp(x + k, 0, w - 1)];
+            tmp[y * w + x] = s;
+        }
+        for (int y = 0; y < h; y++)
+        for (int x = 0; x < w; x++)
+        {
+            float s = 0;
+            for (int k = -r; k <= r; k++) s += kernel[k + r] * tmp[Math.Clamp(y + k, 0, h - 1) * w + x];
+            result.Pixels[y * w + x] = s;
+        }
+        return result;
     }
 
     /// <summary>
