@@ -170,6 +170,28 @@ public sealed class OutputFrameTests(OutputFrameFixture fixture, ITestOutputHelp
     }
 
     [Fact]
+    public void VoxelSizeResamplesThePlanesAndKeepsTheTissueCentre()
+    {
+        var native = fixture.Default;
+        var fine = BuildPipeline.Run(new BuildOptions { Input = fixture.Series, VoxelSizeUm = 25 });
+        output.WriteLine($"native {native.Volume.Nx}×{native.Volume.Ny}×{native.Volume.Nz}, 25 µm {fine.Volume.Nx}×{fine.Volume.Ny}×{fine.Volume.Nz}; {fine.Record.Parameters["z_resampling"]}");
+        // 50 µm sections resampled to 25 µm planes: 2·Nz − 1 planes, isotropic 25 µm voxels (in-plane from --voxel-size too).
+        Assert.Equal(2 * native.Volume.Nz - 1, fine.Volume.Nz);
+        Assert.Equal(new[] { 0.025, 0.025, 0.025 }, fine.Record.VoxelSizeMm.Select(v => Math.Round(v, 9)));
+        Assert.StartsWith("flow", fine.Record.Parameters["z_resampling"]);
+        foreach (var s in fine.Record.Sections) Assert.Equal(2.0 * s.ZIndex, s.VolumeZ!.Value, 9);
+        // The tissue centre stays at world (0, 0, 0): the middle of the stack along k is the same place in both.
+        var a = Affine.FromRows(native.Record.Affine[0], native.Record.Affine[1], native.Record.Affine[2]);
+        var b = Affine.FromRows(fine.Record.Affine[0], fine.Record.Affine[1], fine.Record.Affine[2]);
+        var boxA = native.Record.Frame!.TissueBoxVoxels!;
+        var boxB = fine.Record.Frame!.TissueBoxVoxels!;
+        var p = a.Apply((boxA[0] + boxA[2]) / 2, (boxA[1] + boxA[3]) / 2, (native.Volume.Nz - 1) / 2.0);
+        var q = b.Apply((boxB[0] + boxB[2]) / 2, (boxB[1] + boxB[3]) / 2, (fine.Volume.Nz - 1) / 2.0);
+        Assert.Equal((0.0, 0.0, 0.0), (Math.Round(p.X, 9), Math.Round(p.Y, 9), Math.Round(p.Z, 9)));
+        Assert.Equal((0.0, 0.0, 0.0), (Math.Round(q.X, 9), Math.Round(q.Y, 9), Math.Round(q.Z, 9)));
+    }
+
+    [Fact]
     public void PointInTheAffineMovesOnlyTheTranslation()
     {
         var a = Affine.FromAxes(AxisCodes.Default, 0.02, 0.02, 0.05, 100, 80, 10);

@@ -24,6 +24,7 @@ public static class BuildCommand
         var spacing = new Option<double?>("--spacing") { Description = "Distance between consecutive section numbers in µm (overrides the manifest)" };
         var axes = new Option<string>("--axes") { Description = "Axis codes for (image right, image down, increasing section number), e.g. RIP", DefaultValueFactory = _ => AxisCodes.Default.Code };
         var outPixel = new Option<double?>("--output-pixel-size") { Description = "In-plane voxel size of the volume in µm (default: the input pixel size, coarsened so a plane is at most 2048 voxels)" };
+        var voxelSize = new Option<double?>("--voxel-size") { Description = "Voxel size of the volume in µm: the plane spacing (planes between sections interpolated like the gaps) and, unless --output-pixel-size is given, the in-plane size" };
         var channel = new Option<string>("--channel") { Description = "How colour images become gray: luminance, red, green or blue", DefaultValueFactory = _ => "luminance" };
         var interpolation = new Option<string>("--interpolation") { Description = "Resampling: bilinear or bicubic", DefaultValueFactory = _ => "bilinear" };
         var smoothing = new Option<double>("--smoothing") { Description = "Solve all placements from every neighbour pair with outlier rejection: the smoothness strength (0 = pairs only; negative, the default, = plain neighbour chain)", DefaultValueFactory = _ => new SmoothingOptions().Strength };
@@ -43,7 +44,7 @@ public static class BuildCommand
             "Example:\n  stackbuild build demo-series -o demo-volume.nii.gz")
         {
             series, output, manifest, pixelSize, spacing, axes, reference, rotate, mirror, noCrop, margin, centre,
-            outPixel, channel, interpolation, noAlign, workSize, minConfidence, smoothing, fill, json,
+            outPixel, voxelSize, channel, interpolation, noAlign, workSize, minConfidence, smoothing, fill, json,
         };
         command.SetAction(parse => console.Guard(() =>
         {
@@ -62,6 +63,7 @@ public static class BuildCommand
                 },
                 Axes = axisCodes,
                 OutputPixelSizeUm = Positive(parse.GetValue(outPixel), "--output-pixel-size"),
+                VoxelSizeUm = Positive(parse.GetValue(voxelSize), "--voxel-size"),
                 Channel = ParseChannel(parse.GetValue(channel)!),
                 Interpolation = ParseInterpolation(parse.GetValue(interpolation)!),
                 Align = !parse.GetValue(noAlign),

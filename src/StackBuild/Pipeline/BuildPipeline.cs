@@ -20,6 +20,8 @@ public sealed record BuildOptions
     public AxisCodes Axes { get; init; } = AxisCodes.Default;
     /// <summary>In-plane voxel size of the output in µm; null = the series' pixel size, coarsened to fit <see cref="MaxPlaneSide"/>.</summary>
     public double? OutputPixelSizeUm { get; init; }
+    /// <summary>Plane spacing of the output in µm (also the in-plane voxel size when <see cref="OutputPixelSizeUm"/> is not given); null = the section spacing.</summary>
+    public double? VoxelSizeUm { get; init; }
     /// <summary>Largest side of an output plane, in voxels, when the voxel size is chosen automatically.</summary>
     public int MaxPlaneSide { get; init; } = 2048;
     public Interpolation Interpolation { get; init; } = Interpolation.Bilinear;
@@ -68,8 +70,8 @@ public static class BuildPipeline
         int bits = present.Max(s => s.Image!.BitsPerChannel);
         double maxValue = bits > 8 ? 65535 : 255;
         double largestUm = present.Max(s => Math.Max(s.Image!.Width, s.Image!.Height) * s.PixelSizeUm);
-        double outUm = options.OutputPixelSizeUm ?? series.PixelSizeUm;
-        if (options.OutputPixelSizeUm is null && largestUm / outUm > options.MaxPlaneSide)
+        double outUm = options.OutputPixelSizeUm ?? options.VoxelSizeUm ?? series.PixelSizeUm;
+        if (options.OutputPixelSizeUm is null && options.VoxelSizeUm is null && largestUm / outUm > options.MaxPlaneSide)
             outUm = largestUm / options.MaxPlaneSide;
 
         // 1. Registration images: every section at one common pixel size, about WorkSize on the long side.
@@ -282,6 +284,17 @@ public static class BuildPipeline
                 records[r] = record with { Filled = fillMethod == GapFill.Flow ? "flow" : "linear", FilledFrom = [from, to] };
             }
         }
+        // A requested plane spacing: resample along the sections with the same interpolation as the gaps.
+        string zResampling = "none";
+        if (options.VoxelSizeUm is double voxelUm && Math.Abs(voxelUm - series.SpacingUm) > 1e-9 * voxelUm)
+        {
+            var method = aligned && options.Fill != GapFill.None ? options.Fill : GapFill.Linear;
+            volume = ZResampler.ResampleZ(volume, voxelUm / 1000, method);
+            affine = volume.Affine;
+            nz = volume.Nz;
+            zResampling = $"{method.ToString().ToLowerInvariant()}, {Num(series.SpacingUm)} µm → {Num(voxelUm)} µm";
+            for (int r = 0; r < records.Count; r++) records[r] = records[r] with { VolumeZ = records[r].ZIndex * series.SpacingUm / voxelUm };
+        }
         RoundInPlace(volume.Voxels, (float)maxValue);
 
         int failed = records.Count(r => r.Status == "failed");
@@ -300,6 +313,7 @@ public static class BuildPipeline
             ["fft"] = Fft2D.ProviderName,
             ["smoothing"] = smoothing is null ? "off" : Num(options.Smoothing.Strength),
             ["fill"] = fillMethod.ToString().ToLowerInvariant(),
+            ["z_resampling"] = zResampling,
         };
         var buildRecord = new BuildRecord
         {

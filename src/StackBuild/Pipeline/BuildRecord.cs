@@ -29,7 +29,10 @@ public sealed record SectionRecord
     [JsonPropertyName("route_disagreement_um")] public double? RouteDisagreementUm { get; init; }
     /// <summary>The best clearly different hypothesis (other mirror or a rotation over 10° away), for close calls.</summary>
     [JsonPropertyName("runner_up")] public HypothesisRecord? RunnerUp { get; init; }
+    /// <summary>The section's plane at the section spacing (sections numbered by position); the volume's own plane index unless --voxel-size resampled it (then see <see cref="VolumeZ"/>).</summary>
     [JsonPropertyName("z_index")] public int ZIndex { get; init; }
+    /// <summary>With --voxel-size: where the section lies along the resampled volume's k axis (fractional plane index).</summary>
+    [JsonPropertyName("volume_z")] public double? VolumeZ { get; init; }
     [JsonPropertyName("position_um")] public double PositionUm { get; init; }
     [JsonPropertyName("pixel_size_um")] public double? PixelSizeUm { get; init; }
     [JsonPropertyName("damaged")] public bool Damaged { get; init; }

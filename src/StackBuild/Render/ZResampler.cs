@@ -25,8 +25,8 @@ public static class ZResampler
     {
         const string option = "--voxel-size";
         if (!double.IsFinite(spacingMm) || spacingMm <= 0)
-            throw new InputProblemException(option, $"the plane spacing {spacingMm} mm is not a positive number",
-                "give the spacing in millimetres as a number greater than 0, e.g. --voxel-size 0.05");
+            throw new InputProblemException(option, $"the plane spacing {spacingMm * 1000} µm is not a positive number",
+                "give the voxel size in µm as a number greater than 0, e.g. --voxel-size 50");
         double original = volume.Affine.VoxelSizes.K;
         if (!double.IsFinite(original) || original <= 0)
             throw new InputProblemException(option, "the volume's plane spacing (the affine's k column) is zero or not a number",
@@ -34,8 +34,8 @@ public static class ZResampler
         double last = (volume.Nz - 1) * original / spacingMm;
         if (!(last + 1 <= BuildPipeline.MaxPlanes))
             throw new InputProblemException(option,
-                $"{spacingMm} mm between planes would give {Math.Floor(last + 1e-9) + 1:0} planes, more than {BuildPipeline.MaxPlanes}",
-                $"give a spacing of at least {(volume.Nz - 1) * original / (BuildPipeline.MaxPlanes - 1):0.######} mm");
+                $"{spacingMm * 1000:0.###} µm between planes would give {Math.Floor(last + 1e-9) + 1:0} planes, more than {BuildPipeline.MaxPlanes}",
+                $"give a voxel size of at least {(volume.Nz - 1) * original * 1000 / (BuildPipeline.MaxPlanes - 1):0.###} µm");
         int count = (int)Math.Floor(last + 1e-9) + 1;
         long plane = (long)volume.Nx * volume.Ny;
         if (plane * count > Array.MaxLength)
