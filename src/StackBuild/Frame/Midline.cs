@@ -15,6 +15,13 @@ public sealed record MidlineOptions
     public double CoarseStepDegrees { get; init; } = 2;
     /// <summary>At most this many sections (those with the most tissue) take part in the coarse search; all take part in the fine one.</summary>
     public int CoarseMaxPlanes { get; init; } = 24;
+    /// <summary>
+    /// σ of the Gaussian whose blur is subtracted from each working image, as a fraction of its long side; 0 = none.
+    /// Without it the bright mass of the tissue overlaps its mirror image about almost any line (an ellipse is
+    /// nearly symmetric about every axis), so all directions score high; with it the inner structure and the
+    /// outline's edge decide. Measured on the ch2 MRI: best 0.98 and rival 0.93 without, 0.88 and 0.53 with 0.05.
+    /// </summary>
+    public double HighPass { get; init; } = 0.05;
     /// <summary>The mirror-correlation a midline needs to count as found.</summary>
     public double MinSymmetry { get; init; } = 0.7;
     /// <summary>How far the best mirror-correlation must lie above that of the best other direction.</summary>
@@ -87,14 +94,14 @@ public static class Midline
             throw new ArgumentException("Weights must be finite and not negative.", nameof(weights));
 
         var chosen = Enumerable.Range(0, planes.Count).Where(i => weights == null || weights[i] > 0).ToList();
-        using var fine = MirrorStack.Prepare(planes, weights, chosen, options.WorkSize);
+        using var fine = MirrorStack.Prepare(planes, weights, chosen, options.WorkSize, options.HighPass);
         if (fine.PlanesUsed == 0)
             return Unclear(width, height, "the sections hold no tissue (they are empty or flat), so there is no midline to find; " + Advice);
 
         // Coarse search over all directions, on small images of the sections with the most tissue.
         var strongest = fine.PlaneIndices.Zip(fine.Strength).OrderByDescending(p => p.Second).Take(Math.Max(1, options.CoarseMaxPlanes))
             .Select(p => p.First).ToList();
-        using var coarse = MirrorStack.Prepare(planes, weights, strongest, options.CoarseWorkSize);
+        using var coarse = MirrorStack.Prepare(planes, weights, strongest, options.CoarseWorkSize, options.HighPass);
         double step = Math.Clamp(options.CoarseStepDegrees, 0.1, 30);
         int count = (int)Math.Ceiling(180 / step);
         var angles = Enumerable.Range(0, count).Select(i => i * 180.0 / count).ToArray();
@@ -102,13 +109,14 @@ public static class Midline
         int best = 0;
         for (int i = 1; i < count; i++) if (coarseScores[i].Value > coarseScores[best].Value) best = i;
 
-        // Refine on the working-size images: a parabola through ±2 coarse steps, then through ±step/8.
+        // Refine: a parabola through ±2 coarse steps on the coarse images, then through ±step/4 and ±step/32 on
+        // the working-size ones.
         double theta = angles[best];
         double delta = 180.0 / count;
-        foreach (double span in new[] { delta, delta / 8 })
+        foreach (var (span, stack) in new[] { (delta, coarse), (delta / 8, fine), (delta / 64, fine) })
         {
             var around = new[] { theta - 2 * span, theta - span, theta, theta + span, theta + 2 * span };
-            var s = fine.Score(around);
+            var s = stack.Score(around);
             int k = 0;
             for (int i = 1; i < s.Length; i++) if (s[i].Value > s[k].Value) k = i;
             k = Math.Clamp(k, 1, 3);

@@ -41,7 +41,8 @@ internal sealed class MirrorStack : IDisposable
         Strength = indices.Select((_, k) => weight[k] * Math.Sqrt(energy[k])).ToArray();
     }
 
-    public static MirrorStack Prepare(IReadOnlyList<GrayImage> planes, IReadOnlyList<double>? weights, IReadOnlyList<int> indices, int workSize)
+    public static MirrorStack Prepare(IReadOnlyList<GrayImage> planes, IReadOnlyList<double>? weights, IReadOnlyList<int> indices, int workSize,
+        double highPass = 0)
     {
         int width = planes[0].Width, height = planes[0].Height;
         var (scale, fullToWork) = Preprocessing.WorkScale(width, height, Math.Max(8, workSize));
@@ -62,6 +63,12 @@ internal sealed class MirrorStack : IDisposable
             var small = Preprocessing.Reduce(clean, scale);
             if (small.Width != w || small.Height != h) small = Resampler.Warp(small, Transform2D.Identity, w, h, 0f);
             float background = BorderMedian(small);
+            if (highPass > 0)
+            {
+                var low = ImageOps.GaussianBlur(small.Pixels, w, h, highPass * Math.Max(w, h));
+                var p = small.Pixels;
+                small = new GrayImage(w, h, p.Select((v, i) => v - low[i] + background).ToArray());
+            }
             var c = new float[n * n];
             double e = 0;
             for (int y = 0; y < h; y++)
