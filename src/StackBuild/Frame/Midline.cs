@@ -60,15 +60,26 @@ public sealed record MidlineResult(double AngleDegrees, double CentreX, double C
 /// Finds the midline of a bilaterally symmetric specimen from its aligned sections by mirror correlation: for
 /// each candidate axis direction θ every section is reflected about a line of direction θ through the image
 /// centre and cross-correlated (by FFT) with itself; the correlation peak gives how far the true axis of that
-/// direction lies from the centre, and its height how symmetric the sections are about it. The correlations
-/// are summed over the stack before the peak is taken (so sections with more tissue count for more, and the
-/// stack is treated as one 3D object with one midsagittal plane perpendicular to the sections). A coarse
-/// search over all directions at low resolution is followed by parabolic refinement at the working size.
-/// This is the symmetry-axis search by correlating a slice with its reflection over candidate angles of
-/// Liu, Collins &amp; Rothfus (2001), "Robust midsagittal plane extraction from normal and pathological 3-D
-/// neuroradiology images", IEEE Trans. Med. Imaging 20(3):175–192, here on grey values instead of edges and
-/// with one axis for the whole stack instead of one per slice followed by a plane fit.
+/// direction lies from the centre (half the peak's shift across the line), and its height how symmetric the
+/// sections are about it. Shifts along the line (glides) are not accepted as symmetry.
+/// This is the symmetry-axis search of Liu, Collins &amp; Rothfus (2001), "Robust midsagittal plane extraction
+/// from normal and pathological 3-D neuroradiology images", IEEE Trans. Med. Imaging 20(3):175–192, which
+/// correlates each slice with its reflection over candidate angles; here on high-passed grey values instead
+/// of edges, and with one axis for the whole stack instead of one per slice followed by a plane fit.
 /// </summary>
+/// <remarks>
+/// <para>Each section is reduced to a working size, its background (median of the outer band) subtracted, a
+/// wide Gaussian blur subtracted (<see cref="MidlineOptions.HighPass"/>) and its edges tapered. The correlation
+/// sums over the stack are normalised by the sections' norms: Σᵢ wᵢ·(Iᵢ ⋆ Jᵢ) / Σᵢ wᵢ·‖Iᵢ‖·‖Jᵢ‖ ∈ [−1, 1], so
+/// sections with more tissue (more signal) count for more, as if the stack were one 3D object whose
+/// midsagittal plane is perpendicular to the sections. A coarse search over [0°, 180°) on small images of the
+/// sections with most tissue is followed by three parabolic refinements, the last two at the working size.</para>
+/// <para>Limits: symmetry cannot tell which end of the midline is up, so a specimen upside down stays upside
+/// down (the smaller of the two rotations is returned). Sections cut parallel to the midsagittal plane have no
+/// midline in the plane; they come out not clear or ambiguous. The default thresholds were set on an MRI brain
+/// template (symmetry ≈ 0.87, rival ≈ 0.50) and synthetic images (random blobs ≈ 0.20), not on stained
+/// sections, whose tears and uneven staining lower the symmetry.</para>
+/// </remarks>
 public static class Midline
 {
     private const string Advice = "leave out --upright or use --rotate";
@@ -96,7 +107,7 @@ public static class Midline
         var chosen = Enumerable.Range(0, planes.Count).Where(i => weights == null || weights[i] > 0).ToList();
         using var fine = MirrorStack.Prepare(planes, weights, chosen, options.WorkSize, options.HighPass);
         if (fine.PlanesUsed == 0)
-            return Unclear(width, height, "the sections hold no tissue (they are empty or flat), so there is no midline to find; " + Advice);
+            return Unclear(width, height, "no section holds tissue with a weight above zero (they are empty or flat), so there is no midline to find; " + Advice);
 
         // Coarse search over all directions, on small images of the sections with the most tissue.
         var strongest = fine.PlaneIndices.Zip(fine.Strength).OrderByDescending(p => p.Second).Take(Math.Max(1, options.CoarseMaxPlanes))
@@ -158,12 +169,16 @@ public static class Midline
                 $"the sections are not symmetric enough to find a midline (symmetry {symmetry:0.00}, needs {options.MinSymmetry:0.00}); {Advice}");
         else if (symmetry - runnerUp < options.MinMargin)
             problem = string.Create(CultureInfo.InvariantCulture,
-                $"the sections are about as symmetric about a line at {AxisToScreen(runnerUpAngle):0}° as about one at {AxisToScreen(theta):0}° (symmetry {runnerUp:0.00} and {symmetry:0.00}), so the midline is ambiguous; {Advice}");
+                $"the sections are about as symmetric about a line tilted {TiltFromVertical(runnerUpAngle):0}° from vertical as about the best one, tilted {TiltFromVertical(theta):0.0}° (symmetry {runnerUp:0.00} against {symmetry:0.00}), so the midline is ambiguous; {Advice}");
         return new MidlineResult(angle, cx, cy, theta, symmetry, runnerUp, problem == null, problem, fine.PlanesUsed);
     }
 
-    /// <summary>An axis direction as a user reads it: degrees from vertical (positive leaning clockwise at the top).</summary>
-    private static double AxisToScreen(double axisDegrees) => axisDegrees - 90;
+    /// <summary>An axis direction as a user reads it: degrees from vertical, in (−90°, 90°].</summary>
+    private static double TiltFromVertical(double axisDegrees)
+    {
+        double d = ((axisDegrees - 90) % 180 + 180) % 180;
+        return d > 90 ? d - 180 : d;
+    }
 
     private static MidlineResult Unclear(int width, int height, string problem) =>
         new(0, (width - 1) / 2.0, (height - 1) / 2.0, 90, 0, 0, false, problem, 0);
