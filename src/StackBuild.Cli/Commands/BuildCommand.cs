@@ -32,6 +32,7 @@ public static class BuildCommand
         var reference = new Option<int?>("--reference") { Description = "Section number whose frame, as it lay on its slide, the volume takes (default: the first section matched confidently)" };
         var rotate = new Option<double>("--rotate") { Description = "Turn the whole volume in the section plane by this many degrees, clockwise as displayed", DefaultValueFactory = _ => 0 };
         var mirror = new Option<bool>("--mirror") { Description = "Mirror the whole volume left-right (after --rotate)" };
+        var upright = new Option<bool>("--upright") { Description = "Turn the volume so the specimen's midline (symmetry axis) is vertical; refused when the sections are not symmetric enough" };
         var noCrop = new Option<bool>("--no-crop") { Description = "Keep every section's whole image in the grid instead of cropping to the tissue" };
         var margin = new Option<double>("--margin") { Description = "Margin around the tissue in µm when cropping", DefaultValueFactory = _ => FrameOptions.DefaultMarginUm };
         var centre = new Option<string>("--centre") { Description = "World position X,Y,Z in mm given to the tissue's centre", DefaultValueFactory = _ => "0,0,0" };
@@ -43,7 +44,7 @@ public static class BuildCommand
         var command = new Command("build", "Rebuild a section series into one NIfTI-1 volume with a sidecar of every section's placement.\n\n" +
             "Example:\n  stackbuild build demo-series -o demo-volume.nii.gz")
         {
-            series, output, manifest, pixelSize, spacing, axes, reference, rotate, mirror, noCrop, margin, centre,
+            series, output, manifest, pixelSize, spacing, axes, reference, upright, rotate, mirror, noCrop, margin, centre,
             outPixel, voxelSize, channel, interpolation, noAlign, workSize, minConfidence, smoothing, fill, json,
         };
         command.SetAction(parse => console.Guard(() =>
@@ -76,6 +77,7 @@ public static class BuildCommand
                     ReferenceSection = parse.GetValue(reference),
                     RotateDegrees = Finite(parse.GetValue(rotate), "--rotate"),
                     Mirror = parse.GetValue(mirror),
+                    Upright = parse.GetValue(upright),
                     CropToTissue = !parse.GetValue(noCrop),
                     MarginUm = NonNegative(parse.GetValue(margin), "--margin"),
                     CentreMm = ParsePoint(parse.GetValue(centre)!, "--centre"),

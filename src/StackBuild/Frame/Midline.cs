@@ -82,7 +82,6 @@ public sealed record MidlineResult(double AngleDegrees, double CentreX, double C
 /// </remarks>
 public static class Midline
 {
-    private const string Advice = "leave out --upright or use --rotate";
 
     /// <summary>
     /// Estimates the midline of <paramref name="planes"/> (all of one size, already aligned to one another).
@@ -95,7 +94,7 @@ public static class Midline
     {
         ArgumentNullException.ThrowIfNull(planes);
         options ??= new MidlineOptions();
-        if (planes.Count == 0) return Unclear(0, 0, "there are no sections to find a midline in; " + Advice);
+        if (planes.Count == 0) return Unclear(0, 0, "there are no sections to find a midline in");
         int width = planes[0].Width, height = planes[0].Height;
         if (planes.Any(p => p.Width != width || p.Height != height))
             throw new ArgumentException("All planes must have the same size (they share one aligned frame).", nameof(planes));
@@ -107,7 +106,7 @@ public static class Midline
         var chosen = Enumerable.Range(0, planes.Count).Where(i => weights == null || weights[i] > 0).ToList();
         using var fine = MirrorStack.Prepare(planes, weights, chosen, options.WorkSize, options.HighPass);
         if (fine.PlanesUsed == 0)
-            return Unclear(width, height, "no section holds tissue with a weight above zero (they are empty or flat), so there is no midline to find; " + Advice);
+            return Unclear(width, height, "no section holds tissue with a weight above zero (they are empty or flat), so there is no midline to find");
 
         // Coarse search over all directions, on small images of the sections with the most tissue.
         var strongest = fine.PlaneIndices.Zip(fine.Strength).OrderByDescending(p => p.Second).Take(Math.Max(1, options.CoarseMaxPlanes))
@@ -166,10 +165,10 @@ public static class Midline
         string? problem = null;
         if (symmetry < options.MinSymmetry)
             problem = string.Create(CultureInfo.InvariantCulture,
-                $"the sections are not symmetric enough to find a midline (symmetry {symmetry:0.00}, needs {options.MinSymmetry:0.00}); {Advice}");
+                $"the sections are not symmetric enough to find a midline (symmetry {symmetry:0.00}, needs {options.MinSymmetry:0.00})");
         else if (symmetry - runnerUp < options.MinMargin)
             problem = string.Create(CultureInfo.InvariantCulture,
-                $"the sections are about as symmetric about a line tilted {TiltFromVertical(runnerUpAngle):0}° from vertical as about the best one, tilted {TiltFromVertical(theta):0.0}° (symmetry {runnerUp:0.00} against {symmetry:0.00}), so the midline is ambiguous; {Advice}");
+                $"the sections are about as symmetric about a line tilted {TiltFromVertical(runnerUpAngle):0}° from vertical as about the best one, tilted {TiltFromVertical(theta):0.0}° (symmetry {runnerUp:0.00} against {symmetry:0.00}), so the midline is ambiguous");
         return new MidlineResult(angle, cx, cy, theta, symmetry, runnerUp, problem == null, problem, fine.PlanesUsed);
     }
 

@@ -128,7 +128,20 @@ public static class BuildPipeline
         }
         var frameImage = working[frameIndex].Image;
         double frameCx = (frameImage.Width - 1) / 2.0, frameCy = (frameImage.Height - 1) / 2.0;
-        var adjustment = OutputFrame.Adjustment(0, options.Frame.RotateDegrees, options.Frame.Mirror, frameCx, frameCy);
+        MidlineResult? midline = null;
+        if (options.Frame.Upright)
+        {
+            if (!aligned)
+                throw new InputProblemException(options.Input, "--upright needs aligned sections (it cannot be combined with --no-align or used on one section)",
+                    "leave out --upright, or turn the volume with --rotate DEG");
+            progress?.Report("upright: finding the midline");
+            midline = FindMidline(working, chain);
+            if (!midline.Clear)
+                throw new InputProblemException(options.Input, $"--upright: {midline.Problem}", "leave out --upright, or turn the volume with --rotate DEG");
+            // Turns and mirror happen about the midline, so it ends on a vertical line through the same point.
+            (frameCx, frameCy) = (midline.CentreX, midline.CentreY);
+        }
+        var adjustment = OutputFrame.Adjustment(midline?.AngleDegrees ?? 0, options.Frame.RotateDegrees, options.Frame.Mirror, frameCx, frameCy);
         if (adjustment != Transform2D.Identity)
         {
             chain = Reexpress(chain, adjustment);
@@ -335,6 +348,13 @@ public static class BuildPipeline
                     ? (aligned ? "the first section matched confidently to its neighbours" : "the first section")
                     : "--reference",
                 FaceFlipped = faceFlipped,
+                Upright = midline is null ? null : new UprightRecord
+                {
+                    AngleDegrees = midline.AngleDegrees,
+                    Symmetry = midline.Symmetry,
+                    RunnerUpSymmetry = midline.RunnerUpSymmetry,
+                    SectionsUsed = midline.PlanesUsed,
+                },
                 RotateDegrees = options.Frame.RotateDegrees,
                 Mirror = options.Frame.Mirror,
                 Crop = cropped ? "tissue" : "canvas",
@@ -348,6 +368,45 @@ public static class BuildPipeline
             Sections = records,
         };
         return new BuildResult(volume, buildRecord, bits);
+    }
+
+    /// <summary>Most sections handed to the midline search (evenly spread over the stack).</summary>
+    private const int MidlineSections = 48;
+
+    /// <summary>
+    /// The specimen's midline in the frame (reference-section working pixels): every placed section's prepared image
+    /// (tissue bright on dark) laid into one canvas holding them all, handed to <see cref="Midline.Estimate"/>.
+    /// </summary>
+    private static MidlineResult FindMidline(List<Working> working, IReadOnlyList<ChainPlacement> chain)
+    {
+        var placed = Enumerable.Range(0, working.Count).Where(n => chain[n].Route != LinkRoute.Failed && working[n].Prepared is not null).ToList();
+        if (placed.Count > MidlineSections)
+            placed = Enumerable.Range(0, MidlineSections).Select(i => placed[(int)Math.Round(i * (placed.Count - 1) / (double)(MidlineSections - 1))]).Distinct().ToList();
+        var box = PlaneBox.Empty;
+        foreach (int n in placed)
+        {
+            var image = working[n].Prepared!.WorkImage;
+            var map = working[n].Prepared!.FullToWork.Inverse().Then(chain[n].ToReference);
+            foreach (var (x, y) in new[] { (-0.5, -0.5), (image.Width - 0.5, -0.5), (-0.5, image.Height - 0.5), (image.Width - 0.5, image.Height - 0.5) })
+            {
+                var p = map.Apply(x, y);
+                box = box.Including(p.X, p.Y);
+            }
+        }
+        int w = Math.Max(1, (int)Math.Ceiling(box.MaxX - box.MinX)), h = Math.Max(1, (int)Math.Ceiling(box.MaxY - box.MinY));
+        var toCanvas = Transform2D.Translation(-box.MinX - 0.5, -box.MinY - 0.5);
+        var planes = new GrayImage[placed.Count];
+        var weights = new double[placed.Count];
+        Parallel.For(0, placed.Count, i =>
+        {
+            var prepared = working[placed[i]].Prepared!;
+            var map = prepared.FullToWork.Inverse().Then(chain[placed[i]].ToReference).Then(toCanvas);
+            planes[i] = Resampler.Warp(prepared.WorkImage, map.Inverse(), w, h, 0f);
+            weights[i] = prepared.TissueFraction;
+        });
+        var result = Midline.Estimate(planes, weights);
+        // Back from the canvas to the frame's own pixels.
+        return result with { CentreX = result.CentreX + box.MinX + 0.5, CentreY = result.CentreY + box.MinY + 0.5 };
     }
 
     /// <summary>Every placement followed by <paramref name="map"/> (the frame changed for all sections at once).</summary>
