@@ -43,7 +43,7 @@ public static class HistogramMutualInformation
     public static (double Low, double High) RobustRange(GrayImage image, double lowFraction = 0.005)
     {
         var pixels = image.Pixels;
-        int step = Math.Max(1, pixels.Length / 65536);
+        int step = Math.Max(1, pixels.Length / 16384);
         var sample = new float[(pixels.Length + step - 1) / step];
         for (int i = 0, j = 0; i < pixels.Length; i += step, j++) sample[j] = pixels[i];
         Array.Sort(sample);

@@ -24,8 +24,12 @@ public sealed record TemplateGuideOptions
     public double AgreementFraction { get; init; } = 0.05;
     /// <summary>A measurement whose similarity is below this is not used (normalised MI − 1).</summary>
     public double MinSimilarity { get; init; } = 0.02;
-    /// <summary>A measurement whose confidence is below this is not used.</summary>
-    public double MinConfidence { get; init; } = 0.1;
+    /// <summary>
+    /// A measurement whose confidence is below this is not used. Off by default: the registration's confidence measures
+    /// how distinct the match is from the section turned by 90°, which is low for round specimens even when the match is
+    /// right; started from the chain, a wrong turn is caught by the deviation test instead.
+    /// </summary>
+    public double MinConfidence { get; init; } = 0;
     /// <summary>Outlier threshold: deviation from the local median course beyond this many robust standard deviations (1.4826·MAD)…</summary>
     public double OutlierMads { get; init; } = 4;
     /// <summary>…and beyond this floor (pixels at working size, degrees), so that a very tidy series does not reject by noise.</summary>
@@ -97,7 +101,7 @@ public static class TemplateGuide
             dx[i] = mx - qx; dy[i] = my - qy;
             if (m.Mirrored != chain[i].IsMirrored) reason[i] = "the template match is mirrored against the chain";
             else if (m.Similarity < options.MinSimilarity) reason[i] = $"similarity {m.Similarity:0.###} below {options.MinSimilarity:0.###}";
-            else if (m.Confidence < options.MinConfidence) reason[i] = $"confidence {m.Confidence:0.###} below {options.MinConfidence:0.###}";
+            else if (options.MinConfidence > 0 && m.Confidence < options.MinConfidence) reason[i] = $"confidence {m.Confidence:0.###} below {options.MinConfidence:0.###}";
             else candidate[i] = true;
         }
 
@@ -128,7 +132,7 @@ public static class TemplateGuide
 
         // (d) Fuse: the smoothed correction applied to the chain placement.
         var weight = new double[n];
-        foreach (int i in usable) if (candidate[i]) weight[i] = Math.Max(measured[i]!.Confidence, 0.05);
+        foreach (int i in usable) if (candidate[i]) weight[i] = 1;
         var sa = Smooth(angle, weight, segment, half); var sx = Smooth(dx, weight, segment, half); var sy = Smooth(dy, weight, segment, half);
         var result = new TemplateSectionPlacement[n];
         for (int i = 0; i < n; i++)

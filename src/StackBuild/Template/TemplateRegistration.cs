@@ -20,7 +20,7 @@ public sealed record TemplateRegistrationOptions
     /// <summary>Smallest shift step of the local search at full size, pixels (the angle step is matched to it at the tissue radius).</summary>
     public double FinalStepPx { get; init; } = 0.05;
     /// <summary>Most samples per measurement at full size (a coarser sampling grid beyond).</summary>
-    public int MaxSamples { get; init; } = 1 << 16;
+    public int MaxSamples { get; init; } = 1 << 14;
 }
 
 /// <summary>A section placed on a template slice.</summary>
