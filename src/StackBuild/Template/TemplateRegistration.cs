@@ -31,7 +31,7 @@ public sealed record TemplateRegistrationOptions
 /// In [0, 1]: how far the match stands above the same placement turned by 90°, 180° and 270° about the tissue centre
 /// (1 − best of those / Similarity, scaled so that 0.5 gives 1; this project's scale). Near 0: no distinct optimum.
 /// </param>
-/// <param name="RunnerUpSimilarity">The best distinct candidate of the global search (another angle or the other mirror), or null after a local search.</param>
+/// <param name="RunnerUpSimilarity">The best distinct candidate of the global search (another angle or the other mirror), measured at half size, or null after a local search.</param>
 /// <param name="Evaluations">Measurements made (for profiling).</param>
 public sealed record TemplateMatch(Transform2D SectionToSlice, double Similarity, double MutualInformation, double Confidence,
     bool Mirrored, double? RunnerUpSimilarity, int Samples, int Evaluations);
@@ -76,12 +76,21 @@ public static class TemplateRegistration
             if (chosen.Any(o => o.Mirrored == c.Pose.Mirrored && AngleGap(o.Degrees, c.Pose.Degrees) < 1.5 * options.GlobalAngleStepDegrees)) continue;
             chosen.Add(c.Pose);
         }
-        var refined = chosen.Select(c => { var p = problem.Refine(c, top, ref evaluations); return (Pose: p, Score: problem.Score(p, 0, ref evaluations)); })
-            .OrderByDescending(r => r.Score).ToList();
+        // Candidates are refined down to the second-finest level and compared there; only the best goes on to full size.
+        int compare = Math.Min(1, top);
+        var refined = new List<(Pose Pose, double Score)>();
+        foreach (var c in chosen)
+        {
+            var p = problem.Refine(c, top, compare, ref evaluations);
+            refined.Add((p, problem.Score(p, compare, ref evaluations)));
+        }
+        refined.Sort((x, y) => y.Score.CompareTo(x.Score));
         var best = refined[0];
+        if (compare > 0) best = (problem.Refine(best.Pose, compare - 1, 0, ref evaluations), 0);
+        best.Score = problem.Score(best.Pose, 0, ref evaluations);
         double? runnerUp = refined.Skip(1).Where(r => r.Pose.Mirrored != best.Pose.Mirrored || AngleGap(r.Pose.Degrees, best.Pose.Degrees) > 5
                                                       || double.Hypot(r.Pose.Dx - best.Pose.Dx, r.Pose.Dy - best.Pose.Dy) > 5)
-            .Select(r => (double?)(r.Score - 1)).FirstOrDefault();
+            .Select(r => (double?)(r.Score - 1)).FirstOrDefault(); // at the comparison level
         return problem.Finish(best.Pose, runnerUp, ref evaluations);
     }
 
@@ -109,6 +118,7 @@ public static class TemplateRegistration
         private readonly int _bins;
         private readonly double _radius;
         private readonly double _finalStep;
+        private readonly double[] _joint;
         private readonly (double X, double Y) _sectionCentre, _sliceCentre;
         public List<Level> Levels { get; } = [];
 
@@ -116,6 +126,7 @@ public static class TemplateRegistration
         {
             _bins = options.Bins;
             _finalStep = options.FinalStepPx;
+            _joint = new double[_bins * _bins];
             var sectionRange = HistogramMutualInformation.RobustRange(section);
             var sliceRange = HistogramMutualInformation.RobustRange(slice);
             _sectionCentre = TissueCentre(section, sectionRange, out double radius);
@@ -164,7 +175,8 @@ public static class TemplateRegistration
             evaluations++;
             var l = Levels[level];
             var map = l.LevelToFull.Then(ToTransform(p)).Then(l.FullToLevel);
-            var joint = new double[_bins * _bins];
+            var joint = _joint;
+            Array.Clear(joint);
             int n = HistogramMutualInformation.Accumulate(l.SectionBins, l.Width, l.Height, l.Slice, l.Slice.Width, l.Slice.Height, map, _bins, joint, l.Stride);
             // Too little overlap cannot be trusted: a placement that leaves the section mostly off the slice scores nothing.
             int possible = ((l.Width + l.Stride - 1) / l.Stride) * ((l.Height + l.Stride - 1) / l.Stride);
@@ -173,9 +185,12 @@ public static class TemplateRegistration
         }
 
         /// <summary>Coarse to fine from <paramref name="fromLevel"/> down to full size.</summary>
-        public Pose Refine(Pose p, int fromLevel, ref int evaluations)
+        public Pose Refine(Pose p, int fromLevel, ref int evaluations) => Refine(p, fromLevel, 0, ref evaluations);
+
+        /// <summary>Coarse to fine from <paramref name="fromLevel"/> down to <paramref name="toLevel"/>.</summary>
+        public Pose Refine(Pose p, int fromLevel, int toLevel, ref int evaluations)
         {
-            for (int level = fromLevel; level >= 0; level--)
+            for (int level = fromLevel; level >= toLevel; level--)
             {
                 double scale = Levels[level].Scale;
                 double startStep = level == fromLevel ? 2 * scale : scale;
