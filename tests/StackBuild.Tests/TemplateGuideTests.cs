@@ -197,4 +197,37 @@ public class TemplateGuideTests(ITestOutputHelper output)
         Assert.True(result.OutlierCount <= 3, $"{result.OutlierCount} outliers");
         Assert.False(result.Mirrored);
     }
+
+    [Fact]
+    public void RigidFitRecoversAKnownMapWithAndWithoutMirror()
+    {
+        // Analytic truth: points moved by a known rigid map (mirrored or not) give that map back.
+        var random = new Random(3);
+        var points = Enumerable.Range(0, 12).Select(_ => (random.NextDouble() * 200, random.NextDouble() * 200)).ToList();
+        foreach (bool mirrored in new[] { false, true })
+        {
+            var truth = Transform2D.Rigid(-37.5, 12.25, -8.5, mirrored);
+            var moved = points.Select(p => truth.Apply(p.Item1, p.Item2)).ToList();
+            var fit = TemplateGuide.FitRigid(points, moved, mirrored);
+            Assert.True(fit.ApproximatelyEquals(truth, 1e-9), $"{fit} vs {truth}");
+        }
+    }
+
+    [Fact]
+    public void CorrectionSmoothingKeepsStraightCoursesAndStopsAtChainBreaks()
+    {
+        // Local linear regression reproduces a straight line exactly (Cleveland 1979), whatever the weights and gaps.
+        int n = 30;
+        var line = Enumerable.Range(0, n).Select(i => 0.7 * i - 3).ToArray();
+        var weights = Enumerable.Range(0, n).Select(i => i % 7 == 3 ? 0.0 : 1 + (i % 3)).ToArray();
+        var smooth = TemplateGuide.Smooth(line, weights, new int[n], 5);
+        for (int i = 0; i < n; i++) Assert.Equal(line[i], smooth[i], 9);
+        // A step at a chain break (segment 1 from section 15) stays a step; without the break it is smeared.
+        var step = Enumerable.Range(0, n).Select(i => i < 15 ? 0.0 : 4.0).ToArray();
+        var ones = Enumerable.Repeat(1.0, n).ToArray();
+        var apart = TemplateGuide.Smooth(step, ones, Enumerable.Range(0, n).Select(i => i < 15 ? 0 : 1).ToArray(), 5);
+        var together = TemplateGuide.Smooth(step, ones, new int[n], 5);
+        for (int i = 0; i < n; i++) Assert.Equal(step[i], apart[i], 9);
+        Assert.True(together[14] > 0.5 && together[15] < 3.5, $"{together[14]}, {together[15]}");
+    }
 }

@@ -46,6 +46,13 @@ public sealed record TemplateMatch(Transform2D SectionToSlice, double Similarity
 /// </summary>
 public static class TemplateRegistration
 {
+    /// <summary>
+    /// Places <paramref name="section"/> on <paramref name="slice"/> (both at the same pixel size). With a
+    /// <paramref name="start"/> (section pixels to slice pixels; its mirror is kept and any scale in it is ignored) the
+    /// search is local, from the coarsest pyramid level (it reaches a few pixels and degrees per level); without one, it
+    /// is global over angles every <see cref="TemplateRegistrationOptions.GlobalAngleStepDegrees"/> and both mirrors.
+    /// When the images share nothing the result has a similarity near 0 and a low confidence; it never throws for content.
+    /// </summary>
     public static TemplateMatch Register(GrayImage section, GrayImage slice, Transform2D? start, TemplateRegistrationOptions? options = null)
     {
         options ??= new TemplateRegistrationOptions();
