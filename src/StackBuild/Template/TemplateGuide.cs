@@ -71,6 +71,12 @@ public sealed record TemplateGuideResult(IReadOnlyList<TemplateSectionPlacement>
 /// </summary>
 public static class TemplateGuide
 {
+    /// <summary>
+    /// Places every section on the template: (a) the reference-to-template map from a consensus of globally searched
+    /// sections, (b) each section registered to its slice from its chain placement, (c) outliers rejected with a reason,
+    /// (d) the smoothed correction applied to the chain. Sections are taken in stack order. With no section that has
+    /// both an image and a slice, the result keeps the chain placements under an identity map (GlobalAgreement 0).
+    /// </summary>
     public static TemplateGuideResult Place(TemplateGuideInput input)
     {
         var options = input.Options ?? new TemplateGuideOptions();
