@@ -1,0 +1,286 @@
+using StackBuild.Geometry;
+using StackBuild.Imaging;
+
+namespace StackBuild.Template;
+
+/// <summary>One section as the template guide sees it.</summary>
+/// <param name="Z">Fractional template plane index of the section.</param>
+/// <param name="Image">The section at working size, or null for a gap (it is placed by the chain and the smoothed correction only).</param>
+/// <param name="ToReference">Section working pixels to the reference frame's working pixels, from the neighbour chain.</param>
+/// <param name="Slice">The template slice at <paramref name="Z"/>, at the working pixel size; null when the template does not reach it.
+/// All slices must share one pixel frame (cut from one template at one pixel size).</param>
+/// <param name="ChainConfidence">Confidence of the chain link from this section to the previous one (1 for the first).</param>
+public sealed record TemplateGuideSection(double Z, GrayImage? Image, Transform2D ToReference, GrayImage? Slice, double ChainConfidence = 1);
+
+public sealed record TemplateGuideOptions
+{
+    /// <summary>Width, in sections, over which the template decides the course of the stack (the smoothing window of the correction).</summary>
+    public int SmoothingSections { get; init; } = 11;
+    /// <summary>Sections, spread over the stack, searched globally (any angle, both mirrors) to find the reference-to-template map.</summary>
+    public int GlobalSampleSections { get; init; } = 12;
+    /// <summary>Two global candidates agree when their angles are this close…</summary>
+    public double AgreementDegrees { get; init; } = 6;
+    /// <summary>…and they put the reference frame's points this close, as a fraction of the slice's shorter side.</summary>
+    public double AgreementFraction { get; init; } = 0.05;
+    /// <summary>A measurement whose similarity is below this is not used (normalised MI − 1).</summary>
+    public double MinSimilarity { get; init; } = 0.02;
+    /// <summary>
+    /// A measurement whose confidence is below this is not used. Off by default: the registration's confidence measures
+    /// how distinct the match is from the section turned by 90°, which is low for round specimens even when the match is
+    /// right; started from the chain, a wrong turn is caught by the deviation test instead.
+    /// </summary>
+    public double MinConfidence { get; init; } = 0;
+    /// <summary>Outlier threshold: deviation from the local median course beyond this many robust standard deviations (1.4826·MAD)…</summary>
+    public double OutlierMads { get; init; } = 4;
+    /// <summary>…and beyond this floor (pixels at working size, degrees), so that a very tidy series does not reject by noise.</summary>
+    public double OutlierFloorPx { get; init; } = 2;
+    public double OutlierFloorDegrees { get; init; } = 2;
+    /// <summary>A chain link below this confidence separates the stack into parts whose corrections are smoothed apart.</summary>
+    public double ChainBreakConfidence { get; init; } = 0.1;
+    public TemplateRegistrationOptions Registration { get; init; } = new();
+}
+
+public sealed record TemplateGuideInput(IReadOnlyList<TemplateGuideSection> Sections, TemplateGuideOptions? Options = null);
+
+/// <summary>One section's placement on the template.</summary>
+/// <param name="SectionToSlice">Fused: the chain placement moved by the smoothed template correction.</param>
+/// <param name="ChainToSlice">The chain placement alone: ToReference then ReferenceToSlice.</param>
+/// <param name="Measured">The section's own template match, or null (gap, no slice, or not registered).</param>
+/// <param name="ResidualPx">Distance at the section centre between the measurement and the chain placement, slice pixels.</param>
+/// <param name="ResidualDegrees">Angle of the measurement relative to the chain placement.</param>
+/// <param name="DeviationPx">Distance of the measured correction from the local median course (what outliers are judged by).</param>
+/// <param name="CorrectionDegrees">Rotation applied to the chain placement, about the section centre.</param>
+/// <param name="CorrectionX">Shift applied at the section centre, slice pixels.</param>
+public sealed record TemplateSectionPlacement(int Index, Transform2D SectionToSlice, Transform2D ChainToSlice, Transform2D? Measured,
+    double? Similarity, double Confidence, double? ResidualPx, double? ResidualDegrees, double? DeviationPx, double? DeviationDegrees,
+    bool Outlier, string? Reason, double CorrectionDegrees, double CorrectionX, double CorrectionY);
+
+/// <param name="ReferenceToSlice">The one rigid map from the reference frame onto the template slices' frame.</param>
+/// <param name="GlobalAgreement">Fraction of the globally searched sections that agreed with the chosen map.</param>
+public sealed record TemplateGuideResult(IReadOnlyList<TemplateSectionPlacement> Sections, Transform2D ReferenceToSlice, bool Mirrored,
+    double GlobalAgreement, int MeasuredCount, int OutlierCount);
+
+/// <summary>
+/// Template-guided drift correction. The neighbour chain aligns each section well to the next but accumulates drift;
+/// a template (an atlas or MRI volume of the same specimen kind) is registered to each section on its own, which does
+/// not drift but is noisier and sometimes wrong. The guide keeps the chain's section-to-section detail and takes the
+/// low-frequency course from the template: the difference between the template's placement and the chain's is
+/// smoothed over <see cref="TemplateGuideOptions.SmoothingSections"/> sections (weighted local linear regression,
+/// tricube weights; Cleveland 1979, J. Am. Stat. Assoc. 74:829) after outliers are rejected (deviation from a running
+/// median beyond a multiple of the median absolute deviation; common practice), and applied to the chain.
+/// </summary>
+public static class TemplateGuide
+{
+    /// <summary>
+    /// Places every section on the template: (a) the reference-to-template map from a consensus of globally searched
+    /// sections, (b) each section registered to its slice from its chain placement, (c) outliers rejected with a reason,
+    /// (d) the smoothed correction applied to the chain. Sections are taken in stack order. With no section that has
+    /// both an image and a slice, the result keeps the chain placements under an identity map (GlobalAgreement 0).
+    /// </summary>
+    public static TemplateGuideResult Place(TemplateGuideInput input)
+    {
+        var options = input.Options ?? new TemplateGuideOptions();
+        var sections = input.Sections;
+        int n = sections.Count;
+        if (n == 0) return new TemplateGuideResult([], Transform2D.Identity, false, 0, 0, 0);
+        var centres = sections.Select(s => s.Image is { } im ? ((im.Width - 1) / 2.0, (im.Height - 1) / 2.0) : CentreOf(sections, s)).ToArray();
+        var usable = Enumerable.Range(0, n).Where(i => sections[i].Image != null && sections[i].Slice != null).ToList();
+
+        // (a) The global map: sampled sections searched without a start; the candidate most others agree with, refitted on its agreeing set.
+        var (referenceToSlice, agreement) = GlobalMap(sections, usable, centres, options);
+
+        // (b) Every section registered to its slice from its chain placement.
+        var chain = sections.Select(s => s.ToReference.Then(referenceToSlice)).ToArray();
+        var measured = new TemplateMatch?[n];
+        Parallel.ForEach(usable, i => measured[i] = TemplateRegistration.Register(sections[i].Image!, sections[i].Slice!, chain[i], options.Registration));
+
+        // The correction each measurement asks for: rotation about the section centre (as the chain places it) and a shift there.
+        var angle = new double[n]; var dx = new double[n]; var dy = new double[n];
+        var reason = new string?[n];
+        var candidate = new bool[n];
+        foreach (int i in usable)
+        {
+            var m = measured[i]!;
+            var (qx, qy) = chain[i].Apply(centres[i].Item1, centres[i].Item2);
+            var (mx, my) = m.SectionToSlice.Apply(centres[i].Item1, centres[i].Item2);
+            angle[i] = AngleDifference(m.SectionToSlice.RotationDegrees, chain[i].RotationDegrees);
+            dx[i] = mx - qx; dy[i] = my - qy;
+            if (m.Mirrored != chain[i].IsMirrored) reason[i] = "the template match is mirrored against the chain";
+            else if (m.Similarity < options.MinSimilarity) reason[i] = $"similarity {m.Similarity:0.###} below {options.MinSimilarity:0.###}";
+            else if (options.MinConfidence > 0 && m.Confidence < options.MinConfidence) reason[i] = $"confidence {m.Confidence:0.###} below {options.MinConfidence:0.###}";
+            else candidate[i] = true;
+        }
+
+        // (c) Outliers: deviation from the running median of the corrections, judged against the MAD over the stack.
+        var deviationPx = new double?[n]; var deviationDeg = new double?[n];
+        int half = Math.Max(1, options.SmoothingSections / 2);
+        var segment = Segments(sections, options.ChainBreakConfidence);
+        foreach (int i in usable.Where(i => candidate[i]))
+        {
+            var near = usable.Where(j => candidate[j] && segment[j] == segment[i] && Math.Abs(j - i) <= half).ToList();
+            double mxc = Median(near.Select(j => dx[j])), myc = Median(near.Select(j => dy[j])), mac = Median(near.Select(j => angle[j]));
+            deviationPx[i] = double.Hypot(dx[i] - mxc, dy[i] - myc);
+            deviationDeg[i] = Math.Abs(angle[i] - mac);
+        }
+        var devs = usable.Where(i => candidate[i]).ToList();
+        if (devs.Count >= 3)
+        {
+            double madPx = 1.4826 * Median(devs.Select(i => deviationPx[i]!.Value));
+            double madDeg = 1.4826 * Median(devs.Select(i => deviationDeg[i]!.Value));
+            double limitPx = Math.Max(options.OutlierMads * madPx, options.OutlierFloorPx), limitDeg = Math.Max(options.OutlierMads * madDeg, options.OutlierFloorDegrees);
+            foreach (int i in devs)
+            {
+                if (deviationPx[i] > limitPx) reason[i] = $"{deviationPx[i]:0.#} px from the local course of the template matches (limit {limitPx:0.#})";
+                else if (deviationDeg[i] > limitDeg) reason[i] = $"{deviationDeg[i]:0.#}° from the local course of the template matches (limit {limitDeg:0.#})";
+                if (reason[i] != null) candidate[i] = false;
+            }
+        }
+
+        // (d) Fuse: the smoothed correction applied to the chain placement.
+        var weight = new double[n];
+        foreach (int i in usable) if (candidate[i]) weight[i] = 1;
+        var sa = Smooth(angle, weight, segment, half); var sx = Smooth(dx, weight, segment, half); var sy = Smooth(dy, weight, segment, half);
+        var result = new TemplateSectionPlacement[n];
+        for (int i = 0; i < n; i++)
+        {
+            var (qx, qy) = chain[i].Apply(centres[i].Item1, centres[i].Item2);
+            var fused = chain[i].Then(Transform2D.Rotation(sa[i], qx, qy)).Then(Transform2D.Translation(sx[i], sy[i]));
+            var m = measured[i];
+            bool outlier = m != null && !candidate[i];
+            double confidence = m == null ? 0 : outlier ? 0 : m.Confidence;
+            result[i] = new TemplateSectionPlacement(i, fused, chain[i], m?.SectionToSlice, m?.Similarity, confidence,
+                m == null ? null : double.Hypot(dx[i], dy[i]), m == null ? null : angle[i], deviationPx[i], deviationDeg[i],
+                outlier, m == null ? (sections[i].Image == null ? "gap" : "no template slice") : reason[i], sa[i], sx[i], sy[i]);
+        }
+        return new TemplateGuideResult(result, referenceToSlice, referenceToSlice.IsMirrored, agreement,
+            usable.Count, result.Count(r => r.Outlier));
+    }
+
+    private static (double, double) CentreOf(IReadOnlyList<TemplateGuideSection> sections, TemplateGuideSection s)
+    {
+        var any = sections.FirstOrDefault(o => o.Image != null)?.Image;
+        return any == null ? (0, 0) : ((any.Width - 1) / 2.0, (any.Height - 1) / 2.0);
+    }
+
+    private static (Transform2D Map, double Agreement) GlobalMap(IReadOnlyList<TemplateGuideSection> sections, List<int> usable,
+        (double, double)[] centres, TemplateGuideOptions options)
+    {
+        if (usable.Count == 0) return (Transform2D.Identity, 0);
+        int count = Math.Min(options.GlobalSampleSections, usable.Count);
+        var sample = Enumerable.Range(0, count).Select(t => usable[(int)Math.Round((t + 0.5) * usable.Count / count - 0.5)]).Distinct().ToList();
+        var matches = new TemplateMatch[sample.Count];
+        Parallel.For(0, sample.Count, t => matches[t] = TemplateRegistration.Register(sections[sample[t]].Image!, sections[sample[t]].Slice!, null, options.Registration));
+        var candidates = sample.Select((i, t) => (Index: i, Map: sections[i].ToReference.Inverse().Then(matches[t].SectionToSlice), Match: matches[t])).ToList();
+
+        var slice = sections[usable[0]].Slice!;
+        double tolerancePx = Math.Max(3, options.AgreementFraction * Math.Min(slice.Width, slice.Height));
+        // Probe points of the reference frame: the chained centres of the sampled sections.
+        var probes = sample.Select(i => sections[i].ToReference.Apply(centres[i].Item1, centres[i].Item2)).ToArray();
+        bool Agree(Transform2D a, Transform2D b) =>
+            a.IsMirrored == b.IsMirrored && TemplateRegistration.AngleGap(a.RotationDegrees, b.RotationDegrees) <= options.AgreementDegrees
+            && probes.All(p => { var (ax, ay) = a.Apply(p.X, p.Y); var (bx, by) = b.Apply(p.X, p.Y); return double.Hypot(ax - bx, ay - by) <= tolerancePx; });
+        int best = -1; double bestSupport = -1;
+        for (int c = 0; c < candidates.Count; c++)
+        {
+            double support = candidates.Where(o => Agree(candidates[c].Map, o.Map)).Sum(o => Math.Max(o.Match.Similarity, 1e-6));
+            if (support > bestSupport) { bestSupport = support; best = c; }
+        }
+        var inliers = candidates.Where(o => Agree(candidates[best].Map, o.Map)).ToList();
+
+        // Least-squares rigid map (mirror fixed by the chosen candidate) from chained points to matched points.
+        bool mirrored = candidates[best].Map.IsMirrored;
+        var from = new List<(double X, double Y)>(); var to = new List<(double X, double Y)>();
+        foreach (var o in inliers)
+        {
+            var image = sections[o.Index].Image!;
+            double r = 0.3 * Math.Min(image.Width, image.Height);
+            var (cx, cy) = centres[o.Index];
+            foreach (var (px, py) in new[] { (cx, cy), (cx + r, cy), (cx - r, cy), (cx, cy + r), (cx, cy - r) })
+            {
+                from.Add(sections[o.Index].ToReference.Apply(px, py));
+                to.Add(o.Match.SectionToSlice.Apply(px, py));
+            }
+        }
+        return (FitRigid(from, to, mirrored), inliers.Count / (double)candidates.Count);
+    }
+
+    /// <summary>Least-squares rotation and shift (after a mirror about x when asked) taking <paramref name="from"/> to <paramref name="to"/> (2D Procrustes; common practice).</summary>
+    internal static Transform2D FitRigid(IReadOnlyList<(double X, double Y)> from, IReadOnlyList<(double X, double Y)> to, bool mirrored)
+    {
+        var pre = mirrored ? Transform2D.MirrorX() : Transform2D.Identity;
+        var p = from.Select(q => pre.Apply(q.X, q.Y)).ToList();
+        double pxm = p.Average(q => q.X), pym = p.Average(q => q.Y), qxm = to.Average(q => q.X), qym = to.Average(q => q.Y);
+        double sxx = 0, sxy = 0;
+        for (int i = 0; i < p.Count; i++)
+        {
+            double ax = p[i].X - pxm, ay = p[i].Y - pym, bx = to[i].X - qxm, by = to[i].Y - qym;
+            sxx += ax * bx + ay * by; // cos part
+            sxy += ax * by - ay * bx; // sin part
+        }
+        double degrees = Math.Atan2(sxy, sxx) * 180 / Math.PI;
+        var rotation = Transform2D.Rotation(degrees);
+        var (rx, ry) = rotation.Apply(pxm, pym);
+        return pre.Then(rotation).Then(Transform2D.Translation(qxm - rx, qym - ry));
+    }
+
+    private static int[] Segments(IReadOnlyList<TemplateGuideSection> sections, double breakConfidence)
+    {
+        var segment = new int[sections.Count];
+        for (int i = 1; i < sections.Count; i++)
+            segment[i] = segment[i - 1] + (sections[i].ChainConfidence < breakConfidence ? 1 : 0);
+        return segment;
+    }
+
+    /// <summary>
+    /// Weighted local linear regression with tricube weights over ±<paramref name="half"/> sections (within a segment);
+    /// a weighted mean where the line is not determined, and the nearest weighted value where the window holds none.
+    /// </summary>
+    internal static double[] Smooth(double[] values, double[] weights, int[] segment, int half)
+    {
+        int n = values.Length;
+        var result = new double[n];
+        double h = half + 1;
+        for (int i = 0; i < n; i++)
+        {
+            double s0 = 0, s1 = 0, s2 = 0, t0 = 0, t1 = 0;
+            for (int j = Math.Max(0, i - half); j <= Math.Min(n - 1, i + half); j++)
+            {
+                if (weights[j] <= 0 || segment[j] != segment[i]) continue;
+                double u = Math.Abs(j - i) / h, k = 1 - u * u * u;
+                double w = weights[j] * k * k * k, d = j - i;
+                s0 += w; s1 += w * d; s2 += w * d * d; t0 += w * values[j]; t1 += w * d * values[j];
+            }
+            if (s0 <= 0)
+            {
+                int nearest = -1;
+                for (int r = 1; r < n && nearest < 0; r++)
+                    foreach (int j in (ReadOnlySpan<int>)[i - r, i + r])
+                        if (j >= 0 && j < n && weights[j] > 0 && segment[j] == segment[i]) { nearest = j; break; }
+                if (nearest < 0)
+                    for (int r = 1; r < n && nearest < 0; r++)
+                        foreach (int j in (ReadOnlySpan<int>)[i - r, i + r])
+                            if (j >= 0 && j < n && weights[j] > 0) { nearest = j; break; }
+                result[i] = nearest < 0 ? 0 : values[nearest];
+                continue;
+            }
+            double det = s0 * s2 - s1 * s1;
+            result[i] = det > 1e-9 * s0 * s0 ? (s2 * t0 - s1 * t1) / det : t0 / s0;
+        }
+        return result;
+    }
+
+    private static double AngleDifference(double a, double b)
+    {
+        double d = (a - b) % 360;
+        if (d > 180) d -= 360;
+        if (d <= -180) d += 360;
+        return d;
+    }
+
+    private static double Median(IEnumerable<double> values)
+    {
+        var a = values.OrderBy(v => v).ToArray();
+        if (a.Length == 0) return 0;
+        return a.Length % 2 == 1 ? a[a.Length / 2] : 0.5 * (a[a.Length / 2 - 1] + a[a.Length / 2]);
+    }
+}

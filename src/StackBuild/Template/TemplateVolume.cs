@@ -1,0 +1,149 @@
+using StackBuild.Geometry;
+using StackBuild.Imaging;
+using StackBuild.IO;
+using StackBuild.Nifti;
+
+namespace StackBuild.Template;
+
+/// <summary>
+/// A reference volume (an atlas or MRI template) seen as a stack of planes along one of its voxel axes, so that
+/// a histology section can be compared with the template plane at its depth. The affine stays the one truth
+/// about where voxels are; <see cref="VoxelToWorld"/> only reorders its columns so that the plane index is the third.
+/// </summary>
+/// <remarks>
+/// Plane pixels follow StackBuild's convention: x along the first in-plane voxel axis, y along the second,
+/// (0, 0) at the centre of the first voxel. For cut axis k the in-plane axes are (i, j); for j they are (i, k);
+/// for i they are (j, k).
+/// </remarks>
+public sealed class TemplateVolume
+{
+    private readonly Volume _volume;
+    private readonly int[] _axes; // voxel axis (0 = i, 1 = j, 2 = k) for plane x, plane y, plane index
+
+    private TemplateVolume(Volume volume, char cutAxis)
+    {
+        _volume = volume;
+        CutAxis = char.ToLowerInvariant(cutAxis);
+        _axes = CutAxis switch
+        {
+            'k' => [0, 1, 2],
+            'j' => [0, 2, 1],
+            'i' => [1, 2, 0],
+            _ => throw new ArgumentException($"The cut axis must be i, j or k, not '{cutAxis}'.", nameof(cutAxis)),
+        };
+        int[] n = [volume.Nx, volume.Ny, volume.Nz];
+        Width = n[_axes[0]];
+        Height = n[_axes[1]];
+        Planes = n[_axes[2]];
+        var a = volume.Affine;
+        double[] Row(int r) => [a[r, _axes[0]], a[r, _axes[1]], a[r, _axes[2]], a[r, 3]];
+        VoxelToWorld = Affine.FromRows(Row(0), Row(1), Row(2));
+        var sizes = VoxelToWorld.VoxelSizes;
+        PixelWidthMm = sizes.I;
+        PixelHeightMm = sizes.J;
+        PlaneSpacingMm = sizes.K;
+    }
+
+    /// <summary>The voxel axis the template is cut along: 'i', 'j' or 'k'.</summary>
+    public char CutAxis { get; }
+    public int Width { get; }
+    public int Height { get; }
+    public int Planes { get; }
+    public double PixelWidthMm { get; }
+    public double PixelHeightMm { get; }
+    public double PlaneSpacingMm { get; }
+
+    /// <summary>Plane pixel (x, y) and plane index to RAS+ mm: the template's affine with its columns reordered.</summary>
+    public Affine VoxelToWorld { get; }
+
+    /// <summary>Reads a NIfTI-1 volume (.nii or .nii.gz, any datatype the reader supports; the first volume of a 4D file).</summary>
+    /// <exception cref="InputProblemException">The file cannot be read, or holds no usable 3D volume.</exception>
+    public static TemplateVolume Load(string path, char cutAxis = 'k')
+    {
+        if (!"ijkIJK".Contains(cutAxis))
+            throw new InputProblemException(path, $"the template cut axis '{cutAxis}' is not a voxel axis", "give i, j or k");
+        var image = NiftiFile.Read(path); // InputProblemException for anything wrong with the file itself
+        Volume volume;
+        try
+        {
+            volume = image.ToVolume();
+        }
+        catch (Exception e) when (e is InvalidOperationException or ArgumentException)
+        {
+            throw new InputProblemException(path, $"the template cannot be held in memory: {e.Message}", "give a smaller template (crop or downsample it)", e);
+        }
+        int[] n = [volume.Nx, volume.Ny, volume.Nz];
+        int axis = char.ToLowerInvariant(cutAxis) - 'i';
+        if (n.Where((_, a) => a != axis).Any(s => s < 2))
+            throw new InputProblemException(path, $"the template is {volume.Nx}×{volume.Ny}×{volume.Nz} voxels: its planes across axis {cutAxis} are not images",
+                "give a 3D template volume, or choose the axis the sections were cut along");
+        if (Math.Abs(volume.Affine.Determinant3) < 1e-12)
+            throw new InputProblemException(path, "the template's affine is singular (zero voxel size)", "fix the template's sform or pixdim");
+        if (!volume.Voxels.Any(float.IsFinite) || volume.Voxels.Where(float.IsFinite).Distinct().Take(2).Count() < 2)
+            throw new InputProblemException(path, "the template holds no contrast (all voxels equal or not finite)", "give a template volume with image data");
+        SanitiseNonFinite(volume.Voxels);
+        return new TemplateVolume(volume, cutAxis);
+    }
+
+    /// <summary>A template over a volume already in memory (not copied; do not change its voxels afterwards).</summary>
+    public static TemplateVolume FromVolume(Volume volume, char cutAxis) => new(volume, cutAxis);
+
+    /// <summary>True when plane index <paramref name="k"/> lies within the template (within half a plane of the first or last).</summary>
+    public bool ContainsPlane(double k) => k >= -0.5 && k <= Planes - 0.5;
+
+    /// <summary>Plane <paramref name="plane"/> of the stack, as an image (Width × Height).</summary>
+    public GrayImage Plane(int plane)
+    {
+        if (plane < 0 || plane >= Planes) throw new ArgumentOutOfRangeException(nameof(plane));
+        var image = new GrayImage(Width, Height);
+        var stride = Strides();
+        long basis = plane * stride[2];
+        var voxels = _volume.Voxels;
+        for (int y = 0; y < Height; y++)
+        {
+            var row = image.Row(y);
+            long p = basis + y * stride[1];
+            for (int x = 0; x < Width; x++, p += stride[0]) row[x] = voxels[p];
+        }
+        return image;
+    }
+
+    /// <summary>
+    /// The template plane at fractional index <paramref name="k"/> (linear between the two nearest planes, clamped to
+    /// the first and last within half a plane), resampled bilinearly to square pixels of <paramref name="pixelSizeMm"/>
+    /// covering the same field of view (pixel edges kept). Together this is trilinear interpolation of the volume.
+    /// No smoothing is applied when the new pixels are larger than the template's.
+    /// <paramref name="slicePixelToPlanePixel"/> maps the returned image's pixels to template plane pixels.
+    /// </summary>
+    public GrayImage Slice(double k, double pixelSizeMm, out Transform2D slicePixelToPlanePixel)
+    {
+        if (!ContainsPlane(k)) throw new ArgumentOutOfRangeException(nameof(k), $"Plane {k} is outside the template's 0..{Planes - 1}.");
+        if (!(pixelSizeMm > 0) || !double.IsFinite(pixelSizeMm)) throw new ArgumentOutOfRangeException(nameof(pixelSizeMm));
+        double kc = Math.Clamp(k, 0, Planes - 1);
+        int k0 = Math.Min((int)Math.Floor(kc), Planes - 1), k1 = Math.Min(k0 + 1, Planes - 1);
+        float t = (float)(kc - k0);
+        var plane = Plane(k0);
+        if (t > 0 && k1 != k0)
+        {
+            var next = Plane(k1);
+            var p = plane.Pixels; var q = next.Pixels;
+            for (int i = 0; i < p.Length; i++) p[i] = p[i] * (1 - t) + q[i] * t;
+        }
+        double sx = pixelSizeMm / PixelWidthMm, sy = pixelSizeMm / PixelHeightMm; // plane pixels per slice pixel
+        int width = Math.Max(1, (int)Math.Round(Width / sx)), height = Math.Max(1, (int)Math.Round(Height / sy));
+        // Pixel edges kept: plane x = (slice x + 0.5)·sx − 0.5.
+        slicePixelToPlanePixel = new Transform2D(sx, 0, 0.5 * sx - 0.5, 0, sy, 0.5 * sy - 0.5);
+        return Resampler.Warp(plane, slicePixelToPlanePixel, width, height, 0f);
+    }
+
+    private long[] Strides()
+    {
+        long[] voxel = [1, _volume.Nx, (long)_volume.Nx * _volume.Ny];
+        return [voxel[_axes[0]], voxel[_axes[1]], voxel[_axes[2]]];
+    }
+
+    private static void SanitiseNonFinite(float[] voxels)
+    {
+        for (int i = 0; i < voxels.Length; i++) if (!float.IsFinite(voxels[i])) voxels[i] = 0;
+    }
+}

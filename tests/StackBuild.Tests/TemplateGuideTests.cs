@@ -1,0 +1,233 @@
+using System.Diagnostics;
+using StackBuild.Geometry;
+using StackBuild.Imaging;
+using StackBuild.Nifti;
+using StackBuild.Template;
+using Xunit;
+using Xunit.Abstractions;
+
+namespace StackBuild.Tests;
+
+/// <summary>
+/// Template guidance of a drifting neighbour chain, against ground truth. Sections are planes of a known volume
+/// (the demo series' truth volume, demo-series/truth.nii.gz, a synthetic phantom; and the Colin27 "ch2" MRI from
+/// Debian mricron-data), each mounted by a known random rigid move with a new contrast and noise. The chain is
+/// simulated: each section's true placement followed by a random-walk drift (what a neighbour chain accumulates).
+/// The template is the volume itself downsampled 2× on every axis, with another contrast and noise.
+/// </summary>
+public class TemplateGuideTests(ITestOutputHelper output)
+{
+    private const int Canvas = 256;
+
+    internal sealed record Simulation(TemplateGuideInput Input, Transform2D[] Truth, double CentreX, double CentreY);
+
+    /// <summary>
+    /// Sections from planes <paramref name="planes"/> of <paramref name="truth"/>; the truth of section s maps its
+    /// pixels to truth-plane pixels, which are also the template slices' pixels (the slice is cut at the truth's pixel
+    /// size with pixel edges kept, and the template's 2×2×2 blocks start at voxel 0).
+    /// </summary>
+    internal static Simulation Simulate(Volume truth, IReadOnlyList<int> planes, Func<float, float> sectionContrast,
+        Func<float, float> templateContrast, int seed, double driftPx, double driftDegrees, TemplateGuideOptions options, bool mirrorReference = false)
+    {
+        var random = new Random(seed);
+        double Gauss() => Math.Sqrt(-2 * Math.Log(1 - random.NextDouble())) * Math.Cos(2 * Math.PI * random.NextDouble());
+        float max = truth.Voxels.Max();
+
+        // Template: 2×2×2 block means, new contrast, noise (5 % of its range).
+        int tx = truth.Nx / 2, ty = truth.Ny / 2, tz = truth.Nz / 2;
+        var small = new Volume(tx, ty, tz, Affine.FromRows([2, 0, 0, 0], [0, 2, 0, 0], [0, 0, 2, 0]));
+        for (int k = 0; k < tz; k++) for (int j = 0; j < ty; j++) for (int i = 0; i < tx; i++)
+        {
+            float sum = 0;
+            for (int c = 0; c < 8; c++) sum += truth[2 * i + (c & 1), 2 * j + ((c >> 1) & 1), 2 * k + (c >> 2)];
+            small[i, j, k] = templateContrast(sum / 8 / max) + (float)(0.05 * Gauss());
+        }
+        var template = TemplateVolume.FromVolume(small, 'k');
+
+        double pcx = (truth.Nx - 1) / 2.0, pcy = (truth.Ny - 1) / 2.0;
+        var sections = new List<TemplateGuideSection>();
+        var truths = new Transform2D[planes.Count];
+        Transform2D? firstMount = null;
+        double walkDeg = 0, walkX = 0, walkY = 0;
+        for (int s = 0; s < planes.Count; s++)
+        {
+            int k = planes[s];
+            var plane = new GrayImage(truth.Nx, truth.Ny);
+            for (int j = 0; j < truth.Ny; j++) for (int i = 0; i < truth.Nx; i++) plane[i, j] = sectionContrast(truth[i, j, k] / max);
+            bool mirrored = random.NextDouble() < 0.3; // some mounted face down
+            var mount = (mirrored ? Transform2D.MirrorX(pcx) : Transform2D.Identity).Then(Transform2D.Rotation(random.NextDouble() * 360 - 180, pcx, pcy))
+                .Then(Transform2D.Translation(Canvas / 2.0 - pcx + random.NextDouble() * 16 - 8, Canvas / 2.0 - pcy + random.NextDouble() * 16 - 8));
+            var image = RegisterTestImages.Move(plane, mount, Canvas, Canvas, sectionContrast(0));
+            for (int p = 0; p < image.Pixels.Length; p++) image.Pixels[p] += (float)(0.03 * Gauss());
+            firstMount ??= mount;
+            // Drift per section: a steady bias (a chain's errors are often one-sided) plus a random walk.
+            if (s > 0) { walkDeg += driftDegrees * (0.5 + Gauss()); walkX += driftPx * (0.6 + Gauss()); walkY += driftPx * (-0.4 + Gauss()); }
+            // The chain: true placement, then the drift accumulated so far (plus a little jitter of its own), then the reference section's mount.
+            var drift = Transform2D.Rotation(walkDeg + 0.05 * Gauss(), pcx, pcy).Then(Transform2D.Translation(walkX + 0.1 * Gauss(), walkY + 0.1 * Gauss()));
+            // A mirrored reference frame stands for a reference section mounted face down against the template.
+            var toReference = mount.Inverse().Then(drift).Then(mirrorReference ? Transform2D.MirrorX(pcx) : Transform2D.Identity).Then(firstMount.Value);
+            double z = (k - 0.5) / 2;
+            var slice = template.ContainsPlane(z) ? template.Slice(z, 1.0, out _) : null; // the truth's voxel size (the template's voxels are 2 units)
+            sections.Add(new TemplateGuideSection(z, image, toReference, slice));
+            truths[s] = mount.Inverse();
+        }
+        return new Simulation(new TemplateGuideInput(sections, options), truths, (Canvas - 1) / 2.0, (Canvas - 1) / 2.0);
+    }
+
+    internal sealed record Scores(double LowFrequencyRms, double MedianErrorPx, double MedianRawErrorPx, double[] Errors);
+
+    /// <summary>
+    /// Placement errors at the section centre after removing one global rigid fit (least squares over the centre and
+    /// four points 60 px out), their 9-section moving average (the low-frequency drift, rms over sections), and the
+    /// median error without the fit (the placements are in truth-plane pixels already when they come from the template).
+    /// </summary>
+    internal static Scores Score(Simulation sim, IReadOnlyList<Transform2D> placements, int[] evaluate)
+    {
+        var from = new List<(double X, double Y)>(); var to = new List<(double X, double Y)>();
+        foreach (int s in evaluate)
+            foreach (var (dx, dy) in new[] { (0, 0), (60, 0), (-60, 0), (0, 60), (0, -60) })
+            {
+                from.Add(placements[s].Apply(sim.CentreX + dx, sim.CentreY + dy));
+                to.Add(sim.Truth[s].Apply(sim.CentreX + dx, sim.CentreY + dy));
+            }
+        var fit = TemplateGuide.FitRigid(from, to, placements[evaluate[0]].IsMirrored != sim.Truth[evaluate[0]].IsMirrored);
+        var errors = new (double X, double Y)[placements.Count];
+        var raw = new List<double>();
+        foreach (int s in evaluate)
+        {
+            var (rx, ry) = placements[s].Apply(sim.CentreX, sim.CentreY);
+            var (ax, ay) = fit.Apply(rx, ry);
+            var (bx, by) = sim.Truth[s].Apply(sim.CentreX, sim.CentreY);
+            errors[s] = (ax - bx, ay - by);
+            raw.Add(double.Hypot(rx - bx, ry - by));
+        }
+        var set = evaluate.ToHashSet();
+        double sum = 0; int count = 0;
+        foreach (int s in evaluate)
+        {
+            var window = Enumerable.Range(s - 4, 9).Where(set.Contains).ToList();
+            double mx = window.Average(j => errors[j].X), my = window.Average(j => errors[j].Y);
+            sum += mx * mx + my * my; count++;
+        }
+        var magnitudes = evaluate.Select(s => double.Hypot(errors[s].X, errors[s].Y)).ToArray();
+        return new Scores(Math.Sqrt(sum / count), RegisterTestImages.Median(magnitudes), RegisterTestImages.Median(raw), magnitudes);
+    }
+
+    private static Volume DemoTruth()
+    {
+        string path = Path.Combine(RepositoryPaths.DemoSeries, Demo.DemoSpecimenMaker.TruthVolumeFileName);
+        return NiftiFile.Read(path).ToVolume();
+    }
+
+    private static readonly TemplateGuideOptions Options = new() { GlobalSampleSections = 8 };
+
+    private (Scores Chain, Scores Guided, TemplateGuideResult Result) RunAndReport(string name, Simulation sim, int[] evaluate)
+    {
+        var watch = Stopwatch.StartNew();
+        var result = TemplateGuide.Place(sim.Input);
+        double seconds = watch.Elapsed.TotalSeconds;
+        var chain = Score(sim, sim.Input.Sections.Select(s => s.ToReference).ToList(), evaluate);
+        var guided = Score(sim, result.Sections.Select(s => s.SectionToSlice).ToList(), evaluate);
+        output.WriteLine($"{name}: {sim.Input.Sections.Count} sections, {seconds:0.0} s; global agreement {result.GlobalAgreement:0.##}, mirrored {result.Mirrored}, " +
+                         $"measured {result.MeasuredCount}, outliers {result.OutlierCount}");
+        output.WriteLine($"  chain:  low-frequency drift rms {chain.LowFrequencyRms:0.###} px, median error after global fit {chain.MedianErrorPx:0.###} px");
+        output.WriteLine($"  guided: low-frequency drift rms {guided.LowFrequencyRms:0.###} px ({guided.LowFrequencyRms / chain.LowFrequencyRms:0.###} of the chain's), " +
+                         $"median error after global fit {guided.MedianErrorPx:0.###} px, without fit {guided.MedianRawErrorPx:0.###} px");
+        foreach (var s in result.Sections.Where(s => s.Outlier || s.Measured == null))
+            output.WriteLine($"  section {s.Index}: outlier {s.Outlier}, {s.Reason}");
+        return (chain, guided, result);
+    }
+
+    [Fact]
+    public void DemoTruthDriftIsTakenOutAndAWildMeasurementIsIgnored()
+    {
+        var truth = DemoTruth();
+        var planes = Enumerable.Range(0, truth.Nz).ToList();
+        // Sections: dark stain on bright glass (the demo's image model, value = offset − gain·density); template: bright
+        // tissue, square-root contrast.
+        var sim = Simulate(truth, planes, v => 0.9f - 0.7f * v, v => MathF.Sqrt(v), seed: 11, driftPx: 0.4, driftDegrees: 0.2, Options, mirrorReference: true);
+        // Two gaps.
+        var sections = sim.Input.Sections.ToList();
+        foreach (int gap in new[] { 12, 47 }) sections[gap] = sections[gap] with { Image = null };
+        // One wild measurement: the template slice of section 30 is displaced by (18, −12) px, as if the template were torn there.
+        const int wild = 30;
+        var goodSlice = sections[wild].Slice!;
+        sections[wild] = sections[wild] with { Slice = RegisterTestImages.Move(goodSlice, Transform2D.Translation(18, -12), goodSlice.Width, goodSlice.Height) };
+        sim = sim with { Input = sim.Input with { Sections = sections } };
+        var evaluate = Enumerable.Range(0, planes.Count).Where(s => s is not 12 and not 47).ToArray();
+        var (chain, guided, result) = RunAndReport("demo truth", sim, evaluate);
+
+        Assert.True(result.Mirrored, "the reference frame is mirrored against the template");
+        Assert.True(result.Sections[wild].Outlier, $"section {wild}: residual {result.Sections[wild].ResidualPx} px, deviation {result.Sections[wild].DeviationPx} px");
+        Assert.False(string.IsNullOrEmpty(result.Sections[wild].Reason));
+        Assert.True(result.OutlierCount <= 3, $"{result.OutlierCount} outliers");
+        Assert.Null(result.Sections[12].Measured);
+        // Targets of the task: low-frequency drift at most a third of the chain's; median placement error ≤ 1 px.
+        Assert.True(guided.LowFrequencyRms <= chain.LowFrequencyRms / 3, $"guided {guided.LowFrequencyRms} px, chain {chain.LowFrequencyRms} px");
+        Assert.True(guided.MedianErrorPx <= 1, $"median error {guided.MedianErrorPx} px");
+        Assert.True(chain.LowFrequencyRms > 2, "the simulated chain must drift for the test to mean anything");
+
+        // The wild section must not move its neighbours: the same run without its measurement.
+        var without = sections.ToList();
+        without[wild] = without[wild] with { Slice = null };
+        var reference = TemplateGuide.Place(sim.Input with { Sections = without });
+        double worst = 0;
+        for (int s = wild - 6; s <= wild + 6; s++)
+        {
+            if (s == wild) continue;
+            var (ax, ay) = result.Sections[s].SectionToSlice.Apply(sim.CentreX, sim.CentreY);
+            var (bx, by) = reference.Sections[s].SectionToSlice.Apply(sim.CentreX, sim.CentreY);
+            worst = Math.Max(worst, double.Hypot(ax - bx, ay - by));
+        }
+        output.WriteLine($"  neighbours of the wild section moved by at most {worst:0.####} px against the run without its measurement");
+        Assert.True(worst <= 0.1, $"neighbours moved by {worst} px");
+    }
+
+    [Fact]
+    public void MriSectionsDriftIsTakenOut()
+    {
+        var truth = RegisterMriTests.Template();
+        var planes = Enumerable.Range(0, 40).Select(s => 50 + s * 2).ToList(); // axial planes 50..128, every other one
+        var sim = Simulate(truth, planes, v => 0.9f - 0.7f * MathF.Pow(v, 0.7f), v => 0.2f + 0.6f * MathF.Sin(MathF.PI * MathF.Min(v, 1)),
+            seed: 5, driftPx: 0.4, driftDegrees: 0.2, Options);
+        var (chain, guided, result) = RunAndReport("MRI ch2", sim, Enumerable.Range(0, planes.Count).ToArray());
+        Assert.True(chain.LowFrequencyRms > 2, "the simulated chain must drift for the test to mean anything");
+        Assert.True(guided.LowFrequencyRms <= chain.LowFrequencyRms / 3, $"guided {guided.LowFrequencyRms} px, chain {chain.LowFrequencyRms} px");
+        Assert.True(guided.MedianErrorPx <= 1, $"median error {guided.MedianErrorPx} px");
+        Assert.True(result.OutlierCount <= 3, $"{result.OutlierCount} outliers");
+        Assert.False(result.Mirrored);
+    }
+
+    [Fact]
+    public void RigidFitRecoversAKnownMapWithAndWithoutMirror()
+    {
+        // Analytic truth: points moved by a known rigid map (mirrored or not) give that map back.
+        var random = new Random(3);
+        var points = Enumerable.Range(0, 12).Select(_ => (random.NextDouble() * 200, random.NextDouble() * 200)).ToList();
+        foreach (bool mirrored in new[] { false, true })
+        {
+            var truth = Transform2D.Rigid(-37.5, 12.25, -8.5, mirrored);
+            var moved = points.Select(p => truth.Apply(p.Item1, p.Item2)).ToList();
+            var fit = TemplateGuide.FitRigid(points, moved, mirrored);
+            Assert.True(fit.ApproximatelyEquals(truth, 1e-9), $"{fit} vs {truth}");
+        }
+    }
+
+    [Fact]
+    public void CorrectionSmoothingKeepsStraightCoursesAndStopsAtChainBreaks()
+    {
+        // Local linear regression reproduces a straight line exactly (Cleveland 1979), whatever the weights and gaps.
+        int n = 30;
+        var line = Enumerable.Range(0, n).Select(i => 0.7 * i - 3).ToArray();
+        var weights = Enumerable.Range(0, n).Select(i => i % 7 == 3 ? 0.0 : 1 + (i % 3)).ToArray();
+        var smooth = TemplateGuide.Smooth(line, weights, new int[n], 5);
+        for (int i = 0; i < n; i++) Assert.Equal(line[i], smooth[i], 9);
+        // A step at a chain break (segment 1 from section 15) stays a step; without the break it is smeared.
+        var step = Enumerable.Range(0, n).Select(i => i < 15 ? 0.0 : 4.0).ToArray();
+        var ones = Enumerable.Repeat(1.0, n).ToArray();
+        var apart = TemplateGuide.Smooth(step, ones, Enumerable.Range(0, n).Select(i => i < 15 ? 0 : 1).ToArray(), 5);
+        var together = TemplateGuide.Smooth(step, ones, new int[n], 5);
+        for (int i = 0; i < n; i++) Assert.Equal(step[i], apart[i], 9);
+        Assert.True(together[14] > 0.5 && together[15] < 3.5, $"{together[14]}, {together[15]}");
+    }
+}
