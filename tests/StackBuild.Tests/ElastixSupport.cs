@@ -261,6 +261,43 @@ internal static class Rigid3D
     /// <summary>Signed angle in degrees of the rotation part about the anterior axis (as <see cref="AboutAnterior"/> makes it).</summary>
     public static double AngleAboutAnteriorDegrees(Affine a) => Math.Atan2(a[0, 2], a[0, 0]) * 180 / Math.PI;
 
+    /// <summary>
+    /// Least-squares rigid map dst ≈ R·src + t with R a proper rotation (Arun, Huang, Blostein 1987, IEEE TPAMI
+    /// 9:698, with the reflection guard of Umeyama 1991, IEEE TPAMI 13:376); <paramref name="rmsMm"/> is the
+    /// root-mean-square residual.
+    /// </summary>
+    public static Affine FitRigid(IReadOnlyList<(double X, double Y, double Z)> src, IReadOnlyList<(double X, double Y, double Z)> dst, out double rmsMm)
+    {
+        int n = src.Count;
+        double[] cs = [src.Average(p => p.X), src.Average(p => p.Y), src.Average(p => p.Z)];
+        double[] cd = [dst.Average(p => p.X), dst.Average(p => p.Y), dst.Average(p => p.Z)];
+        var h = MathNet.Numerics.LinearAlgebra.Matrix<double>.Build.Dense(3, 3);
+        for (int q = 0; q < n; q++)
+        {
+            double[] a = [src[q].X - cs[0], src[q].Y - cs[1], src[q].Z - cs[2]];
+            double[] b = [dst[q].X - cd[0], dst[q].Y - cd[1], dst[q].Z - cd[2]];
+            for (int i = 0; i < 3; i++) for (int j = 0; j < 3; j++) h[i, j] += a[i] * b[j];
+        }
+        var svd = h.Svd();
+        var u = svd.U;
+        var v = svd.VT.Transpose();
+        var d = MathNet.Numerics.LinearAlgebra.Matrix<double>.Build.DenseIdentity(3);
+        d[2, 2] = Math.Sign((v * u.Transpose()).Determinant());
+        var r = v * d * u.Transpose();
+        var rows = new double[3][];
+        for (int i = 0; i < 3; i++)
+            rows[i] = [r[i, 0], r[i, 1], r[i, 2], cd[i] - (r[i, 0] * cs[0] + r[i, 1] * cs[1] + r[i, 2] * cs[2])];
+        var fit = Affine.FromRows(rows[0], rows[1], rows[2]);
+        double sum = 0;
+        for (int q = 0; q < n; q++)
+        {
+            var m = fit.Apply(src[q].X, src[q].Y, src[q].Z);
+            sum += (m.X - dst[q].X) * (m.X - dst[q].X) + (m.Y - dst[q].Y) * (m.Y - dst[q].Y) + (m.Z - dst[q].Z) * (m.Z - dst[q].Z);
+        }
+        rmsMm = Math.Sqrt(sum / n);
+        return fit;
+    }
+
     /// <summary>Mean distance in mm between where two maps send the given points.</summary>
     public static double MeanDistanceMm(Affine a, Affine b, IEnumerable<(double X, double Y, double Z)> points) =>
         points.Average(p =>
