@@ -1,5 +1,6 @@
 using System.CommandLine;
 using System.Text.Json;
+using StackBuild.Frame;
 using StackBuild.Geometry;
 using StackBuild.Imaging;
 using StackBuild.IO;
@@ -27,6 +28,12 @@ public static class BuildCommand
         var interpolation = new Option<string>("--interpolation") { Description = "Resampling: bilinear or bicubic", DefaultValueFactory = _ => "bilinear" };
         var smoothing = new Option<double>("--smoothing") { Description = "Solve all placements from every neighbour pair with outlier rejection: the smoothness strength (0 = pairs only; negative, the default, = plain neighbour chain)", DefaultValueFactory = _ => new SmoothingOptions().Strength };
         var fill = new Option<string>("--fill") { Description = "Fill gap, excluded and failed planes of an aligned build from their neighbours: flow (optical-flow interpolation), linear or none", DefaultValueFactory = _ => "flow" };
+        var reference = new Option<int?>("--reference") { Description = "Section number whose frame, as it lay on its slide, the volume takes (default: the first section matched confidently)" };
+        var rotate = new Option<double>("--rotate") { Description = "Turn the whole volume in the section plane by this many degrees, clockwise as displayed", DefaultValueFactory = _ => 0 };
+        var mirror = new Option<bool>("--mirror") { Description = "Mirror the whole volume left-right (after --rotate)" };
+        var noCrop = new Option<bool>("--no-crop") { Description = "Keep every section's whole image in the grid instead of cropping to the tissue" };
+        var margin = new Option<double>("--margin") { Description = "Margin around the tissue in µm when cropping", DefaultValueFactory = _ => FrameOptions.DefaultMarginUm };
+        var centre = new Option<string>("--centre") { Description = "World position X,Y,Z in mm given to the tissue's centre", DefaultValueFactory = _ => "0,0,0" };
         var json = new Option<bool>("--json") { Description = "Print a machine-readable summary instead of text" };
         var noAlign = new Option<bool>("--no-align") { Description = "Place the sections centred without aligning them (the series as scanned)" };
         var workSize = new Option<int>("--work-size") { Description = "Long side in pixels at which sections are registered", DefaultValueFactory = _ => 512 };
@@ -35,7 +42,8 @@ public static class BuildCommand
         var command = new Command("build", "Rebuild a section series into one NIfTI-1 volume with a sidecar of every section's placement.\n\n" +
             "Example:\n  stackbuild build demo-series -o demo-volume.nii.gz")
         {
-            series, output, manifest, pixelSize, spacing, axes, outPixel, channel, interpolation, noAlign, workSize, minConfidence, smoothing, fill, json,
+            series, output, manifest, pixelSize, spacing, axes, reference, rotate, mirror, noCrop, margin, centre,
+            outPixel, channel, interpolation, noAlign, workSize, minConfidence, smoothing, fill, json,
         };
         command.SetAction(parse => console.Guard(() =>
         {
@@ -61,6 +69,15 @@ public static class BuildCommand
                 Chain = new ChainOptions { MinConfidence = Fraction(parse.GetValue(minConfidence), "--min-confidence") },
                 Smoothing = new SmoothingOptions { Strength = Finite(parse.GetValue(smoothing), "--smoothing") },
                 Fill = ParseFill(parse.GetValue(fill)!),
+                Frame = new FrameOptions
+                {
+                    ReferenceSection = parse.GetValue(reference),
+                    RotateDegrees = Finite(parse.GetValue(rotate), "--rotate"),
+                    Mirror = parse.GetValue(mirror),
+                    CropToTissue = !parse.GetValue(noCrop),
+                    MarginUm = NonNegative(parse.GetValue(margin), "--margin"),
+                    CentreMm = ParsePoint(parse.GetValue(centre)!, "--centre"),
+                },
             };
             var result = BuildPipeline.Run(options, new SyncProgress(console));
             console.EndProgress();
@@ -91,6 +108,7 @@ public static class BuildCommand
                 dimensions = r.Dimensions,
                 voxel_size_mm = r.VoxelSizeMm,
                 axis_codes = r.AxisCodes,
+                frame = r.Frame,
                 sections = counts,
                 warnings = r.Warnings,
             }));
@@ -101,6 +119,7 @@ public static class BuildCommand
         o.WriteLine($"Sidecar  {paths.Sidecar}");
         o.WriteLine($"Report   {paths.Report}");
         o.WriteLine($"Grid     {r.Dimensions[0]} × {r.Dimensions[1]} × {r.Dimensions[2]} voxels of {r.VoxelSizeMm[0] * 1000:0.###} × {r.VoxelSizeMm[1] * 1000:0.###} × {r.VoxelSizeMm[2] * 1000:0.###} µm, axes {r.AxisCodes}");
+        if (r.Frame is { } f) o.WriteLine($"Frame    {f.Describe()}");
         int filled = r.Sections.Count(s => s.Filled is not null);
         o.WriteLine($"Sections {string.Join(", ", counts.OrderBy(c => c.Key).Select(c => $"{c.Value} {c.Key}"))}" +
             (filled > 0 ? $"; {filled} empty plane(s) filled from their neighbours" : ""));
@@ -118,6 +137,20 @@ public static class BuildCommand
         if (!(value > 0) || double.IsInfinity(value.Value))
             throw new InputProblemException(null, $"{name} must be a positive number of µm, not {value}", $"give {name} a value such as 10");
         return value;
+    }
+
+    internal static double NonNegative(double value, string name) => value >= 0 && double.IsFinite(value) ? value
+        : throw new InputProblemException(null, $"{name} must be zero or a positive number of µm, not {value}", $"give {name} a value such as 250");
+
+    /// <summary>Three comma-separated numbers (mm), e.g. "0,0,0" or "-1.5,2,10".</summary>
+    internal static (double X, double Y, double Z) ParsePoint(string text, string name)
+    {
+        var parts = text.Split(',', StringSplitOptions.TrimEntries);
+        var values = new double[3];
+        if (parts.Length != 3 || !parts.Select((p, i) => double.TryParse(p, System.Globalization.NumberStyles.Float,
+                System.Globalization.CultureInfo.InvariantCulture, out values[i]) && double.IsFinite(values[i])).All(ok => ok))
+            throw new InputProblemException(null, $"{name} '{text}' is not three numbers X,Y,Z in mm", $"write it as {name} 0,0,0 (no spaces, a point for decimals)");
+        return (values[0], values[1], values[2]);
     }
 
     internal static int WorkSize(int value) => value is >= 64 and <= 8192 ? value

@@ -1,6 +1,7 @@
 using System.Collections.Concurrent;
 using System.Globalization;
 using System.Reflection;
+using StackBuild.Frame;
 using StackBuild.Geometry;
 using StackBuild.Imaging;
 using StackBuild.IO;
@@ -31,6 +32,8 @@ public sealed record BuildOptions
     public SmoothingOptions Smoothing { get; init; } = new();
     /// <summary>How gap, excluded and failed planes are filled from their nearest placed neighbours.</summary>
     public GapFill Fill { get; init; } = GapFill.Flow;
+    /// <summary>Which way the output faces and how far its grid reaches (<see cref="FrameOptions"/>).</summary>
+    public FrameOptions Frame { get; init; } = new();
 }
 
 /// <summary>A built volume (intensities in the input's own units: 0–255 for 8-bit, 0–65535 for 16-bit) and its record.</summary>
@@ -61,6 +64,7 @@ public static class BuildPipeline
             throw new InputProblemException(options.Input, "the series has no sections to build (all are gaps or excluded)",
                 "check the manifest's exclude column and the file names");
 
+        CheckReferenceSection(options, series);
         int bits = present.Max(s => s.Image!.BitsPerChannel);
         double maxValue = bits > 8 ? 65535 : 255;
         double largestUm = present.Max(s => Math.Max(s.Image!.Width, s.Image!.Height) * s.PixelSizeUm);
@@ -75,13 +79,14 @@ public static class BuildPipeline
         IReadOnlyList<ChainPlacement> chain;
         SmoothingResult? smoothing = null;
         IReadOnlyList<ChainPlacement>? chainBefore = null; // the neighbour chain, kept when the global solve replaces it
+        bool faceFlipped = false;
         var warnings = new List<string>(series.Warnings);
         if (options.Align && working.Count > 1)
         {
             var pairs = RegisterNeighbours(working, options, progress);
             chain = ChainSolver.Solve(working.Count, (m, f) => pairs.GetOrAdd((m, f), k => RegisterPair(working, k.Item1, k.Item2, options)),
                 i => Corners(working[i].Image), options.Chain);
-            chain = FaceMajorityUp(chain, working);
+            chain = FaceMajorityUp(chain, working, out faceFlipped);
             if (options.Smoothing.Strength >= 0 && working.Count > 2)
             {
                 chainBefore = chain;
@@ -103,9 +108,35 @@ public static class BuildPipeline
         }
         bool aligned = options.Align && working.Count > 1;
 
-        // 4. The output grid: the reference frame at the output voxel size, holding every placed section.
+        // 3b. The output frame: the reference section's frame as scanned, then upright, turned and mirrored as asked.
+        int chainReference = chain.Select((c, i) => (c, i)).First(t => t.c.Route == LinkRoute.Reference).i;
+        int frameIndex = chainReference;
+        if (options.Frame.ReferenceSection is int wanted)
+        {
+            frameIndex = working.FindIndex(w => w.Entry.Number == wanted);
+            if (chain[frameIndex].Route == LinkRoute.Failed)
+                throw new InputProblemException(options.Input, $"--reference {wanted}: that section could not be matched to its neighbours, so it has no place in the volume",
+                    "choose another section for --reference (the sidecar of a build without it lists each section's status)");
+            // Section N exactly as it lay on its slide, turned face up only where the manifest says it was mounted face down.
+            var toFrame = chain[frameIndex].ToReference.Inverse();
+            faceFlipped = working[frameIndex].Entry.MountedMirrored == true;
+            if (faceFlipped) toFrame = toFrame.Then(Transform2D.MirrorX((working[frameIndex].Image.Width - 1) / 2.0));
+            chain = Reexpress(chain, toFrame);
+            if (chainBefore is not null) chainBefore = Reexpress(chainBefore, toFrame);
+        }
+        var frameImage = working[frameIndex].Image;
+        double frameCx = (frameImage.Width - 1) / 2.0, frameCy = (frameImage.Height - 1) / 2.0;
+        var adjustment = OutputFrame.Adjustment(0, options.Frame.RotateDegrees, options.Frame.Mirror, frameCx, frameCy);
+        if (adjustment != Transform2D.Identity)
+        {
+            chain = Reexpress(chain, adjustment);
+            if (chainBefore is not null) chainBefore = Reexpress(chainBefore, adjustment);
+        }
+
+        // 4. The output grid: the frame at the output voxel size, cropped to the tissue of every placed section plus a margin.
         var workToOut = Resampler.EdgeAlignedScale(workUm / outUm);
-        double minX = double.MaxValue, minY = double.MaxValue, maxX = double.MinValue, maxY = double.MinValue;
+        var canvasBox = PlaneBox.Empty;
+        var tissueBox = PlaneBox.Empty;
         for (int n = 0; n < working.Count; n++)
         {
             if (chain[n].Route == LinkRoute.Failed) continue;
@@ -114,12 +145,23 @@ public static class BuildPipeline
             foreach (var (x, y) in new[] { (-0.5, -0.5), (e.Width - 0.5, -0.5), (-0.5, e.Height - 0.5), (e.Width - 0.5, e.Height - 0.5) })
             {
                 var p = map.Apply(x, y);
-                minX = Math.Min(minX, p.X); maxX = Math.Max(maxX, p.X);
-                minY = Math.Min(minY, p.Y); maxY = Math.Max(maxY, p.Y);
+                canvasBox = canvasBox.Including(p.X, p.Y);
+            }
+            if (working[n].Prepared is { } prepared)
+            {
+                var mask = OutputFrame.WithoutSpecks(prepared.TissueMask, prepared.WorkImage.Width, prepared.WorkImage.Height);
+                var box = OutputFrame.TissueBox(mask, prepared.WorkImage.Width, prepared.WorkImage.Height,
+                    prepared.FullToWork.Inverse().Then(chain[n].ToReference).Then(workToOut));
+                if (!box.IsEmpty) tissueBox = tissueBox.Including(box.MinX, box.MinY).Including(box.MaxX, box.MaxY);
             }
         }
-        int nx = Math.Max(1, (int)Math.Ceiling(maxX - minX));
-        int ny = Math.Max(1, (int)Math.Ceiling(maxY - minY));
+        bool cropped = options.Frame.CropToTissue && !tissueBox.IsEmpty;
+        if (options.Frame.CropToTissue && tissueBox.IsEmpty && aligned)
+            warnings.Add("no tissue was found to crop to; the grid holds every section's whole image");
+        var gridBox = cropped ? tissueBox.Grown(options.Frame.MarginUm / outUm).Intersect(canvasBox) : canvasBox;
+        double minX = gridBox.MinX, minY = gridBox.MinY;
+        int nx = Math.Max(1, (int)Math.Ceiling(gridBox.MaxX - minX));
+        int ny = Math.Max(1, (int)Math.Ceiling(gridBox.MaxY - minY));
         var toGrid = Transform2D.Translation(-minX - 0.5, -minY - 0.5);
         double firstPosition = series.Sections[0].PositionUm;
         double lastPlane = series.Sections.Max(s => Math.Round((s.PositionUm - firstPosition) / series.SpacingUm));
@@ -133,7 +175,11 @@ public static class BuildPipeline
             throw new InputProblemException(options.Input, $"the output would have {nx}×{ny}×{nz} voxels, more than fits in memory",
                 "choose a coarser --output-pixel-size");
 
-        var affine = Affine.FromAxes(options.Axes, outUm / 1000, outUm / 1000, series.SpacingUm / 1000, nx, ny, nz);
+        // The tissue's centre (middle of its box in the plane, middle of the stack) goes to the stated world position.
+        var centreBox = tissueBox.IsEmpty ? gridBox : tissueBox;
+        var tissueCentre = (I: centreBox.CentreX - minX - 0.5, J: centreBox.CentreY - minY - 0.5, K: (nz - 1) / 2.0);
+        var affine = OutputFrame.PlacePointAt(
+            Affine.FromAxes(options.Axes, outUm / 1000, outUm / 1000, series.SpacingUm / 1000, nx, ny, nz), tissueCentre, options.Frame.CentreMm);
         var volume = new Volume(nx, ny, nz, affine);
 
         // 5. Render every placed section at the output resolution.
@@ -267,12 +313,45 @@ public static class BuildPipeline
             Affine = affine.ToRows(),
             InputPixelSizeUm = series.PixelSizeUm,
             SpacingUm = series.SpacingUm,
-            ReferenceSection = working[chain.Select((c, i) => (c, i)).First(t => t.c.Route == LinkRoute.Reference).i].Entry.Number,
+            ReferenceSection = working[frameIndex].Entry.Number,
+            Frame = new FrameRecord
+            {
+                ReferenceSection = working[frameIndex].Entry.Number,
+                ReferenceChosenBy = options.Frame.ReferenceSection is null
+                    ? (aligned ? "the first section matched confidently to its neighbours" : "the first section")
+                    : "--reference",
+                FaceFlipped = faceFlipped,
+                RotateDegrees = options.Frame.RotateDegrees,
+                Mirror = options.Frame.Mirror,
+                Crop = cropped ? "tissue" : "canvas",
+                MarginUm = cropped ? options.Frame.MarginUm : null,
+                TissueBoxVoxels = tissueBox.IsEmpty ? null
+                    : [tissueBox.MinX - minX - 0.5, tissueBox.MinY - minY - 0.5, tissueBox.MaxX - minX - 0.5, tissueBox.MaxY - minY - 0.5],
+                TissueCentreMm = [options.Frame.CentreMm.X, options.Frame.CentreMm.Y, options.Frame.CentreMm.Z],
+            },
             Parameters = parameters,
             Warnings = warnings,
             Sections = records,
         };
         return new BuildResult(volume, buildRecord, bits);
+    }
+
+    /// <summary>Every placement followed by <paramref name="map"/> (the frame changed for all sections at once).</summary>
+    private static IReadOnlyList<ChainPlacement> Reexpress(IReadOnlyList<ChainPlacement> chain, Transform2D map) =>
+        chain.Select(c => c.Route == LinkRoute.Failed ? c : c with { ToReference = c.ToReference.Then(map) }).ToList();
+
+    /// <summary>Refuses a --reference that names no section with an image, before any work is done.</summary>
+    private static void CheckReferenceSection(BuildOptions options, SectionSeries series)
+    {
+        if (options.Frame.ReferenceSection is not int wanted) return;
+        var entry = series.Sections.FirstOrDefault(s => s.Number == wanted);
+        string first = series.Sections.FirstOrDefault(s => s.Status == SectionStatus.Present)?.Number.ToString(CultureInfo.InvariantCulture) ?? "?";
+        if (entry is null)
+            throw new InputProblemException(options.Input, $"--reference {wanted}: the series has no section {wanted} (its sections run from {series.Sections[0].Number} to {series.Sections[^1].Number})",
+                $"give the number of a section that was scanned, e.g. --reference {first}");
+        if (entry.Status != SectionStatus.Present || entry.Image is null)
+            throw new InputProblemException(options.Input, $"--reference {wanted}: section {wanted} is {(entry.Status == SectionStatus.Excluded ? "excluded" : "missing")}, so it has no image to take the frame from",
+                $"give the number of a section that was scanned, e.g. --reference {first}");
     }
 
     private static string Join(string? a, string b) => string.IsNullOrEmpty(a) ? b : $"{a}; {b}";
@@ -366,11 +445,11 @@ public static class BuildPipeline
     /// the reference, the reference itself was the mirrored one: flip the frame about the reference's centre.
     /// A manifest that says how the reference was mounted overrides the vote.
     /// </summary>
-    private static IReadOnlyList<ChainPlacement> FaceMajorityUp(IReadOnlyList<ChainPlacement> chain, List<Working> working)
+    private static IReadOnlyList<ChainPlacement> FaceMajorityUp(IReadOnlyList<ChainPlacement> chain, List<Working> working, out bool flip)
     {
         int referenceIndex = chain.Select((c, i) => (c, i)).First(t => t.c.Route == LinkRoute.Reference).i;
         var placedChain = chain.Where(c => c.Route != LinkRoute.Failed).ToList();
-        bool flip = working[referenceIndex].Entry.MountedMirrored
+        flip = working[referenceIndex].Entry.MountedMirrored
             ?? placedChain.Count(c => c.ToReference.IsMirrored) * 2 > placedChain.Count;
         if (!flip) return chain;
         var r = working[referenceIndex].Image;

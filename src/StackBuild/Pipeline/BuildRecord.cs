@@ -84,9 +84,59 @@ public sealed record BuildRecord
     [JsonPropertyName("pixel_size_um")] public double InputPixelSizeUm { get; init; }
     [JsonPropertyName("spacing_um")] public double SpacingUm { get; init; }
     [JsonPropertyName("reference_section")] public int ReferenceSection { get; init; }
+    /// <summary>Which way the volume faces and how its grid was cut.</summary>
+    [JsonPropertyName("frame")] public FrameRecord? Frame { get; init; }
     [JsonPropertyName("parameters")] public Dictionary<string, string> Parameters { get; init; } = [];
     [JsonPropertyName("warnings")] public List<string> Warnings { get; init; } = [];
     [JsonPropertyName("sections")] public List<SectionRecord> Sections { get; init; } = [];
+}
+
+/// <summary>The output frame: the reference section's frame as scanned, then the turns and mirror the user asked for.</summary>
+public sealed record FrameRecord
+{
+    [JsonPropertyName("reference_section")] public int ReferenceSection { get; init; }
+    /// <summary>How the reference section was chosen: "--reference" or a description of the default.</summary>
+    [JsonPropertyName("reference_chosen_by")] public string ReferenceChosenBy { get; init; } = "";
+    /// <summary>True when the reference was turned face up: it was mounted face down (manifest), or, by default, most sections matched it only mirrored.</summary>
+    [JsonPropertyName("face_flipped")] public bool FaceFlipped { get; init; }
+    /// <summary>The automatic upright turn, when asked for.</summary>
+    [JsonPropertyName("upright")] public UprightRecord? Upright { get; init; }
+    /// <summary>--rotate: degrees, clockwise as displayed, after any upright turn.</summary>
+    [JsonPropertyName("rotate_deg")] public double RotateDegrees { get; init; }
+    /// <summary>--mirror: the volume was mirrored left–right after the turns.</summary>
+    [JsonPropertyName("mirror")] public bool Mirror { get; init; }
+    /// <summary>"tissue" (the grid holds the tissue of every section plus the margin) or "canvas" (every whole image).</summary>
+    [JsonPropertyName("crop")] public string Crop { get; init; } = "canvas";
+    [JsonPropertyName("margin_um")] public double? MarginUm { get; init; }
+    /// <summary>The tissue's box in the plane, in voxel coordinates: i min, j min, i max, j max (pixel edges).</summary>
+    [JsonPropertyName("tissue_box_voxels")] public double[]? TissueBoxVoxels { get; init; }
+    /// <summary>World position (RAS+ mm) given to the tissue's centre (middle of its box, middle of the stack).</summary>
+    [JsonPropertyName("tissue_centre_mm")] public double[] TissueCentreMm { get; init; } = [0, 0, 0];
+
+    /// <summary>One line for people: which section's frame, what was turned, how the grid was cut.</summary>
+    public string Describe()
+    {
+        var c = System.Globalization.CultureInfo.InvariantCulture;
+        var parts = new List<string> { $"section {ReferenceSection} as scanned{(FaceFlipped ? ", turned face up" : "")}" };
+        if (Upright is { } u) parts.Add(string.Format(c, "upright (turned {0:0.#}°, symmetry {1:0.00})", u.AngleDegrees, u.Symmetry));
+        if (RotateDegrees != 0) parts.Add(string.Format(c, "turned {0:0.##}° clockwise", RotateDegrees));
+        if (Mirror) parts.Add("mirrored left-right");
+        parts.Add(Crop == "tissue" ? string.Format(c, "cropped to the tissue + {0:0.#} µm", MarginUm) : "whole images kept");
+        parts.Add(string.Format(c, "tissue centre at ({0:0.##}, {1:0.##}, {2:0.##}) mm", TissueCentreMm[0], TissueCentreMm[1], TissueCentreMm[2]));
+        return string.Join(", ", parts);
+    }
+}
+
+/// <summary>The midline found for --upright.</summary>
+public sealed record UprightRecord
+{
+    /// <summary>The turn applied, degrees clockwise as displayed.</summary>
+    [JsonPropertyName("angle_deg")] public double AngleDegrees { get; init; }
+    /// <summary>How alike each section is to its own mirror image about the midline (correlation, combined over the stack; 1 = perfectly symmetric).</summary>
+    [JsonPropertyName("symmetry")] public double Symmetry { get; init; }
+    /// <summary>The same measure for the best clearly different axis.</summary>
+    [JsonPropertyName("runner_up_symmetry")] public double RunnerUpSymmetry { get; init; }
+    [JsonPropertyName("sections_used")] public int SectionsUsed { get; init; }
 }
 
 /// <summary>A registration hypothesis kept for the record.</summary>
