@@ -1,4 +1,5 @@
 using System.Diagnostics;
+using System.Globalization;
 using System.Text.Json;
 using StackBuild.Evaluate;
 using StackBuild.Geometry;
@@ -73,46 +74,60 @@ public sealed class ElastixHandOffTests(ITestOutputHelper output) : IDisposable
     }
 
     /// <summary>
-    /// The main hand-off check: the demo series rebuilt by <c>stackbuild build</c>, put in the truth's frame,
-    /// registered rigidly onto demo-series/truth.nii.gz by elastix, lands where the ground truth says it should.
-    /// "Where it should" is our own best rigid fit of the truth onto the build, from truth.json's plane_to_image
-    /// and the sidecar's matrices (no image data involved).
+    /// The main hand-off check: the demo series rebuilt by <c>stackbuild build</c> in the truth's frame
+    /// (<c>--reference N --rotate DEG [--mirror]</c>, with N's turn and mirror read from truth.json as a user would
+    /// judge them by eye), registered rigidly onto demo-series/truth.nii.gz by elastix, lands where the ground
+    /// truth says it should. "Where it should" is our own best rigid fit of the truth onto the build, from
+    /// truth.json's plane_to_image and the sidecar's matrices (no image data involved).
     /// </summary>
     [Fact]
     public void RebuiltDemoSeriesRegistersOntoTheTruthWhereTheTruthSaysItBelongs()
     {
+        var truthSeries = SeriesTruth.Read(Path.Combine(RepositoryPaths.DemoSeries, "truth.json"));
+        // The reference: an intact section mounted face up, nearest the middle of the series.
+        var flags = JsonDocument.Parse(File.ReadAllText(Path.Combine(RepositoryPaths.DemoSeries, "truth.json"))).RootElement
+            .GetProperty("sections").EnumerateArray()
+            .Where(e => !e.GetProperty("lost").GetBoolean() && !e.GetProperty("torn").GetBoolean() && !e.GetProperty("excluded").GetBoolean())
+            .Select(e => e.GetProperty("number").GetInt32()).ToHashSet();
+        int reference = truthSeries.Sections.Keys.Where(flags.Contains).OrderBy(n => Math.Abs(n - 30)).First();
+        var referencePlaneToImage = truthSeries.Sections[reference].PlaneToImage;
+        // Section N as scanned is the truth plane turned by plane_to_image; --rotate (clockwise as displayed, the
+        // same sense as Transform2D's angle) undoes the turn, --mirror the face-down mounting.
+        double rotate = -referencePlaneToImage.RotationDegrees;
+        bool mirror = referencePlaneToImage.IsMirrored;
+
         var clock = Stopwatch.StartNew();
         var volumePath = _temp.File("rebuilt.nii.gz");
         var stdout = new StringWriter();
         var stderr = new StringWriter();
-        int code = Cli.Program.Run(["build", RepositoryPaths.DemoSeries, "-o", volumePath, "--work-size", "256"], stdout, stderr);
+        string[] args = ["build", RepositoryPaths.DemoSeries, "-o", volumePath, "--work-size", "256",
+            "--reference", reference.ToString(CultureInfo.InvariantCulture), "--rotate", rotate.ToString("R", CultureInfo.InvariantCulture), .. mirror ? new[] { "--mirror" } : []];
+        int code = Cli.Program.Run(args, stdout, stderr);
         Assert.True(code == 0, $"build failed: {stderr}");
         double buildSeconds = clock.Elapsed.TotalSeconds;
 
         var record = JsonSerializer.Deserialize<BuildRecord>(File.ReadAllText(_temp.File("rebuilt.json")))!;
-        var truthSeries = SeriesTruth.Read(Path.Combine(RepositoryPaths.DemoSeries, "truth.json"));
         var built = NiftiFile.Read(volumePath).ToVolume();
         var truth = NiftiFile.Read(TruthVolumePath).ToVolume();
         // Plane k of the truth is section k + 1 (truth.json); the build puts section n on plane n − 1 when the
         // series starts at section 1 with one plane per section, so the planes correspond one to one.
         Assert.Equal(truth.Nz, built.Nz);
         Assert.All(record.Sections, s => Assert.Equal(s.Number - 1, s.ZIndex));
+        Assert.Equal(reference, record.ReferenceSection);
 
-        int reference = record.ReferenceSection;
-        var referencePlaneToImage = truthSeries.Sections[reference].PlaneToImage;
-        var (framed, originalToWorld) = EmulateFrameOptions(built, referencePlaneToImage);
-        var expected = BestRigidFit(record, truthSeries, truth.Affine, originalToWorld, out double rmsMm, out int fitted);
-        output.WriteLine($"build {buildSeconds:0.0} s: {built.Nx}×{built.Ny}×{built.Nz}, reference section {reference} " +
-            $"(scanned turned {referencePlaneToImage.RotationDegrees:0.##}°, mirrored {referencePlaneToImage.IsMirrored}); framed {framed.Nx}×{framed.Ny}×{framed.Nz}; " +
+        var expected = BestRigidFit(record, truthSeries, truth.Affine, built.Affine, out double rmsMm, out int fitted);
+        output.WriteLine($"build {buildSeconds:0.0} s: {string.Join(' ', args[3..])} → {built.Nx}×{built.Ny}×{built.Nz} ({record.Frame?.Describe()}); " +
             $"best rigid fit over {fitted} sections turns {Rigid3D.AngleBetweenDegrees(expected, Affine.Identity):0.###}°, " +
             $"shifts ({expected[0, 3]:0.####}, {expected[1, 3]:0.####}, {expected[2, 3]:0.####}) mm, rms residual {rmsMm:0.####} mm");
+        // The frame options did their job before any registration: the build faces the truth's way.
+        Assert.True(Rigid3D.AngleBetweenDegrees(expected, Affine.Identity) <= 5, "the build in the reference's corrected frame should face the truth's way");
 
         var truthHalf = ElastixSupport.HalveInPlane(truth);
-        var framedHalf = ElastixSupport.HalveInPlane(framed);
+        var builtHalf = ElastixSupport.HalveInPlane(built);
         var fixedPath = _temp.File("truth-half.nii");
-        var movingPath = _temp.File("framed-half.nii");
+        var movingPath = _temp.File("rebuilt-half.nii");
         NiftiFile.Write(fixedPath, truthHalf);
-        NiftiFile.Write(movingPath, framedHalf);
+        NiftiFile.Write(movingPath, builtHalf);
         var run = ElastixSupport.RegisterRigid(fixedPath, movingPath, _temp.File("elastix-rebuilt"));
         var found = run.Transform.ToRas();
 
@@ -121,15 +136,21 @@ public sealed class ElastixHandOffTests(ITestOutputHelper output) : IDisposable
         double inPlane = Rigid3D.AngleAboutAnteriorDegrees(found) - Rigid3D.AngleAboutAnteriorDegrees(expected);
         double distance = Rigid3D.MeanDistanceMm(found, expected, tissue);
         // The result image is the rebuilt volume on the truth's grid; its best possible counterpart is the same
-        // volume resampled (by us, trilinear) through the expected map. Brightfield grey falls where stain density
-        // rises, while the surround outside every scan is 0, so the sign of r means little; the sizes are compared.
-        double rFound = ElastixSupport.Pearson(run.Result, truthHalf);
-        double rBest = ElastixSupport.Pearson(ElastixSupport.Resample(framedHalf, truthHalf, expected), truthHalf);
+        // volume resampled (by us, trilinear) through the expected map. Both are compared with the truth inside
+        // the truth's tissue (stain density above 0.05), where brightfield grey falls as density rises, so r is
+        // negative; outside it the slide, the empty surround and the crop edge would dominate the measure.
+        var inTissue = truthHalf.Voxels.Select(v => v > 0.05f).ToArray();
+        double rFound = ElastixSupport.Pearson(run.Result, truthHalf, inTissue);
+        double rBest = ElastixSupport.Pearson(ElastixSupport.Resample(builtHalf, truthHalf, expected), truthHalf, inTissue);
+        // Our own resampling through elastix's transform (as parsed and converted to RAS) must reproduce elastix's
+        // result image: a check of the parameter reading and the LPS/RAS conversion on an oblique transform.
+        double rOurs = ElastixSupport.Pearson(ElastixSupport.Resample(builtHalf, truthHalf, found), truthHalf, inTissue);
         double voxelMm = truth.Affine.VoxelSizes.I;
         output.WriteLine($"elastix {run.Seconds:0.0} s: {angle:0.###}° from the expected rotation ({inPlane:0.###}° of it about the section normal), " +
             $"{distance:0.####} mm ({distance / voxelMm:0.##} full-resolution in-plane voxels) from the expected map (mean over {tissue.Count} tissue points); " +
-            $"r(result, truth) = {rFound:0.####}, r(best fit, truth) = {rBest:0.####}, ratio {rFound / rBest:0.####}; total {clock.Elapsed.TotalSeconds:0.0} s");
+            $"r(result, truth) = {rFound:0.####}, r(best fit, truth) = {rBest:0.####}, ratio {rFound / rBest:0.####}; r(our resampling through elastix's map) = {rOurs:0.####}; total {clock.Elapsed.TotalSeconds:0.0} s");
 
+        Assert.True(Math.Abs(rOurs - rFound) <= 0.01, $"our resampling through elastix's transform gives r {rOurs:0.####}, elastix's own result {rFound:0.####}");
         // The turn that the frame options correct is recovered: the in-plane angle agrees with the truth.
         Assert.True(Math.Abs(inPlane) <= 1, $"elastix's in-plane rotation is {inPlane:0.###}° from the expected one (limit 1°)");
         // The hand-off criterion: after registration the rebuilt volume matches the truth within 5 % of what the
@@ -138,19 +159,21 @@ public sealed class ElastixHandOffTests(ITestOutputHelper output) : IDisposable
         // Where elastix puts the tissue differs from the best rigid fit by less than the rebuilt sections
         // themselves scatter about one rigid body (the build's own residual), so the two cannot be told apart.
         Assert.True(distance <= rmsMm, $"elastix puts the tissue {distance:0.####} mm from the best rigid fit, more than the sections' own scatter {rmsMm:0.####} mm");
-        // Out of plane elastix settles on a tilt of about 1° that the placements do not show (measured 1.44° in all,
-        // with 500 iterations and 8192 samples too); the bound of 2° is set from those runs, not from a standard.
+        // Out of plane elastix settles on a tilt of about 1° about each in-plane axis that the placements do not show
+        // (measured 1.44–1.54° in all, also with 500 iterations and 8192 samples); since its result correlates
+        // better with the truth than the placement-based fit (above), the tilt is taken as a property of the rebuilt
+        // volume's content, not a failure. The bound of 2° is set from those runs, not from a standard.
         Assert.True(angle <= 2, $"elastix's rotation is {angle:0.###}° from the expected one (limit 2°, see the comment)");
     }
 
     /// <summary>
-    /// The rigid map truth world → framed world that best fits where the build put every section: for each placed
+    /// The rigid map truth world → built world that best fits where the build put every section: for each placed
     /// section (of the majority's handedness) a 5 × 5 grid of truth-plane points, taken through truth.json's
-    /// plane_to_image and the sidecar's matrix to output voxels, then through <paramref name="originalToWorld"/>;
+    /// plane_to_image and the sidecar's matrix to output voxels, then through the volume's affine;
     /// fitted in 3D, so a drift that grows along the series (a shear of the stack) shows as the tilt that best
     /// absorbs it. <paramref name="rmsMm"/> is how far the sections are from one rigid body.
     /// </summary>
-    private static Affine BestRigidFit(BuildRecord record, SeriesTruth truth, Affine truthAffine, Affine originalToWorld, out double rmsMm, out int fitted)
+    private static Affine BestRigidFit(BuildRecord record, SeriesTruth truth, Affine truthAffine, Affine builtAffine, out double rmsMm, out int fitted)
     {
         var maps = record.Sections
             .Where(s => s.Status is "aligned" or "placed" && s.Matrix is not null && truth.Sections.ContainsKey(s.Number))
@@ -169,58 +192,10 @@ public sealed class ElastixHandOffTests(ITestOutputHelper output) : IDisposable
                 double x = truth.PlaneWidth * (0.1 + 0.2 * a), y = truth.PlaneHeight * (0.1 + 0.2 * b);
                 src.Add(truthAffine.Apply(x, y, k));
                 var q = map.Apply(x, y);
-                dst.Add(originalToWorld.Apply(q.X, q.Y, k));
+                dst.Add(builtAffine.Apply(q.X, q.Y, k));
             }
         }
         return Rigid3D.FitRigid(src, dst, out rmsMm);
-    }
-
-    /// <summary>
-    /// EMULATION of the build options <c>--reference N --rotate DEG [--mirror]</c> (not yet in the CLI on this
-    /// branch): the output frame becomes the reference section's image frame turned (and mirrored) so that it
-    /// lines up with the truth plane, the grid is cropped to the tissue, and the affine's origin is set so the
-    /// tissue centre is at world (0, 0, 0). Here the turn is taken from truth.json (the inverse of the reference
-    /// section's plane_to_image, its linear part only), as a user would choose DEG and --mirror by eye; only
-    /// the affine and the crop change, the voxel values are the CLI's own.
-    /// Returns the cropped volume and the map from the uncropped build's voxel indices to the new world.
-    /// </summary>
-    private static (Volume Framed, Affine OriginalToWorld) EmulateFrameOptions(Volume built, Transform2D referencePlaneToImage)
-    {
-        // Tissue: brightfield, so darker than the bare slide; 0 is outside every scan.
-        var nonZero = built.Voxels.Where(v => v > 0).Select(v => (double)v).ToList();
-        double slide = StackBuild.Numerics.Quantiles.Of(nonZero, 0.9);
-        var iList = new List<double>();
-        var jList = new List<double>();
-        for (int k = 0; k < built.Nz; k++)
-        for (int j = 0; j < built.Ny; j++)
-        for (int i = 0; i < built.Nx; i++)
-        {
-            float v = built[i, j, k];
-            if (v > 0 && v < 0.85 * slide) { iList.Add(i); jList.Add(j); }
-        }
-        const int margin = 4;
-        int i0 = Math.Max(0, (int)StackBuild.Numerics.Quantiles.Of(iList, 0.002) - margin);
-        int i1 = Math.Min(built.Nx - 1, (int)Math.Ceiling(StackBuild.Numerics.Quantiles.Of(iList, 0.998)) + margin);
-        int j0 = Math.Max(0, (int)StackBuild.Numerics.Quantiles.Of(jList, 0.002) - margin);
-        int j1 = Math.Min(built.Ny - 1, (int)Math.Ceiling(StackBuild.Numerics.Quantiles.Of(jList, 0.998)) + margin);
-        double ci = (i0 + i1) / 2.0, cj = (j0 + j1) / 2.0, ck = (built.Nz - 1) / 2.0;
-
-        var turn = referencePlaneToImage.Inverse();
-        var turnAboutCentre = Affine.FromRows(
-            [turn.M00, turn.M01, 0, -(turn.M00 * ci + turn.M01 * cj)],
-            [turn.M10, turn.M11, 0, -(turn.M10 * ci + turn.M11 * cj)],
-            [0, 0, 1, -ck]);
-        var a = built.Affine;
-        var axesOnly = Affine.FromRows([a[0, 0], a[0, 1], a[0, 2], 0], [a[1, 0], a[1, 1], a[1, 2], 0], [a[2, 0], a[2, 1], a[2, 2], 0]);
-        var originalToWorld = turnAboutCentre.Then(axesOnly);
-
-        int nx = i1 - i0 + 1, ny = j1 - j0 + 1;
-        var framed = new Volume(nx, ny, built.Nz, Affine.FromRows([1, 0, 0, i0], [0, 1, 0, j0], [0, 0, 1, 0]).Then(originalToWorld));
-        for (int k = 0; k < built.Nz; k++)
-        for (int j = 0; j < ny; j++)
-        for (int i = 0; i < nx; i++)
-            framed[i, j, k] = built[i + i0, j + j0, k];
-        return (framed, originalToWorld);
     }
 
     /// <summary>

@@ -178,7 +178,7 @@ internal static class ElastixSupport
 
     /// <summary>
     /// The moving volume resampled onto the fixed volume's grid through <paramref name="fixedToMovingWorld"/>
-    /// (RAS+ mm → RAS+ mm), trilinear, 0 outside: what a registration's result image is for a known transform.
+    /// (RAS+ mm → RAS+ mm), trilinear, 0 outside (edge convention as ITK's): what a registration's result image is for a known transform.
     /// </summary>
     public static Volume Resample(Volume moving, Volume fixedGrid, Affine fixedToMovingWorld)
     {
@@ -194,9 +194,14 @@ internal static class ElastixSupport
         return result;
     }
 
+    /// <summary>
+    /// Trilinear sample at a continuous voxel index. As ITK's interpolators do (and so elastix's result image), a
+    /// point within half a voxel outside the outermost voxel centres takes the edge value; beyond that it is 0.
+    /// </summary>
     private static float Trilinear(Volume v, double x, double y, double z)
     {
-        if (x < 0 || y < 0 || z < 0 || x > v.Nx - 1 || y > v.Ny - 1 || z > v.Nz - 1) return 0;
+        if (x < -0.5 || y < -0.5 || z < -0.5 || x > v.Nx - 0.5 || y > v.Ny - 0.5 || z > v.Nz - 0.5) return 0;
+        x = Math.Clamp(x, 0, v.Nx - 1); y = Math.Clamp(y, 0, v.Ny - 1); z = Math.Clamp(z, 0, v.Nz - 1);
         int i = Math.Min((int)x, Math.Max(0, v.Nx - 2)), j = Math.Min((int)y, Math.Max(0, v.Ny - 2)), k = Math.Min((int)z, Math.Max(0, v.Nz - 2));
         double fx = x - i, fy = y - j, fz = z - k;
         double Sample(int di, int dj, int dk) => v[Math.Min(i + di, v.Nx - 1), Math.Min(j + dj, v.Ny - 1), Math.Min(k + dk, v.Nz - 1)];
