@@ -30,6 +30,8 @@ public sealed class ElastixHandOffTests(ITestOutputHelper output) : IDisposable
     /// moderate in-plane turn but not a quarter turn. The turned volumes are the truth's own voxels with only the
     /// affine changed (rotated about the world's anterior axis, the section plane's normal for RIP axes), so the
     /// exact answer is known and no resampling blurs the data; elastix sees the turn only through the header.
+    /// Measured with elastix 5.0.1 (Debian 12): 30° ends at 29.999°; 90° ends at 0.27°, i.e. elastix settles
+    /// back near the unturned pose and the quarter turn is simply lost.
     /// </summary>
     [Fact]
     public void ElastixRecoversAThirtyDegreeTurnButNotAQuarterTurn()
