@@ -36,6 +36,11 @@ public static class BuildCommand
         var noCrop = new Option<bool>("--no-crop") { Description = "Keep every section's whole image in the grid instead of cropping to the tissue" };
         var margin = new Option<double>("--margin") { Description = "Margin around the tissue in µm when cropping", DefaultValueFactory = _ => FrameOptions.DefaultMarginUm };
         var centre = new Option<string>("--centre") { Description = "World position X,Y,Z in mm given to the tissue's centre", DefaultValueFactory = _ => "0,0,0" };
+        var template = new Option<string?>("--template") { Description = "A template volume (NIfTI-1: blockface stack or MRI of the specimen) that guides the drift and gives the volume its frame" };
+        var templateAxis = new Option<string>("--template-axis") { Description = "The template's voxel axis the sections were cut along: i, j or k", DefaultValueFactory = _ => "k" };
+        var templateFirst = new Option<double?>("--template-first-plane") { Description = "Template plane index of the first section (default: the series centred on the template)" };
+        var templateReverse = new Option<bool>("--template-reverse") { Description = "Higher section numbers lie at lower template planes" };
+        var templateGrid = new Option<bool>("--template-grid") { Description = "Use the template's voxel size instead of the sections' pixel size and spacing" };
         var json = new Option<bool>("--json") { Description = "Print a machine-readable summary instead of text" };
         var noAlign = new Option<bool>("--no-align") { Description = "Place the sections centred without aligning them (the series as scanned)" };
         var workSize = new Option<int>("--work-size") { Description = "Long side in pixels at which sections are registered", DefaultValueFactory = _ => 512 };
@@ -45,6 +50,7 @@ public static class BuildCommand
             "Example:\n  stackbuild build demo-series -o demo-volume.nii.gz")
         {
             series, output, manifest, pixelSize, spacing, axes, reference, upright, rotate, mirror, noCrop, margin, centre,
+            template, templateAxis, templateFirst, templateReverse, templateGrid,
             outPixel, voxelSize, channel, interpolation, noAlign, workSize, minConfidence, smoothing, fill, json,
         };
         command.SetAction(parse => console.Guard(() =>
@@ -72,6 +78,14 @@ public static class BuildCommand
                 Chain = new ChainOptions { MinConfidence = Fraction(parse.GetValue(minConfidence), "--min-confidence") },
                 Smoothing = new SmoothingOptions { Strength = Finite(parse.GetValue(smoothing), "--smoothing") },
                 Fill = ParseFill(parse.GetValue(fill)!),
+                Template = parse.GetValue(template) is { } templatePath ? new TemplateOptions
+                {
+                    Path = templatePath,
+                    CutAxis = ParseCutAxis(parse.GetValue(templateAxis)!),
+                    FirstPlane = FiniteOrNull(parse.GetValue(templateFirst), "--template-first-plane"),
+                    Reverse = parse.GetValue(templateReverse),
+                    TemplateGrid = parse.GetValue(templateGrid),
+                } : null,
                 Frame = new FrameOptions
                 {
                     ReferenceSection = parse.GetValue(reference),
@@ -156,6 +170,16 @@ public static class BuildCommand
             throw new InputProblemException(null, $"{name} '{text}' is not three numbers X,Y,Z in mm", $"write it as {name} 0,0,0 (no spaces, a point for decimals)");
         return (values[0], values[1], values[2]);
     }
+
+    internal static char ParseCutAxis(string text) => text.Trim().ToLowerInvariant() switch
+    {
+        "i" => 'i',
+        "j" => 'j',
+        "k" => 'k',
+        _ => throw new InputProblemException(null, $"--template-axis '{text}' is not a voxel axis", "use i, j or k (stackbuild info TEMPLATE shows its axes)"),
+    };
+
+    internal static double? FiniteOrNull(double? value, string name) => value is null ? null : Finite(value.Value, name);
 
     internal static int WorkSize(int value) => value is >= 64 and <= 8192 ? value
         : throw new InputProblemException(null, $"--work-size must be between 64 and 8192 pixels, not {value}", "512 suits most series; use more for fine detail");

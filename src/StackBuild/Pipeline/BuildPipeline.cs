@@ -9,6 +9,7 @@ using StackBuild.Register;
 using StackBuild.Render;
 using StackBuild.Series;
 using StackBuild.Solve;
+using StackBuild.Template;
 
 namespace StackBuild.Pipeline;
 
@@ -36,6 +37,22 @@ public sealed record BuildOptions
     public GapFill Fill { get; init; } = GapFill.Flow;
     /// <summary>Which way the output faces and how far its grid reaches (<see cref="FrameOptions"/>).</summary>
     public FrameOptions Frame { get; init; } = new();
+    /// <summary>A template volume that guides the drift and gives the output its frame; null = none.</summary>
+    public TemplateOptions? Template { get; init; }
+}
+
+/// <summary>How the series lies in a template volume (blockface stack, MRI of the specimen).</summary>
+public sealed record TemplateOptions
+{
+    public required string Path { get; init; }
+    /// <summary>The template's voxel axis along which the sections were cut: 'i', 'j' or 'k'.</summary>
+    public char CutAxis { get; init; } = 'k';
+    /// <summary>Template plane index (fractional) of the first section; null = the series centred on the template along the cut axis.</summary>
+    public double? FirstPlane { get; init; }
+    /// <summary>True when higher section numbers lie at lower template plane indices.</summary>
+    public bool Reverse { get; init; }
+    /// <summary>True: the output takes the template's voxel size (in the plane, and as plane spacing); false: the sections' own.</summary>
+    public bool TemplateGrid { get; init; }
 }
 
 /// <summary>A built volume (intensities in the input's own units: 0–255 for 8-bit, 0–65535 for 16-bit) and its record.</summary>
@@ -67,11 +84,21 @@ public static class BuildPipeline
                 "check the manifest's exclude column and the file names");
 
         CheckReferenceSection(options, series);
+        TemplateVolume? template = null;
+        if (options.Template is { } templateOptions)
+        {
+            CheckTemplateCombination(options);
+            template = TemplateVolume.Load(templateOptions.Path, templateOptions.CutAxis);
+        }
         int bits = present.Max(s => s.Image!.BitsPerChannel);
         double maxValue = bits > 8 ? 65535 : 255;
         double largestUm = present.Max(s => Math.Max(s.Image!.Width, s.Image!.Height) * s.PixelSizeUm);
-        double outUm = options.OutputPixelSizeUm ?? options.VoxelSizeUm ?? series.PixelSizeUm;
-        if (options.OutputPixelSizeUm is null && options.VoxelSizeUm is null && largestUm / outUm > options.MaxPlaneSide)
+        bool templateGrid = template is not null && options.Template!.TemplateGrid;
+        double? zSpacingUm = options.VoxelSizeUm ?? (templateGrid ? template!.PlaneSpacingMm * 1000 : null);
+        double? planeUm = options.OutputPixelSizeUm ?? options.VoxelSizeUm
+            ?? (templateGrid ? Math.Min(template!.PixelWidthMm, template.PixelHeightMm) * 1000 : null);
+        double outUm = planeUm ?? series.PixelSizeUm;
+        if (planeUm is null && largestUm / outUm > options.MaxPlaneSide)
             outUm = largestUm / options.MaxPlaneSide;
 
         // 1. Registration images: every section at one common pixel size, about WorkSize on the long side.
@@ -110,10 +137,24 @@ public static class BuildPipeline
         }
         bool aligned = options.Align && working.Count > 1;
 
-        // 3b. The output frame: the reference section's frame as scanned, then upright, turned and mirrored as asked.
+        // 3b. The output frame: the template's, or the reference section's frame as scanned, then upright, turned and
+        // mirrored as asked.
         int chainReference = chain.Select((c, i) => (c, i)).First(t => t.c.Route == LinkRoute.Reference).i;
         int frameIndex = chainReference;
-        if (options.Frame.ReferenceSection is int wanted)
+        TemplatePlacement? onTemplate = null;
+        MidlineResult? midline = null;
+        if (template is not null)
+        {
+            if (!aligned)
+                throw new InputProblemException(options.Template!.Path, "--template needs aligned sections (it cannot be combined with --no-align or used on one section)",
+                    "leave out --no-align, or build without --template");
+            onTemplate = PlaceOnTemplate(template, options.Template!, series, working, chain, workUm, progress);
+            chainBefore = onTemplate.ChainBefore;
+            chain = onTemplate.Chain;
+            if (onTemplate.Guide.MeasuredCount == 0)
+                warnings.Add("no section could be matched to its template slice; the sections follow the neighbour chain only — check --template-axis and --template-first-plane");
+        }
+        else if (options.Frame.ReferenceSection is int wanted)
         {
             frameIndex = working.FindIndex(w => w.Entry.Number == wanted);
             if (chain[frameIndex].Route == LinkRoute.Failed)
@@ -128,8 +169,7 @@ public static class BuildPipeline
         }
         var frameImage = working[frameIndex].Image;
         double frameCx = (frameImage.Width - 1) / 2.0, frameCy = (frameImage.Height - 1) / 2.0;
-        MidlineResult? midline = null;
-        if (options.Frame.Upright)
+        if (options.Frame.Upright && template is null)
         {
             if (!aligned)
                 throw new InputProblemException(options.Input, "--upright needs aligned sections (it cannot be combined with --no-align or used on one section)",
@@ -190,11 +230,22 @@ public static class BuildPipeline
             throw new InputProblemException(options.Input, $"the output would have {nx}×{ny}×{nz} voxels, more than fits in memory",
                 "choose a coarser --output-pixel-size");
 
-        // The tissue's centre (middle of its box in the plane, middle of the stack) goes to the stated world position.
+        // The tissue's centre (middle of its box in the plane, middle of the stack) goes to the stated world position;
+        // with a template, every voxel goes where the template says.
         var centreBox = tissueBox.IsEmpty ? gridBox : tissueBox;
         var tissueCentre = (I: centreBox.CentreX - minX - 0.5, J: centreBox.CentreY - minY - 0.5, K: (nz - 1) / 2.0);
-        var affine = OutputFrame.PlacePointAt(
-            Affine.FromAxes(options.Axes, outUm / 1000, outUm / 1000, series.SpacingUm / 1000, nx, ny, nz), tissueCentre, options.Frame.CentreMm);
+        Affine affine;
+        if (onTemplate is not null)
+        {
+            var gridToPlane = Transform2D.Translation(minX + 0.5, minY + 0.5).Then(workToOut.Inverse()).Then(onTemplate.PlaneToWork.Inverse());
+            double dz = onTemplate.Direction * series.SpacingUm / 1000 / template!.PlaneSpacingMm;
+            affine = Affine.FromRows([gridToPlane.M00, gridToPlane.M01, 0, gridToPlane.M02], [gridToPlane.M10, gridToPlane.M11, 0, gridToPlane.M12],
+                [0, 0, dz, onTemplate.FirstPlane]).Then(template.VoxelToWorld);
+        }
+        else
+            affine = OutputFrame.PlacePointAt(
+                Affine.FromAxes(options.Axes, outUm / 1000, outUm / 1000, series.SpacingUm / 1000, nx, ny, nz), tissueCentre, options.Frame.CentreMm);
+        var tissueCentreWorld = affine.Apply(tissueCentre.I, tissueCentre.J, tissueCentre.K);
         var volume = new Volume(nx, ny, nz, affine);
 
         // 5. Render every placed section at the output resolution.
@@ -233,6 +284,7 @@ public static class BuildPipeline
                 RouteDisagreementUm = place.RouteDisagreement is { } d ? d * workUm : null,
                 RunnerUp = pair?.RunnerUp is { } ru ? new HypothesisRecord(ru.Mirrored, ru.RotationDegrees, ru.Ncc) : null,
                 DriftCorrectionUm = smoothing is null ? null : smoothing.CorrectionPx[n] * workUm,
+                Template = onTemplate is null ? null : TemplateRecord(onTemplate, n, workUm),
                 NccBefore = place.LinkedTo >= 0 && working[n].Prepared is { } a && working[place.LinkedTo].Prepared is { } b
                     ? CentredNcc(a.WorkImage, b.WorkImage) : null,
                 Pairs = smoothing?.Pairs.Where(d => d.Moving == n || d.Fixed == n).Select(d => new PairLinkRecord
@@ -299,7 +351,7 @@ public static class BuildPipeline
         }
         // A requested plane spacing: resample along the sections with the same interpolation as the gaps.
         string zResampling = "none";
-        if (options.VoxelSizeUm is double voxelUm && Math.Abs(voxelUm - series.SpacingUm) > 1e-9 * voxelUm)
+        if (zSpacingUm is double voxelUm && Math.Abs(voxelUm - series.SpacingUm) > 1e-9 * voxelUm)
         {
             var method = aligned && options.Fill != GapFill.None ? options.Fill : GapFill.Linear;
             volume = ZResampler.ResampleZ(volume, voxelUm / 1000, method);
@@ -327,6 +379,7 @@ public static class BuildPipeline
             ["smoothing"] = smoothing is null ? "off" : Num(options.Smoothing.Strength),
             ["fill"] = fillMethod.ToString().ToLowerInvariant(),
             ["z_resampling"] = zResampling,
+            ["template"] = onTemplate is null ? "none" : "sections matched to template slices by normalised mutual information; the template sets the course over 11 sections, the chain the detail",
         };
         var buildRecord = new BuildRecord
         {
@@ -336,7 +389,7 @@ public static class BuildPipeline
             Aligned = aligned,
             Dimensions = [nx, ny, nz],
             VoxelSizeMm = [sizes.I, sizes.J, sizes.K],
-            AxisCodes = options.Axes.Code,
+            AxisCodes = affine.AxisCodes.Code,
             Affine = affine.ToRows(),
             InputPixelSizeUm = series.PixelSizeUm,
             SpacingUm = series.SpacingUm,
@@ -344,7 +397,8 @@ public static class BuildPipeline
             Frame = new FrameRecord
             {
                 ReferenceSection = working[frameIndex].Entry.Number,
-                ReferenceChosenBy = options.Frame.ReferenceSection is null
+                ReferenceChosenBy = onTemplate is not null ? "the neighbour chain; the frame is the template's"
+                    : options.Frame.ReferenceSection is null
                     ? (aligned ? "the first section matched confidently to its neighbours" : "the first section")
                     : "--reference",
                 FaceFlipped = faceFlipped,
@@ -361,13 +415,102 @@ public static class BuildPipeline
                 MarginUm = cropped ? options.Frame.MarginUm : null,
                 TissueBoxVoxels = tissueBox.IsEmpty ? null
                     : [tissueBox.MinX - minX - 0.5, tissueBox.MinY - minY - 0.5, tissueBox.MaxX - minX - 0.5, tissueBox.MaxY - minY - 0.5],
-                TissueCentreMm = [options.Frame.CentreMm.X, options.Frame.CentreMm.Y, options.Frame.CentreMm.Z],
+                TissueCentreMm = [tissueCentreWorld.X, tissueCentreWorld.Y, tissueCentreWorld.Z],
+                Template = onTemplate is null ? null : new TemplateFrameRecord
+                {
+                    File = Path.GetFullPath(options.Template!.Path),
+                    CutAxis = options.Template.CutAxis.ToString(),
+                    FirstPlane = onTemplate.FirstPlane,
+                    Reverse = options.Template.Reverse,
+                    Grid = templateGrid ? "template" : "sections",
+                    Mirrored = onTemplate.Guide.Mirrored,
+                    GlobalAgreement = onTemplate.Guide.GlobalAgreement,
+                    Measured = onTemplate.Guide.MeasuredCount,
+                    Outliers = onTemplate.Guide.OutlierCount,
+                },
             },
             Parameters = parameters,
             Warnings = warnings,
             Sections = records,
         };
         return new BuildResult(volume, buildRecord, bits);
+    }
+
+    /// <summary>The sections placed on a template: the fused placements (template plane pixels at working scale) and the record of how.</summary>
+    private sealed record TemplatePlacement(IReadOnlyList<ChainPlacement> Chain, IReadOnlyList<ChainPlacement> ChainBefore, TemplateGuideResult Guide,
+        double[] Z, double FirstPlane, double Direction, Transform2D PlaneToWork);
+
+    /// <summary>
+    /// Every section matched to the template slice at its depth and the stack's course fused with the template's
+    /// (<see cref="TemplateGuide"/>). Section depth: template plane = first plane ± (position − first position) / plane spacing.
+    /// </summary>
+    private static TemplatePlacement PlaceOnTemplate(TemplateVolume template, TemplateOptions o, SectionSeries series, List<Working> working,
+        IReadOnlyList<ChainPlacement> chain, double workUm, IProgress<string>? progress)
+    {
+        double first = series.Sections[0].PositionUm, last = series.Sections.Max(s => s.PositionUm);
+        double direction = o.Reverse ? -1 : 1;
+        double perUm = 1 / 1000.0 / template.PlaneSpacingMm;
+        double firstPlane = o.FirstPlane ?? (template.Planes - 1) / 2.0 - direction * (last - first) * perUm / 2;
+        var z = working.Select(w => firstPlane + direction * (w.Entry.PositionUm - first) * perUm).ToArray();
+        int inside = z.Count(template.ContainsPlane);
+        if (inside < Math.Min(3, working.Count))
+            throw new InputProblemException(o.Path,
+                $"only {inside} of {working.Count} sections fall inside the template: they lie at template planes {z.Min():0.#} to {z.Max():0.#} along axis {o.CutAxis}, and the template has planes 0 to {template.Planes - 1} ({template.PlaneSpacingMm:0.###} mm apart)",
+                "check --template-axis (the template's axis the sections were cut along), --template-first-plane and the section spacing");
+        var slices = new GrayImage?[working.Count];
+        var sliceToPlane = Transform2D.Identity;
+        object gate = new();
+        int done = 0;
+        Parallel.For(0, working.Count, new ParallelOptions { MaxDegreeOfParallelism = Environment.ProcessorCount }, n =>
+        {
+            if (!template.ContainsPlane(z[n])) return;
+            slices[n] = template.Slice(z[n], workUm / 1000, out var map);
+            lock (gate) sliceToPlane = map;
+            progress?.Report($"template: slice {Interlocked.Increment(ref done)}/{inside}");
+        });
+        progress?.Report("template: matching sections to their slices");
+        var guide = TemplateGuide.Place(new TemplateGuideInput(working.Select((w, n) => new TemplateGuideSection(
+            z[n], chain[n].Route == LinkRoute.Failed ? null : w.Image, chain[n].ToReference, slices[n], chain[n].Pair?.Confidence ?? 1)).ToList()));
+        var planeToWork = Transform2D.Scale(template.PixelWidthMm * 1000 / workUm, template.PixelHeightMm * 1000 / workUm);
+        var fused = chain.Select((c, n) => c.Route == LinkRoute.Failed ? c
+            : c with { ToReference = guide.Sections[n].SectionToSlice.Then(sliceToPlane).Then(planeToWork) }).ToList();
+        var before = chain.Select((c, n) => c.Route == LinkRoute.Failed ? c
+            : c with { ToReference = guide.Sections[n].ChainToSlice.Then(sliceToPlane).Then(planeToWork) }).ToList();
+        return new TemplatePlacement(fused, before, guide, z, firstPlane, direction, planeToWork);
+    }
+
+    private static SectionTemplateRecord TemplateRecord(TemplatePlacement t, int n, double workUm)
+    {
+        var p = t.Guide.Sections[n];
+        return new SectionTemplateRecord
+        {
+            Plane = t.Z[n],
+            Matched = p.Measured is not null,
+            Similarity = p.Similarity,
+            Confidence = p.Measured is null ? null : p.Confidence,
+            ResidualUm = p.ResidualPx * workUm,
+            ResidualDegrees = p.ResidualDegrees,
+            Outlier = p.Outlier ? p.Reason ?? "outlier" : null,
+            Note = !p.Outlier && p.Measured is null ? p.Reason : null,
+            CorrectionUm = Math.Sqrt(p.CorrectionX * p.CorrectionX + p.CorrectionY * p.CorrectionY) * workUm,
+            CorrectionDegrees = p.CorrectionDegrees,
+        };
+    }
+
+    /// <summary>With a template the frame is the template's: the options that choose a frame are refused, not ignored.</summary>
+    private static void CheckTemplateCombination(BuildOptions options)
+    {
+        var f = options.Frame;
+        var clash = new List<string>();
+        if (f.ReferenceSection is not null) clash.Add("--reference");
+        if (f.RotateDegrees != 0) clash.Add("--rotate");
+        if (f.Mirror) clash.Add("--mirror");
+        if (f.Upright) clash.Add("--upright");
+        if (f.CentreMm != default) clash.Add("--centre");
+        if (!options.Align) clash.Add("--no-align");
+        if (clash.Count > 0)
+            throw new InputProblemException(options.Template!.Path, $"{string.Join(", ", clash)} cannot be combined with --template: the template decides the frame",
+                $"leave out {string.Join(" and ", clash)}, or build without --template");
     }
 
     /// <summary>Most sections handed to the midline search (evenly spread over the stack).</summary>

@@ -38,6 +38,8 @@ public sealed record SectionRecord
     [JsonPropertyName("damaged")] public bool Damaged { get; init; }
     [JsonPropertyName("matrix")] public double[][]? Matrix { get; init; }
     [JsonPropertyName("note")] public string? Note { get; init; }
+    /// <summary>With --template: how the section matched its template slice and how far the template moved it.</summary>
+    [JsonPropertyName("template")] public SectionTemplateRecord? Template { get; init; }
     /// <summary>How far (µm, at the section's centre) the smoothing prior moved the section from its chain placement; null when the prior was off.</summary>
     [JsonPropertyName("drift_correction_um")] public double? DriftCorrectionUm { get; init; }
     /// <summary>Every pairwise registration the smoothing prior used with this section, with its weight and any outlier flag.</summary>
@@ -115,12 +117,19 @@ public sealed record FrameRecord
     [JsonPropertyName("tissue_box_voxels")] public double[]? TissueBoxVoxels { get; init; }
     /// <summary>World position (RAS+ mm) given to the tissue's centre (middle of its box, middle of the stack).</summary>
     [JsonPropertyName("tissue_centre_mm")] public double[] TissueCentreMm { get; init; } = [0, 0, 0];
+    /// <summary>With --template: the template whose frame the volume is in.</summary>
+    [JsonPropertyName("template")] public TemplateFrameRecord? Template { get; init; }
 
     /// <summary>One line for people: which section's frame, what was turned, how the grid was cut.</summary>
     public string Describe()
     {
         var c = System.Globalization.CultureInfo.InvariantCulture;
-        var parts = new List<string> { $"section {ReferenceSection} as scanned{(FaceFlipped ? ", turned face up" : "")}" };
+        var parts = new List<string>();
+        if (Template is { } t)
+            parts.Add(string.Format(c, "the template's frame ({0}, cut along {1}, first section at plane {2:0.##}{3}; {4} sections matched to it, {5} set aside)",
+                System.IO.Path.GetFileName(t.File), t.CutAxis, t.FirstPlane, t.Reverse ? ", reversed" : "", t.Measured, t.Outliers));
+        else
+            parts.Add($"section {ReferenceSection} as scanned{(FaceFlipped ? ", turned face up" : "")}");
         if (Upright is { } u) parts.Add(string.Format(c, "upright (turned {0:0.#}°, symmetry {1:0.00})", u.AngleDegrees, u.Symmetry));
         if (RotateDegrees != 0) parts.Add(string.Format(c, "turned {0:0.##}° clockwise", RotateDegrees));
         if (Mirror) parts.Add("mirrored left-right");
@@ -128,6 +137,49 @@ public sealed record FrameRecord
         parts.Add(string.Format(c, "tissue centre at ({0:0.##}, {1:0.##}, {2:0.##}) mm", TissueCentreMm[0], TissueCentreMm[1], TissueCentreMm[2]));
         return string.Join(", ", parts);
     }
+}
+
+/// <summary>The template that gave the volume its frame.</summary>
+public sealed record TemplateFrameRecord
+{
+    [JsonPropertyName("file")] public string File { get; init; } = "";
+    /// <summary>The template's voxel axis the sections were cut along.</summary>
+    [JsonPropertyName("cut_axis")] public string CutAxis { get; init; } = "k";
+    /// <summary>Template plane index (fractional) of the first section; section planes follow at the section spacing.</summary>
+    [JsonPropertyName("first_plane")] public double FirstPlane { get; init; }
+    /// <summary>True when higher section numbers lie at lower template planes.</summary>
+    [JsonPropertyName("reverse")] public bool Reverse { get; init; }
+    /// <summary>"template" (the template's voxel size) or "sections" (the sections' pixel size and spacing).</summary>
+    [JsonPropertyName("grid")] public string Grid { get; init; } = "sections";
+    /// <summary>True when the stack as chained matched the template only mirrored (the reference section lay face down).</summary>
+    [JsonPropertyName("mirrored")] public bool Mirrored { get; init; }
+    /// <summary>Share of the sections searched over all angles that agreed on one map from the stack to the template.</summary>
+    [JsonPropertyName("global_agreement")] public double GlobalAgreement { get; init; }
+    /// <summary>Sections registered to their template slice (those set aside as outliers included).</summary>
+    [JsonPropertyName("measured")] public int Measured { get; init; }
+    /// <summary>Sections whose template match was set aside as an outlier.</summary>
+    [JsonPropertyName("outliers")] public int Outliers { get; init; }
+}
+
+/// <summary>One section against its template slice.</summary>
+public sealed record SectionTemplateRecord
+{
+    /// <summary>The template plane (fractional index along the cut axis) the section was compared with.</summary>
+    [JsonPropertyName("plane")] public double Plane { get; init; }
+    /// <summary>True when the section was registered to its slice (false: gap, outside the template, or not registered).</summary>
+    [JsonPropertyName("matched")] public bool Matched { get; init; }
+    /// <summary>Normalised mutual information − 1 of the match (Studholme et al. 1999): 0 = unrelated, higher = more alike.</summary>
+    [JsonPropertyName("similarity")] public double? Similarity { get; init; }
+    [JsonPropertyName("confidence")] public double? Confidence { get; init; }
+    /// <summary>How far (µm, at the section's centre) the template match lay from the neighbour chain's placement.</summary>
+    [JsonPropertyName("residual_um")] public double? ResidualUm { get; init; }
+    [JsonPropertyName("residual_deg")] public double? ResidualDegrees { get; init; }
+    /// <summary>Why the match was set aside, or null when it was used.</summary>
+    [JsonPropertyName("outlier")] public string? Outlier { get; init; }
+    [JsonPropertyName("note")] public string? Note { get; init; }
+    /// <summary>How far (µm, at the section's centre) the smoothed template correction moved the chain's placement.</summary>
+    [JsonPropertyName("correction_um")] public double CorrectionUm { get; init; }
+    [JsonPropertyName("correction_deg")] public double CorrectionDegrees { get; init; }
 }
 
 /// <summary>The midline found for --upright.</summary>
