@@ -130,16 +130,7 @@ public sealed class GapFillTests(ITestOutputHelper output)
     {
         // Analytic truth: b is a shifted by (3, −2) px, so the field on the grid of any intermediate plane is (3, −2).
         const int w = 96, h = 80;
-        static float Pattern(double x, double y) =>
-            (float)(Math.Sin(x / 5.0) * Math.Cos(y / 7.0) + 0.5 * Math.Exp(-((x - 40) * (x - 40) + (y - 35) * (y - 35)) / 200.0));
-        var a = new GrayImage(w, h);
-        var b = new GrayImage(w, h);
-        for (int y = 0; y < h; y++)
-        for (int x = 0; x < w; x++)
-        {
-            a.Pixels[y * w + x] = Pattern(x, y);
-            b.Pixels[y * w + x] = Pattern(x - 3, y + 2);
-        }
+        var (a, b) = SmoothingSolverTests.ShiftedPatterns(w, h, 3, -2);
         foreach (double t in new[] { 0.25, 0.5, 0.75 })
         {
             var (u, v) = GapFiller.SymmetricFlow(a, b, t, new GapFiller.FlowOptions());

@@ -172,11 +172,9 @@ public sealed class SmoothingSolverTests(ITestOutputHelper output)
         for (int i = 0; i < n; i++) Assert.Equal(expected[i], x[i], 1e-8);
     }
 
-    [Fact]
-    public void HornSchunckFindsAKnownShift()
+    /// <summary>A smooth pattern and the same pattern shifted by (dx, dy): b(x + (dx, dy)) = a(x).</summary>
+    internal static (GrayImage A, GrayImage B) ShiftedPatterns(int w, int h, double dx, double dy)
     {
-        // Analytic truth: b is a shifted by (2.5, −1.5) px, so a(x) = b(x + (2.5, −1.5)) in the middle.
-        const int w = 96, h = 80;
         static float Pattern(double x, double y) =>
             (float)(Math.Sin(x / 5.0) * Math.Cos(y / 7.0) + 0.5 * Math.Exp(-((x - 40) * (x - 40) + (y - 35) * (y - 35)) / 200.0));
         var a = new GrayImage(w, h);
@@ -185,8 +183,17 @@ public sealed class SmoothingSolverTests(ITestOutputHelper output)
         for (int x = 0; x < w; x++)
         {
             a.Pixels[y * w + x] = Pattern(x, y);
-            b.Pixels[y * w + x] = Pattern(x - 2.5, y + 1.5);
+            b.Pixels[y * w + x] = Pattern(x - dx, y - dy);
         }
+        return (a, b);
+    }
+
+    [Fact]
+    public void HornSchunckFindsAKnownShift()
+    {
+        // Analytic truth: b is a shifted by (2.5, −1.5) px, so a(x) = b(x + (2.5, −1.5)) in the middle.
+        const int w = 96, h = 80;
+        var (a, b) = ShiftedPatterns(w, h, 2.5, -1.5);
         var (u, v) = GapFiller.HornSchunck(a, b, new GapFiller.FlowOptions());
         double su = 0, sv = 0;
         int m = 0;

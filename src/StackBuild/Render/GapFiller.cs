@@ -102,21 +102,7 @@ public static class GapFiller
     /// </summary>
     public static (float[] U, float[] V) SymmetricFlow(GrayImage a, GrayImage b, double t, FlowOptions options)
     {
-        double spread = Spread(a.Pixels, b.Pixels);
-        var na = Scaled(a, spread);
-        var nb = Scaled(b, spread);
-        if (options.PreSmoothSigma > 0)
-        {
-            na = Gaussian(na, options.PreSmoothSigma);
-            nb = Gaussian(nb, options.PreSmoothSigma);
-        }
-        var pyramidA = new List<GrayImage> { na };
-        var pyramidB = new List<GrayImage> { nb };
-        while (Math.Min(pyramidA[^1].Width, pyramidA[^1].Height) / 2 >= options.CoarsestSide)
-        {
-            pyramidA.Add(Half(pyramidA[^1]));
-            pyramidB.Add(Half(pyramidB[^1]));
-        }
+        var (pyramidA, pyramidB) = Pyramids(a, b, options, presmooth: true);
         float[] u = new float[pyramidA[^1].Pixels.Length], v = new float[u.Length];
         for (int level = pyramidA.Count - 1; level >= 0; level--)
         {
@@ -277,6 +263,30 @@ public static class GapFiller
     }
 
     /// <summary>
+    /// Both planes scaled by their common spread (optionally pre-smoothed), then halved until the short side would drop
+    /// below <see cref="FlowOptions.CoarsestSide"/>: level 0 is full size.
+    /// </summary>
+    private static (List<GrayImage> A, List<GrayImage> B) Pyramids(GrayImage a, GrayImage b, FlowOptions options, bool presmooth)
+    {
+        double spread = Spread(a.Pixels, b.Pixels);
+        var na = Scaled(a, spread);
+        var nb = Scaled(b, spread);
+        if (presmooth && options.PreSmoothSigma > 0)
+        {
+            na = Gaussian(na, options.PreSmoothSigma);
+            nb = Gaussian(nb, options.PreSmoothSigma);
+        }
+        var pyramidA = new List<GrayImage> { na };
+        var pyramidB = new List<GrayImage> { nb };
+        while (Math.Min(pyramidA[^1].Width, pyramidA[^1].Height) / 2 >= options.CoarsestSide)
+        {
+            pyramidA.Add(Half(pyramidA[^1]));
+            pyramidB.Add(Half(pyramidB[^1]));
+        }
+        return (pyramidA, pyramidB);
+    }
+
+    /// <summary>
     /// Dense displacement field (u, v) in pixels with a(x, y) ≈ b(x + u, y + v), by the Horn–Schunck method
     /// (Horn &amp; Schunck 1981, Artif. Intell. 17:185: brightness constancy plus a quadratic smoothness term, solved by
     /// their Jacobi-type iteration), on a coarse-to-fine pyramid of 2× reductions with b warped by the current field
@@ -285,16 +295,7 @@ public static class GapFiller
     /// </summary>
     public static (float[] U, float[] V) HornSchunck(GrayImage a, GrayImage b, FlowOptions options)
     {
-        double spread = Spread(a.Pixels, b.Pixels);
-        var na = Scaled(a, spread);
-        var nb = Scaled(b, spread);
-        var pyramidA = new List<GrayImage> { na };
-        var pyramidB = new List<GrayImage> { nb };
-        while (Math.Min(pyramidA[^1].Width, pyramidA[^1].Height) / 2 >= options.CoarsestSide)
-        {
-            pyramidA.Add(Half(pyramidA[^1]));
-            pyramidB.Add(Half(pyramidB[^1]));
-        }
+        var (pyramidA, pyramidB) = Pyramids(a, b, options, presmooth: false);
         float[] u = new float[pyramidA[^1].Pixels.Length], v = new float[u.Length];
         for (int level = pyramidA.Count - 1; level >= 0; level--)
         {
