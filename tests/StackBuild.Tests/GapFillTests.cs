@@ -141,7 +141,7 @@ public sealed class GapFillTests(ITestOutputHelper output)
             var fill = GapFiller.Interpolate(a.Pixels, b.Pixels, w, h, t, GapFill.Flow);
             double err = 0;
             for (int y = 20; y < h - 20; y++)
-            for (int x = 20; x < w - 20; x++) err += Math.Pow(fill[y * w + x] - Pattern(x - 3 * t, y + 2 * t), 2);
+            for (int x = 20; x < w - 20; x++) err += Math.Pow(fill[y * w + x] - SmoothingSolverTests.Pattern(x - 3 * t, y + 2 * t), 2);
             output.WriteLine($"t = {t}: mean field in the middle ({su / m:0.###}, {sv / m:0.###}); fill rms {Math.Sqrt(err / m):0.####}");
             // The smoothness term pulls the field towards zero where the pattern varies slowly (the vertical cosine):
             // measured (2026-12-02) up to 0.29 px short of 2 px; 0.35 px is this project's bound.

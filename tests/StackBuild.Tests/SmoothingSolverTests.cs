@@ -173,10 +173,11 @@ public sealed class SmoothingSolverTests(ITestOutputHelper output)
     }
 
     /// <summary>A smooth pattern and the same pattern shifted by (dx, dy): b(x + (dx, dy)) = a(x).</summary>
+    internal static float Pattern(double x, double y) =>
+        (float)(Math.Sin(x / 5.0) * Math.Cos(y / 7.0) + 0.5 * Math.Exp(-((x - 40) * (x - 40) + (y - 35) * (y - 35)) / 200.0));
+
     internal static (GrayImage A, GrayImage B) ShiftedPatterns(int w, int h, double dx, double dy)
     {
-        static float Pattern(double x, double y) =>
-            (float)(Math.Sin(x / 5.0) * Math.Cos(y / 7.0) + 0.5 * Math.Exp(-((x - 40) * (x - 40) + (y - 35) * (y - 35)) / 200.0));
         var a = new GrayImage(w, h);
         var b = new GrayImage(w, h);
         for (int y = 0; y < h; y++)
