@@ -83,6 +83,13 @@ public sealed class DriftCorrectionTests(DriftBuilds builds, ITestOutputHelper o
         Assert.True(guided.PairErrorPx.Median <= chain.PairErrorPx.Median + 0.2, $"pairwise median {guided.PairErrorPx.Median} vs {chain.PairErrorPx.Median}");
         // The curved tube's course is kept because every section is where the truth put it: no section off by more than 2 px.
         Assert.True(guided.ErrorPx.Max <= 2, $"largest placement error {guided.ErrorPx.Max} px");
+
+        // The error estimate follows the template: the median estimate is within a factor of 3 of the true median error
+        // (it would be the chain's random walk, about ten times larger, without the template term).
+        var estimates = Uncertainty.Annotate(builds.Guided.Record).Sections.Where(s => s.EstimatedErrorUm is not null).Select(s => s.EstimatedErrorUm!.Value).ToList();
+        double estimated = Numerics.Quantiles.Median(estimates), trueUm = guided.ErrorPx.Median * builds.Guided.Record.VoxelSizeMm[0] * 1000;
+        output.WriteLine($"estimated error median {estimated:0.##} µm, true median {trueUm:0.##} µm");
+        Assert.InRange(estimated / trueUm, 1 / 3.0, 3);
     }
 
     [Fact]

@@ -24,7 +24,8 @@ public sealed record SectionUncertainty(int Number, double LinkUm, double Accumu
 /// for a close call between hypotheses that may have picked the wrong one.</item>
 /// </list>
 /// Errors of successive links are taken as independent, so variances add along the chain from the reference
-/// (a random walk; common practice for chained pairwise registration).
+/// (a random walk; common practice for chained pairwise registration). A build guided by a template replaces the
+/// walk by <see cref="TemplateError"/>: each section's error is then relative to the template, not the reference.
 /// </remarks>
 public static class Uncertainty
 {
@@ -58,9 +59,30 @@ public static class Uncertainty
                 if (at.RegisteredTo is not int parent || !placed.TryGetValue(parent, out var next)) break;
                 at = next;
             }
+            // With a template the chain no longer accumulates: the course is the template's, known as well as the
+            // template matches around the section agree with the fused placements.
+            if (s.Template is not null && TemplateError(s, record.Sections) is double templateUm)
+                variance = link[s.Number] * link[s.Number] + templateUm * templateUm;
             result[s.Number] = new SectionUncertainty(s.Number, link[s.Number], Math.Sqrt(variance));
         }
         return result;
+    }
+
+    /// <summary>Sections on either side whose template matches set the course at a section (the fusion's window, 11 sections).</summary>
+    public const int TemplateHalfWindow = 5;
+
+    /// <summary>
+    /// Standard error (µm) of a template-guided section's course: the RMS misfit between the template matches and
+    /// the fused placements within ±<see cref="TemplateHalfWindow"/> sections, divided by √(number of those matches)
+    /// (the local fit averages them). Null when no match nearby was used (then the chain's random walk stands).
+    /// </summary>
+    public static double? TemplateError(SectionRecord section, IReadOnlyList<SectionRecord> all)
+    {
+        var misfits = all.Where(o => o.Template is { Matched: true, Outlier: null, MisfitUm: not null }
+                                     && Math.Abs(o.ZIndex - section.ZIndex) <= TemplateHalfWindow)
+            .Select(o => o.Template!.MisfitUm!.Value).ToList();
+        if (misfits.Count == 0) return null;
+        return Math.Sqrt(misfits.Average(m => m * m) / misfits.Count);
     }
 
     /// <summary>The record with <see cref="SectionRecord.EstimatedErrorUm"/> filled in for every placed section.</summary>

@@ -284,7 +284,7 @@ public static class BuildPipeline
                 RouteDisagreementUm = place.RouteDisagreement is { } d ? d * workUm : null,
                 RunnerUp = pair?.RunnerUp is { } ru ? new HypothesisRecord(ru.Mirrored, ru.RotationDegrees, ru.Ncc) : null,
                 DriftCorrectionUm = smoothing is null ? null : smoothing.CorrectionPx[n] * workUm,
-                Template = onTemplate is null ? null : TemplateRecord(onTemplate, n, workUm),
+                Template = onTemplate is null ? null : TemplateRecord(onTemplate, n, workUm, working[n].Image),
                 NccBefore = place.LinkedTo >= 0 && working[n].Prepared is { } a && working[place.LinkedTo].Prepared is { } b
                     ? CentredNcc(a.WorkImage, b.WorkImage) : null,
                 Pairs = smoothing?.Pairs.Where(d => d.Moving == n || d.Fixed == n).Select(d => new PairLinkRecord
@@ -479,9 +479,17 @@ public static class BuildPipeline
         return new TemplatePlacement(fused, before, guide, z, firstPlane, direction, planeToWork);
     }
 
-    private static SectionTemplateRecord TemplateRecord(TemplatePlacement t, int n, double workUm)
+    private static SectionTemplateRecord TemplateRecord(TemplatePlacement t, int n, double workUm, GrayImage image)
     {
         var p = t.Guide.Sections[n];
+        double cx = (image.Width - 1) / 2.0, cy = (image.Height - 1) / 2.0;
+        double? misfit = null;
+        if (p.Measured is { } measured)
+        {
+            var (ax, ay) = measured.Apply(cx, cy);
+            var (bx, by) = p.SectionToSlice.Apply(cx, cy);
+            misfit = Math.Sqrt((ax - bx) * (ax - bx) + (ay - by) * (ay - by)) * workUm;
+        }
         return new SectionTemplateRecord
         {
             Plane = t.Z[n],
@@ -494,6 +502,7 @@ public static class BuildPipeline
             Note = !p.Outlier && p.Measured is null ? p.Reason : null,
             CorrectionUm = Math.Sqrt(p.CorrectionX * p.CorrectionX + p.CorrectionY * p.CorrectionY) * workUm,
             CorrectionDegrees = p.CorrectionDegrees,
+            MisfitUm = misfit,
         };
     }
 

@@ -180,6 +180,8 @@ public sealed record SectionTemplateRecord
     /// <summary>How far (µm, at the section's centre) the smoothed template correction moved the chain's placement.</summary>
     [JsonPropertyName("correction_um")] public double CorrectionUm { get; init; }
     [JsonPropertyName("correction_deg")] public double CorrectionDegrees { get; init; }
+    /// <summary>How far (µm, at the section's centre) its own template match lies from its final placement; null when unmatched.</summary>
+    [JsonPropertyName("misfit_um")] public double? MisfitUm { get; init; }
 }
 
 /// <summary>The midline found for --upright.</summary>
