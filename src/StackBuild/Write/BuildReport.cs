@@ -218,8 +218,11 @@ public static class BuildReport
             <section><h2>Every section</h2>
             <table class="sections" id="sections"><thead><tr>
             <th>section</th><th>file</th><th>status</th><th>mirrored</th><th>rotation (°)</th><th>translation x, y (µm)</th>
-            <th>confidence</th><th>est. error (µm)</th><th>NCC</th><th>registered to</th></tr></thead><tbody>
+            <th>confidence</th><th>est. error (µm)</th><th>NCC</th><th>registered to</th>
             """);
+        bool template = r.Sections.Any(s => s.Template is not null);
+        if (template) o.Write("<th>template match</th>");
+        o.Write("</tr></thead><tbody>");
         foreach (var s in r.Sections)
         {
             string css = flagged.Contains(s.Number) ? " class=\"flagged\"" : s.Status is "gap" or "excluded" ? " class=\"absent\"" : "";
@@ -228,12 +231,24 @@ public static class BuildReport
                 $"<td class=\"status\">{E(s.Status)}</td><td class=\"mirrored\">{(s.Mirrored is bool mb ? (mb ? "yes" : "no") : "")}</td>" +
                 $"<td class=\"rotation\">{F(s.RotationDegrees, "0.00")}</td><td class=\"shift\">{shift}</td>" +
                 $"<td class=\"confidence\">{F(s.Confidence, "0.000")}</td><td class=\"error\">{F(s.EstimatedErrorUm, "0.0")}</td>" +
-                $"<td class=\"ncc\">{F(s.Ncc, "0.000")}</td><td class=\"route\">{Route(s)}</td></tr>");
+                $"<td class=\"ncc\">{F(s.Ncc, "0.000")}</td><td class=\"route\">{Route(s)}</td>" +
+                (template ? $"<td class=\"template\">{E(TemplateMatch(s.Template))}</td>" : "") + "</tr>");
         }
         o.Write("</tbody></table><p class=\"note\">Translation: where the image's top-left pixel centre lands in the output plane. " +
             "Estimated error: one standard error relative to the reference section, from peak sharpness, route disagreement " +
-            "and confidence, accumulated along the chain (see docs/uncertainty.md).</p></section>");
+            "and confidence, accumulated along the chain (see docs/uncertainty.md)" +
+            (template ? "; with a template, relative to the template, from how well the template matches nearby agree with the placements. " +
+                "Template match: similarity (normalised mutual information − 1) and how far the section's own match lies from its placement" : "") +
+            ".</p></section>");
     }
+
+    private static string TemplateMatch(SectionTemplateRecord? t) => t switch
+    {
+        null => "",
+        { Outlier: { } why } => $"set aside: {why}",
+        { Matched: true } => $"similarity {F(t.Similarity, "0.00")}, {F(t.MisfitUm, "0.0")} µm off",
+        _ => t.Note ?? "not matched",
+    };
 
     /// <summary>A sidecar key as a label: words apart, a trailing unit in brackets (output_pixel_size_um → output pixel size (µm)).</summary>
     private static string ParameterName(string key)
