@@ -170,6 +170,38 @@ public sealed class BuildCommandTests : IDisposable
         Assert.Single(stderr.Split('\n', StringSplitOptions.RemoveEmptyEntries));
     }
 
+    [Theory]
+    [InlineData("--centre", "1,2", "--centre")]
+    [InlineData("--centre", "a,b,c", "--centre")]
+    [InlineData("--margin", "-5", "--margin")]
+    [InlineData("--rotate", "NaN", "--rotate")]
+    [InlineData("--template-axis", "x", "--template-axis")]
+    [InlineData("--voxel-size", "0", "--voxel-size")]
+    [InlineData("--reference", "99", "--reference 99")]
+    public void FrameAndTemplateOptionsAreCheckedWithTheOptionNamed(string option, string value, string named)
+    {
+        var series = MakeSeries();
+        var output = Path.Combine(_dir, "vol.nii.gz");
+        string[] extra = option == "--template-axis" ? ["--template", Path.Combine(_dir, "none.nii.gz")] : [];
+        var (code, _, stderr) = Run(["build", series, "-o", output, option, value, .. extra]);
+        Assert.Equal(1, code);
+        var lines = stderr.Split('\n', StringSplitOptions.RemoveEmptyEntries);
+        Assert.Single(lines);
+        Assert.Contains(named, lines[0]);
+        Assert.False(File.Exists(output));
+    }
+
+    [Fact]
+    public void TemplateRefusesTheOptionsThatChooseAFrame()
+    {
+        var series = MakeSeries();
+        var output = Path.Combine(_dir, "vol.nii.gz");
+        var (code, _, stderr) = Run("build", series, "-o", output, "--template", Path.Combine(_dir, "t.nii.gz"), "--rotate", "90", "--mirror");
+        Assert.Equal(1, code);
+        Assert.Contains("--rotate, --mirror cannot be combined with --template", stderr);
+        Assert.False(File.Exists(output));
+    }
+
     [Fact]
     public void MissingPixelSizeSaysHowToGiveIt()
     {

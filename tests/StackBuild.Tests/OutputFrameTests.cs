@@ -192,6 +192,32 @@ public sealed class OutputFrameTests(OutputFrameFixture fixture, ITestOutputHelp
     }
 
     [Fact]
+    public void TemplateGridTakesTheTemplatesVoxelsAndAxes()
+    {
+        // The template: the specimen's truth volume 2× coarser on every axis with a new contrast (nibabel, see the tool).
+        var template = Path.Combine(fixture.Folder, "template.nii.gz");
+        var truth = Path.Combine(fixture.Folder, DemoSpecimenMaker.TruthVolumeFileName);
+        StackBuild.Nifti.NiftiFile.Write(truth, fixture.Specimen.Truth);
+        NiftiPython.Run("template_world_check.py", "make", truth, template, "2");
+        var t = StackBuild.Nifti.NiftiFile.Read(template);
+        var built = BuildPipeline.Run(new BuildOptions { Input = fixture.Series, Template = new TemplateOptions { Path = template, TemplateGrid = true } });
+        var sizes = t.Affine.VoxelSizes;
+        output.WriteLine($"template voxels {sizes.I} × {sizes.J} × {sizes.K} mm, axes {t.Affine.AxisCodes.Code}; built {string.Join(" × ", built.Record.VoxelSizeMm)} mm, axes {built.Record.AxisCodes}, {built.Record.Frame!.Describe()}");
+        Assert.Equal(new[] { sizes.I, sizes.J, sizes.K }.Select(v => Math.Round(v, 6)), built.Record.VoxelSizeMm.Select(v => Math.Round(v, 6)));
+        Assert.Equal(t.Affine.AxisCodes.Code, built.Record.AxisCodes);
+        Assert.Equal("template", built.Record.Frame.Template!.Grid);
+
+        // Sections beyond the template are refused with the planes named and what to check.
+        var e = Assert.Throws<InputProblemException>(() => BuildPipeline.Run(new BuildOptions
+        {
+            Input = fixture.Series, Template = new TemplateOptions { Path = template, FirstPlane = 1000 },
+        }));
+        output.WriteLine(e.Message);
+        Assert.Contains("fall inside the template", e.Message);
+        Assert.Contains("--template-first-plane", e.Message);
+    }
+
+    [Fact]
     public void PointInTheAffineMovesOnlyTheTranslation()
     {
         var a = Affine.FromAxes(AxisCodes.Default, 0.02, 0.02, 0.05, 100, 80, 10);

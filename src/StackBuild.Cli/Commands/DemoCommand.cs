@@ -111,8 +111,7 @@ public static class DemoCommand
             "choose a new or empty folder, or move its contents elsewhere first");
     }
 
-    /// <summary>Writes truth.nii.gz, the truth volume, next to the series.</summary>
-    /// <summary>The truth volume as NIfTI-1: stain density stored in 8 bits with scl_slope (steps of 1/255 of the range).</summary>
+    /// <summary>Writes truth.nii.gz next to the series: the truth volume as NIfTI-1: stain density stored in 8 bits with scl_slope (steps of 1/255 of the range).</summary>
     private static void WriteTruthVolume(DemoSpecimen specimen, string outDir) =>
         NiftiFile.Write(Path.Combine(outDir, DemoSpecimenMaker.TruthVolumeFileName), specimen.Truth,
             new NiftiWriteOptions { DataType = NiftiDataType.UInt8, Description = "StackBuild demo truth: stain density 0-1" });

@@ -134,7 +134,9 @@ public sealed record FrameRecord
         if (RotateDegrees != 0) parts.Add(string.Format(c, "turned {0:0.##}° clockwise", RotateDegrees));
         if (Mirror) parts.Add("mirrored left-right");
         parts.Add(Crop == "tissue" ? string.Format(c, "cropped to the tissue + {0:0.#} µm", MarginUm) : "whole images kept");
-        parts.Add(string.Format(c, "tissue centre at ({0:0.##}, {1:0.##}, {2:0.##}) mm", TissueCentreMm[0], TissueCentreMm[1], TissueCentreMm[2]));
+        // Rounded before formatting (plus +0.0) so a tiny negative number does not print as "-0".
+        static double R(double v) => Math.Round(v, 2) + 0.0;
+        parts.Add(string.Format(c, "tissue centre at ({0:0.##}, {1:0.##}, {2:0.##}) mm", R(TissueCentreMm[0]), R(TissueCentreMm[1]), R(TissueCentreMm[2])));
         return string.Join(", ", parts);
     }
 }
