@@ -139,10 +139,9 @@ public class RegisterMriTests(ITestOutputHelper output)
         Assert.True(RegisterTestImages.Median(outcomes.Select(o => o.CentreError)) <= 0.1, Summary(outcomes));
     }
 
-    [Fact]
+    [SoakFact]
     public void SoakManyMovedSections()
     {
-        if (Environment.GetEnvironmentVariable("STACKBUILD_SOAK") != "1") return; // long run only on request
         var outcomes = Run(Cases(sections: 91, perSection: 4, seed: 7), new RegistrationOptions());
         output.WriteLine(Summary(outcomes));
         AssertTargets(outcomes);

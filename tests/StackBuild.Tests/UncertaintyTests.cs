@@ -67,10 +67,9 @@ public sealed class UncertaintyTests(ITestOutputHelper output)
     /// STACKBUILD_SOAK=1). Prints the rank correlations that docs/uncertainty.md reports; asserts only that the
     /// estimate ranks the worst sections (the torn one) high, the property the report relies on.
     /// </summary>
-    [Fact]
+    [SoakFact]
     public void EstimateAgainstTheDemoTruth()
     {
-        if (Environment.GetEnvironmentVariable("STACKBUILD_SOAK") != "1") return;
         var folder = RepositoryPaths.DemoSeries;
         var truth = SeriesTruth.Read(Path.Combine(folder, "truth.json"));
         var record = Uncertainty.Annotate(BuildPipeline.Run(new BuildOptions { Input = folder }).Record);
