@@ -206,6 +206,16 @@ public sealed class OutputFrameTests(OutputFrameFixture fixture, ITestOutputHelp
         Assert.Equal(new[] { sizes.I, sizes.J, sizes.K }.Select(v => Math.Round(v, 6)), built.Record.VoxelSizeMm.Select(v => Math.Round(v, 6)));
         Assert.Equal(t.Affine.AxisCodes.Code, built.Record.AxisCodes);
         Assert.Equal("template", built.Record.Frame.Template!.Grid);
+        // The template's lattice: every built voxel index maps to a whole template voxel index (cropped, not resampled off-grid).
+        var toTemplate = Affine.FromRows(built.Record.Affine[0], built.Record.Affine[1], built.Record.Affine[2]).Then(t.Affine.Inverse());
+        for (int r = 0; r < 3; r++)
+        for (int c = 0; c < 4; c++)
+            Assert.True(Math.Abs(toTemplate[r, c] - Math.Round(toTemplate[r, c])) < 1e-4, $"built voxel → template voxel [{r},{c}] = {toTemplate[r, c]}");
+
+        // The wrong cut axis gives a poor global agreement, and the build says so.
+        var wrong = BuildPipeline.Run(new BuildOptions { Input = fixture.Series, Template = new TemplateOptions { Path = template, CutAxis = 'j' } });
+        output.WriteLine($"cut axis j: agreement {wrong.Record.Frame!.Template!.GlobalAgreement}; warnings: {string.Join(" | ", wrong.Record.Warnings)}");
+        Assert.Contains(wrong.Record.Warnings, w => w.Contains("--template-axis"));
 
         // Sections beyond the template are refused with the planes named and what to check.
         var e = Assert.Throws<InputProblemException>(() => BuildPipeline.Run(new BuildOptions

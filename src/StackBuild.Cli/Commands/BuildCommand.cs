@@ -46,8 +46,20 @@ public static class BuildCommand
         var workSize = new Option<int>("--work-size") { Description = "Long side in pixels at which sections are registered", DefaultValueFactory = _ => 512 };
         var minConfidence = new Option<double>("--min-confidence") { Description = "Pairs below this confidence (0–1) are not trusted to place a section", DefaultValueFactory = _ => 0.2 };
 
+        foreach (var (option, name) in new (Option, string)[]
+        {
+            (pixelSize, "UM"), (spacing, "UM"), (axes, "CODES"), (outPixel, "UM"), (voxelSize, "UM"), (reference, "N"), (rotate, "DEG"),
+            (margin, "UM"), (centre, "X,Y,Z"), (template, "VOL.nii.gz"), (templateAxis, "i|j|k"), (templateFirst, "K"),
+            (workSize, "PX"), (minConfidence, "0-1"), (smoothing, "STRENGTH"), (manifest, "CSV"), (channel, "CHANNEL"),
+            (interpolation, "METHOD"), (fill, "METHOD"),
+        })
+            option.HelpName = name;
+
         var command = new Command("build", "Rebuild a section series into one NIfTI-1 volume with a sidecar of every section's placement.\n\n" +
-            "Example:\n  stackbuild build demo-series -o demo-volume.nii.gz")
+            "Examples:\n" +
+            "  stackbuild build demo-series -o demo-volume.nii.gz\n" +
+            "  stackbuild build demo-series -o v.nii.gz --reference 12 --rotate 90 --axes LIP   (frame of section 12, turned)\n" +
+            "  stackbuild build demo-series -o v.nii.gz --template blockface.nii.gz             (template guides drift and frame)")
         {
             series, output, manifest, pixelSize, spacing, axes, reference, upright, rotate, mirror, noCrop, margin, centre,
             template, templateAxis, templateFirst, templateReverse, templateGrid,
@@ -55,6 +67,16 @@ public static class BuildCommand
         };
         command.SetAction(parse => console.Guard(() =>
         {
+            bool Given(Option option) => parse.GetResult(option) is { Implicit: false };
+            bool withTemplate = parse.GetValue(template) is not null;
+            if (withTemplate && Given(axes))
+                throw new InputProblemException(null, "--axes cannot be combined with --template: the axis codes come from the template's affine",
+                    "leave out --axes (stackbuild info TEMPLATE shows the template's codes)");
+            foreach (var (option, name) in new (Option, string)[] { (templateAxis, "--template-axis"), (templateFirst, "--template-first-plane"), (templateReverse, "--template-reverse"), (templateGrid, "--template-grid") })
+                if (!withTemplate && Given(option))
+                    throw new InputProblemException(null, $"{name} only applies with --template", $"add --template VOL.nii.gz, or leave out {name}");
+            if (Given(margin) && parse.GetValue(noCrop))
+                throw new InputProblemException(null, "--margin only applies when the grid is cropped, and --no-crop keeps every whole image", "leave out one of the two");
             if (!AxisCodes.TryParse(parse.GetValue(axes), out var axisCodes, out var axisProblem))
                 throw new InputProblemException(null, $"--axes: {axisProblem}", "see README, 'Geometry'");
             var paths = BuildOutputPaths.For(parse.GetValue(output)!);

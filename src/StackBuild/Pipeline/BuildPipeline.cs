@@ -89,6 +89,7 @@ public static class BuildPipeline
         {
             CheckTemplateCombination(options);
             template = TemplateVolume.Load(templateOptions.Path, templateOptions.CutAxis);
+            CheckTemplateDepths(template, templateOptions, series, present); // before any registration
         }
         int bits = present.Max(s => s.Image!.BitsPerChannel);
         double maxValue = bits > 8 ? 65535 : 255;
@@ -153,6 +154,9 @@ public static class BuildPipeline
             chain = onTemplate.Chain;
             if (onTemplate.Guide.MeasuredCount == 0)
                 warnings.Add("no section could be matched to its template slice; the sections follow the neighbour chain only — check --template-axis and --template-first-plane");
+            else if (onTemplate.Guide.GlobalAgreement < MinTemplateAgreement)
+                warnings.Add($"the sections agree poorly on where the stack lies on the template (global agreement {onTemplate.Guide.GlobalAgreement:0.00}, " +
+                    $"expected above {MinTemplateAgreement:0.0}): the cut axis, first plane or direction may be wrong — check --template-axis, --template-first-plane and --template-reverse, and the template-match column of the report");
         }
         else if (options.Frame.ReferenceSection is int wanted)
         {
@@ -177,7 +181,8 @@ public static class BuildPipeline
             progress?.Report("upright: finding the midline");
             midline = FindMidline(working, chain);
             if (!midline.Clear)
-                throw new InputProblemException(options.Input, $"--upright: {midline.Problem}", "leave out --upright, or turn the volume with --rotate DEG");
+                throw new InputProblemException(options.Input, $"--upright: {midline.Problem}",
+                    $"leave out --upright, or turn the volume yourself with --rotate DEG (--rotate {midline.AngleDegrees.ToString("0.#", CultureInfo.InvariantCulture)} would make the best axis found vertical)");
             // Turns and mirror happen about the midline, so it ends on a vertical line through the same point.
             (frameCx, frameCy) = (midline.CentreX, midline.CentreY);
         }
@@ -215,8 +220,15 @@ public static class BuildPipeline
             warnings.Add("no tissue was found to crop to; the grid holds every section's whole image");
         var gridBox = cropped ? tissueBox.Grown(options.Frame.MarginUm / outUm).Intersect(canvasBox) : canvasBox;
         double minX = gridBox.MinX, minY = gridBox.MinY;
-        int nx = Math.Max(1, (int)Math.Ceiling(gridBox.MaxX - minX));
-        int ny = Math.Max(1, (int)Math.Ceiling(gridBox.MaxY - minY));
+        if (onTemplate is not null && templateGrid)
+        {
+            // The template's own lattice: the grid's voxel centres fall on template voxel centres (x_plane = a·x + b per axis).
+            var outToPlane = workToOut.Inverse().Then(onTemplate.PlaneToWork.Inverse());
+            minX = (Math.Floor(outToPlane.M00 * (minX + 0.5) + outToPlane.M02 + 1e-9) - outToPlane.M02) / outToPlane.M00 - 0.5;
+            minY = (Math.Floor(outToPlane.M11 * (minY + 0.5) + outToPlane.M12 + 1e-9) - outToPlane.M12) / outToPlane.M11 - 0.5;
+        }
+        int nx = Math.Max(1, (int)Math.Ceiling(gridBox.MaxX - minX - 1e-9));
+        int ny = Math.Max(1, (int)Math.Ceiling(gridBox.MaxY - minY - 1e-9));
         var toGrid = Transform2D.Translation(-minX - 0.5, -minY - 0.5);
         double firstPosition = series.Sections[0].PositionUm;
         double lastPlane = series.Sections.Max(s => Math.Round((s.PositionUm - firstPosition) / series.SpacingUm));
@@ -447,16 +459,10 @@ public static class BuildPipeline
     private static TemplatePlacement PlaceOnTemplate(TemplateVolume template, TemplateOptions o, SectionSeries series, List<Working> working,
         IReadOnlyList<ChainPlacement> chain, double workUm, IProgress<string>? progress)
     {
-        double first = series.Sections[0].PositionUm, last = series.Sections.Max(s => s.PositionUm);
-        double direction = o.Reverse ? -1 : 1;
-        double perUm = 1 / 1000.0 / template.PlaneSpacingMm;
-        double firstPlane = o.FirstPlane ?? (template.Planes - 1) / 2.0 - direction * (last - first) * perUm / 2;
+        var (firstPlane, direction) = TemplateDepths(template, o, series);
+        double first = series.Sections[0].PositionUm, perUm = 1 / 1000.0 / template.PlaneSpacingMm;
         var z = working.Select(w => firstPlane + direction * (w.Entry.PositionUm - first) * perUm).ToArray();
         int inside = z.Count(template.ContainsPlane);
-        if (inside < Math.Min(3, working.Count))
-            throw new InputProblemException(o.Path,
-                $"only {inside} of {working.Count} sections fall inside the template: they lie at template planes {z.Min():0.#} to {z.Max():0.#} along axis {o.CutAxis}, and the template has planes 0 to {template.Planes - 1} ({template.PlaneSpacingMm:0.###} mm apart)",
-                "check --template-axis (the template's axis the sections were cut along), --template-first-plane and the section spacing");
         var slices = new GrayImage?[working.Count];
         var sliceToPlane = Transform2D.Identity;
         object gate = new();
@@ -477,6 +483,35 @@ public static class BuildPipeline
         var before = chain.Select((c, n) => c.Route == LinkRoute.Failed ? c
             : c with { ToReference = guide.Sections[n].ChainToSlice.Then(sliceToPlane).Then(planeToWork) }).ToList();
         return new TemplatePlacement(fused, before, guide, z, firstPlane, direction, planeToWork);
+    }
+
+    /// <summary>Below this share of agreeing sections in the global search, the build warns that the template may be set up wrongly.</summary>
+    private const double MinTemplateAgreement = 0.5;
+
+    /// <summary>
+    /// The template plane of the first section and the direction of increasing section numbers. Default first plane:
+    /// the series centred on the template along the cut axis (rounded to a whole plane with --template-grid, so the
+    /// volume's planes fall on the template's).
+    /// </summary>
+    private static (double FirstPlane, double Direction) TemplateDepths(TemplateVolume template, TemplateOptions o, SectionSeries series)
+    {
+        double first = series.Sections[0].PositionUm, last = series.Sections.Max(s => s.PositionUm);
+        double direction = o.Reverse ? -1 : 1;
+        double centred = (template.Planes - 1) / 2.0 - direction * (last - first) / 1000 / template.PlaneSpacingMm / 2;
+        return (o.FirstPlane ?? (o.TemplateGrid ? Math.Round(centred) : centred), direction);
+    }
+
+    /// <summary>Refuses a template the sections do not fall inside (fewer than three, or fewer than all when there are fewer than three).</summary>
+    private static void CheckTemplateDepths(TemplateVolume template, TemplateOptions o, SectionSeries series, IReadOnlyList<SectionEntry> present)
+    {
+        var (firstPlane, direction) = TemplateDepths(template, o, series);
+        double first = series.Sections[0].PositionUm;
+        var z = present.Select(s => firstPlane + direction * (s.PositionUm - first) / 1000 / template.PlaneSpacingMm).ToArray();
+        int inside = z.Count(template.ContainsPlane);
+        if (inside < Math.Min(3, present.Count))
+            throw new InputProblemException(o.Path,
+                $"only {inside} of {present.Count} sections fall inside the template: they lie at template planes {z.Min():0.#} to {z.Max():0.#} along axis {o.CutAxis}, and the template has planes 0 to {template.Planes - 1} ({template.PlaneSpacingMm:0.###} mm apart)",
+                "check --template-axis (the template's axis the sections were cut along), --template-first-plane and the section spacing");
     }
 
     private static SectionTemplateRecord TemplateRecord(TemplatePlacement t, int n, double workUm, GrayImage image)

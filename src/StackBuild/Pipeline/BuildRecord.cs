@@ -124,18 +124,18 @@ public sealed record FrameRecord
     public string Describe()
     {
         var c = System.Globalization.CultureInfo.InvariantCulture;
+        // Rounded before formatting (plus +0.0) so a tiny negative number does not print as "-0".
+        static double R(double v) => Math.Round(v, 2) + 0.0;
         var parts = new List<string>();
         if (Template is { } t)
             parts.Add(string.Format(c, "the template's frame ({0}, cut along {1}, first section at plane {2:0.##}{3}; {4} sections matched to it, {5} set aside)",
-                System.IO.Path.GetFileName(t.File), t.CutAxis, t.FirstPlane, t.Reverse ? ", reversed" : "", t.Measured, t.Outliers));
+                System.IO.Path.GetFileName(t.File), t.CutAxis, R(t.FirstPlane), t.Reverse ? ", reversed" : "", t.Measured, t.Outliers));
         else
             parts.Add($"section {ReferenceSection} as scanned{(FaceFlipped ? ", turned face up" : "")}");
-        if (Upright is { } u) parts.Add(string.Format(c, "upright (turned {0:0.#}°, symmetry {1:0.00})", u.AngleDegrees, u.Symmetry));
-        if (RotateDegrees != 0) parts.Add(string.Format(c, "turned {0:0.##}° clockwise", RotateDegrees));
+        if (Upright is { } u) parts.Add(string.Format(c, "upright (turned {0:0.#}° {1}, symmetry {2:0.00})", Math.Abs(u.AngleDegrees), u.AngleDegrees >= 0 ? "clockwise" : "anticlockwise", u.Symmetry));
+        if (RotateDegrees != 0) parts.Add(string.Format(c, "turned {0:0.##}° {1}", Math.Abs(RotateDegrees), RotateDegrees > 0 ? "clockwise" : "anticlockwise"));
         if (Mirror) parts.Add("mirrored left-right");
         parts.Add(Crop == "tissue" ? string.Format(c, "cropped to the tissue + {0:0.#} µm", MarginUm) : "whole images kept");
-        // Rounded before formatting (plus +0.0) so a tiny negative number does not print as "-0".
-        static double R(double v) => Math.Round(v, 2) + 0.0;
         parts.Add(string.Format(c, "tissue centre at ({0:0.##}, {1:0.##}, {2:0.##}) mm", R(TissueCentreMm[0]), R(TissueCentreMm[1]), R(TissueCentreMm[2])));
         return string.Join(", ", parts);
     }

@@ -58,10 +58,32 @@ public sealed class TemplateVolume
 
     /// <summary>Reads a NIfTI-1 volume (.nii or .nii.gz, any datatype the reader supports; the first volume of a 4D file).</summary>
     /// <exception cref="InputProblemException">The file cannot be read, or holds no usable 3D volume.</exception>
+    /// <summary>"PNG", "JPEG" or "TIFF" when the file starts like one (a common mistake: a section image given as the template); else null.</summary>
+    private static string? ImageKind(string path)
+    {
+        try
+        {
+            using var f = File.OpenRead(path);
+            Span<byte> b = stackalloc byte[4];
+            if (f.Read(b) < 4) return null;
+            if (b[0] == 0x89 && b[1] == (byte)'P' && b[2] == (byte)'N' && b[3] == (byte)'G') return "PNG";
+            if (b[0] == 0xFF && b[1] == 0xD8 && b[2] == 0xFF) return "JPEG";
+            if ((b[0] == (byte)'I' && b[1] == (byte)'I' && b[2] == 42 && b[3] == 0) || (b[0] == (byte)'M' && b[1] == (byte)'M' && b[2] == 0 && b[3] == 42)) return "TIFF";
+            return null;
+        }
+        catch (Exception e) when (e is IOException or UnauthorizedAccessException)
+        {
+            return null; // the NIfTI reader reports it
+        }
+    }
+
     public static TemplateVolume Load(string path, char cutAxis = 'k')
     {
         if (!"ijkIJK".Contains(cutAxis))
             throw new InputProblemException(path, $"the template cut axis '{cutAxis}' is not a voxel axis", "give i, j or k");
+        if (ImageKind(path) is { } kind)
+            throw new InputProblemException(path, $"is a {kind} image, not a NIfTI-1 volume",
+                "give the template as a .nii or .nii.gz volume (stack blockface photographs into one volume first)");
         var image = NiftiFile.Read(path); // InputProblemException for anything wrong with the file itself
         Volume volume;
         try

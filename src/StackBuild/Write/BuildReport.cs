@@ -95,7 +95,9 @@ public static class BuildReport
         Card(o, "found", r.Sections.Count(s => s.File is not null), "sections with an image");
         Card(o, "aligned", Count("aligned") + Count("placed"), r.Aligned ? "placed in the volume" : "placed, not aligned");
         Card(o, "mirrored", placed.Count(s => s.Mirrored == true), "turned face up");
-        Card(o, "gaps", Count("gap"), "lost sections (empty planes)");
+        int gapsFilled = r.Sections.Count(s => s.Status == "gap" && s.Filled is not null);
+        Card(o, "gaps", Count("gap"), gapsFilled == 0 ? "lost sections (empty planes)"
+            : gapsFilled == Count("gap") ? "lost sections (planes filled)" : $"lost sections ({gapsFilled} planes filled)");
         Card(o, "excluded", Count("excluded"), "left out by the manifest");
         Card(o, "failed", Count("failed"), "no confident match");
         Card(o, "flagged", flagged.Count, "worth a look", flagged.Count > 0 ? "warn" : "");
@@ -228,7 +230,7 @@ public static class BuildReport
             string css = flagged.Contains(s.Number) ? " class=\"flagged\"" : s.Status is "gap" or "excluded" ? " class=\"absent\"" : "";
             string shift = s.ShiftPx is { Length: 2 } p ? $"{F(p[0] * um, "0.0")}, {F(p[1] * um, "0.0")}" : "";
             o.Write($"<tr id=\"section-{s.Number}\"{css}><td class=\"number\">{s.Number}</td><td class=\"file\">{E(s.File ?? "")}</td>" +
-                $"<td class=\"status\">{E(s.Status)}</td><td class=\"mirrored\">{(s.Mirrored is bool mb ? (mb ? "yes" : "no") : "")}</td>" +
+                $"<td class=\"status\">{E(s.Filled is null ? s.Status : $"{s.Status}, filled ({s.Filled})")}</td><td class=\"mirrored\">{(s.Mirrored is bool mb ? (mb ? "yes" : "no") : "")}</td>" +
                 $"<td class=\"rotation\">{F(s.RotationDegrees, "0.00")}</td><td class=\"shift\">{shift}</td>" +
                 $"<td class=\"confidence\">{F(s.Confidence, "0.000")}</td><td class=\"error\">{F(s.EstimatedErrorUm, "0.0")}</td>" +
                 $"<td class=\"ncc\">{F(s.Ncc, "0.000")}</td><td class=\"route\">{Route(s)}</td>" +
