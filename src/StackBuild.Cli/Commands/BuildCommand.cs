@@ -163,9 +163,13 @@ public static class BuildCommand
         int filled = r.Sections.Count(s => s.Filled is not null);
         o.WriteLine($"Sections {string.Join(", ", counts.OrderBy(c => c.Key).Select(c => $"{c.Value} {c.Key}"))}" +
             (filled > 0 ? $"; {filled} empty plane(s) filled from their neighbours" : ""));
-        var doubtful = r.Sections.Where(s => s.Confidence < 0.5 && s.Status is "aligned").ToList();
-        if (doubtful.Count > 0)
-            o.WriteLine($"Check    {string.Join(", ", doubtful.Select(s => $"section {s.Number} (confidence {s.Confidence:0.00})"))}: placed, but the match with its neighbour was weak");
+        // The same sections the report flags (failed ones are in the warnings below).
+        double limit = SectionFlags.DisagreementLimitUm(r);
+        var flagged = r.Sections.Where(s => s.Status != "failed").Select(s => (s.Number, Reasons: SectionFlags.Reasons(s, limit))).Where(t => t.Reasons.Count > 0).ToList();
+        const int shown = 6;
+        foreach (var (number, reasons) in flagged.Take(shown))
+            o.WriteLine($"Check    section {number}: {string.Join("; ", reasons)}");
+        if (flagged.Count > shown) o.WriteLine($"Check    {flagged.Count - shown} more section(s): see the report");
         foreach (var w in r.Warnings) o.WriteLine($"warning: {w}");
         if (!alignRequested)
             o.WriteLine("Note: sections were placed centred and NOT aligned (--no-align); this volume shows the series as scanned.");

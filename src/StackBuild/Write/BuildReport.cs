@@ -36,6 +36,7 @@ public static class SectionFlags
         if (s.RouteDisagreementUm is double d && d > disagreementLimitUm)
             reasons.Add(string.Create(CultureInfo.InvariantCulture, $"placements through the first and second neighbour differ by {d:0} µm"));
         if (s.Damaged) reasons.Add("marked damaged in the manifest" + (string.IsNullOrEmpty(s.Note) ? "" : $" ({s.Note})"));
+        if (s.Template?.Outlier is { } why) reasons.Add($"its template match was set aside ({why})");
         return reasons;
     }
 }
