@@ -114,3 +114,64 @@ public class RegistrationBenchmarks
         return result;
     }
 }
+
+/// <summary>
+/// Whole builds of the committed demo series (55 sections of 256 px): the plain neighbour chain is the baseline;
+/// the reference-free global solve, template guidance (template = the demo's truth volume 2× coarser with square-root
+/// contrast, made in the setup) and resampling to 25 µm planes cost what they add on top of it.
+/// </summary>
+[MemoryDiagnoser]
+[SimpleJob(BenchmarkDotNet.Engines.RunStrategy.Monitoring, launchCount: 1, warmupCount: 1, iterationCount: 3)]
+public class BuildBenchmarks
+{
+    private string _series = null!, _template = null!;
+
+    [GlobalSetup]
+    public void Setup()
+    {
+        var dir = new DirectoryInfo(AppContext.BaseDirectory);
+        while (dir is not null && !Directory.Exists(Path.Combine(dir.FullName, "demo-series"))) dir = dir.Parent;
+        _series = Path.Combine(dir?.FullName ?? throw new InvalidOperationException("demo-series not found above the benchmark"), "demo-series");
+        var truth = StackBuild.Nifti.NiftiFile.Read(Path.Combine(_series, "truth.nii.gz")).ToVolume();
+        int nx = truth.Nx / 2, ny = truth.Ny / 2, nz = truth.Nz / 2;
+        float max = truth.Voxels.Max();
+        var coarse = new float[nx * ny * nz];
+        for (int k = 0; k < nz; k++)
+        for (int j = 0; j < ny; j++)
+        for (int i = 0; i < nx; i++)
+        {
+            float sum = 0;
+            for (int d = 0; d < 8; d++) sum += truth[2 * i + (d & 1), 2 * j + ((d >> 1) & 1), 2 * k + (d >> 2)];
+            coarse[(k * ny + j) * nx + i] = 200 * MathF.Sqrt(Math.Max(0, sum / 8 / max));
+        }
+        // Block means: voxel (i, j, k) of the coarse grid sits at the centre of truth voxels 2i … 2i + 1.
+        var a = truth.Affine;
+        var affine = Affine.FromRows(
+            [2 * a[0, 0], 2 * a[0, 1], 2 * a[0, 2], a[0, 3] + 0.5 * (a[0, 0] + a[0, 1] + a[0, 2])],
+            [2 * a[1, 0], 2 * a[1, 1], 2 * a[1, 2], a[1, 3] + 0.5 * (a[1, 0] + a[1, 1] + a[1, 2])],
+            [2 * a[2, 0], 2 * a[2, 1], 2 * a[2, 2], a[2, 3] + 0.5 * (a[2, 0] + a[2, 1] + a[2, 2])]);
+        _template = Path.Combine(Path.GetTempPath(), $"stackbuild-bench-template-{Environment.ProcessId}.nii.gz");
+        StackBuild.Nifti.NiftiFile.Write(_template, new Volume(nx, ny, nz, affine, coarse));
+    }
+
+    [GlobalCleanup]
+    public void Cleanup() => File.Delete(_template);
+
+    [Benchmark(Baseline = true)]
+    public object ChainBuild() => StackBuild.Pipeline.BuildPipeline.Run(new StackBuild.Pipeline.BuildOptions { Input = _series });
+
+    [Benchmark]
+    public object SmoothingBuild() => StackBuild.Pipeline.BuildPipeline.Run(new StackBuild.Pipeline.BuildOptions
+    {
+        Input = _series, Smoothing = new StackBuild.Solve.SmoothingOptions { Strength = 0 },
+    });
+
+    [Benchmark]
+    public object TemplateBuild() => StackBuild.Pipeline.BuildPipeline.Run(new StackBuild.Pipeline.BuildOptions
+    {
+        Input = _series, Template = new StackBuild.Pipeline.TemplateOptions { Path = _template },
+    });
+
+    [Benchmark]
+    public object VoxelSize25Build() => StackBuild.Pipeline.BuildPipeline.Run(new StackBuild.Pipeline.BuildOptions { Input = _series, VoxelSizeUm = 25 });
+}

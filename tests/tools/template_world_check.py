@@ -1,7 +1,9 @@
 """Template-guided build checks with nibabel and SciPy (Debian python3-nibabel, python3-scipy).
 
-  make SOURCE OUT SEED      a template from a truth volume: 2x2x2 block means (the affine moved to the blocks'
-                            centres), square-root contrast scaled to 0..200, Gaussian noise of sd 5
+  make SOURCE OUT SEED [uint8]
+                            a template from a truth volume: 2x2x2 block means (the affine moved to the blocks'
+                            centres), square-root contrast scaled to 0..200, Gaussian noise of sd 5; stored as
+                            float32, or rounded to uint8 with the last argument
   world BUILT TRUTH         the truth sampled (scipy.ndimage.map_coordinates, order 1) at the world position of
                             every voxel of BUILT (both affines as nibabel reads them); prints JSON with the
                             share of voxels inside the truth, the Pearson r, and both files' axis codes
@@ -19,7 +21,7 @@ except ImportError as e:
     sys.exit(3)
 
 
-def make(source, out, seed):
+def make(source, out, seed, uint8=False):
     img = nib.load(source)
     d = np.asarray(img.dataobj, dtype=float)
     nx, ny, nz = [s // 2 * 2 for s in d.shape[:3]]
@@ -29,7 +31,8 @@ def make(source, out, seed):
     a = img.affine.copy()
     a[:3, 3] = img.affine[:3, :3] @ [0.5, 0.5, 0.5] + img.affine[:3, 3]
     a[:3, :3] *= 2
-    nib.save(nib.Nifti1Image(x.astype(np.float32), a), out)
+    data = np.clip(np.round(x), 0, 255).astype(np.uint8) if uint8 else x.astype(np.float32)
+    nib.save(nib.Nifti1Image(data, a), out)
 
 
 def world(built, truth):
@@ -48,6 +51,6 @@ def world(built, truth):
 
 if __name__ == "__main__":
     if sys.argv[1] == "make":
-        make(sys.argv[2], sys.argv[3], int(sys.argv[4]))
+        make(sys.argv[2], sys.argv[3], int(sys.argv[4]), len(sys.argv) > 5 and sys.argv[5] == "uint8")
     else:
         world(sys.argv[2], sys.argv[3])
