@@ -40,7 +40,7 @@ public static class BuildCommand
         var templateAxis = new Option<string>("--template-axis") { Description = "The template's voxel axis the sections were cut along: i, j or k", DefaultValueFactory = _ => "k" };
         var templateFirst = new Option<double?>("--template-first-plane") { Description = "Template plane index of the first section (default: the series centred on the template)" };
         var templateReverse = new Option<bool>("--template-reverse") { Description = "Higher section numbers lie at lower template planes" };
-        var templateGrid = new Option<bool>("--template-grid") { Description = "Use the template's voxel size instead of the sections' pixel size and spacing" };
+        var templateGrid = new Option<bool>("--template-grid") { Description = "Put the volume on the template's own voxels (its voxel size and lattice, cropped to the tissue) instead of the sections' pixel size and spacing" };
         var json = new Option<bool>("--json") { Description = "Print a machine-readable summary instead of text" };
         var noAlign = new Option<bool>("--no-align") { Description = "Place the sections centred without aligning them (the series as scanned)" };
         var workSize = new Option<int>("--work-size") { Description = "Long side in pixels at which sections are registered", DefaultValueFactory = _ => 512 };
