@@ -74,10 +74,11 @@ public sealed class GapFillTests(ITestOutputHelper output)
     [Fact]
     public void FlowFillBeatsLinearOnMriPlanesRemovedOnPurpose()
     {
-        // Target of the issue: flow ≥ 20 % lower NRMSE than linear blending. Measured (2026-12-02, this machine):
-        // single planes 0.0231 → 0.0212 (8 % lower), runs of 2 0.0361 → 0.0289 (19.9 %), runs of 3 0.0482 → 0.0371
-        // (23.1 %). So the target is met for runs of 3 only; 1 mm neighbours of a single plane differ too little for
-        // displacement to matter much. Bounds below are this project's, a little under those measurements.
+        // Target of the issue: flow ≥ 20 % lower NRMSE than linear blending. Measured (2026-12-02, this machine; local
+        // normalisation σ 8 px before the flow, cubic-convolution warping, residual confidence): single planes
+        // 0.0231 → 0.0183 (20.9 % lower), runs of 2 0.0361 → 0.0265 (26.5 %), runs of 3 0.0482 → 0.0348 (27.9 %).
+        // Before those changes (bilinear warping, no normalisation): 8.0 / 19.9 / 23.1 %. Bounds below are this
+        // project's, a little under the measurements (ratios 0.80, 0.75, 0.73 against measured 0.791, 0.735, 0.721).
         var mri = RegisterMriTests.Template();
         var single = MeanNrmse(mri, MriCases(1), new GapFiller.FlowOptions());
         var two = MeanNrmse(mri, MriCases(2), new GapFiller.FlowOptions());
@@ -85,23 +86,25 @@ public sealed class GapFillTests(ITestOutputHelper output)
         output.WriteLine($"MRI single planes ({MriCases(1).Count}): {Describe(single)}");
         output.WriteLine($"MRI runs of 2 ({MriCases(2).Count} planes): {Describe(two)}");
         output.WriteLine($"MRI runs of 3 ({MriCases(3).Count} planes): {Describe(three)}");
-        Assert.True(single.Flow <= 0.95 * single.Linear, Describe(single));
-        Assert.True(two.Flow <= 0.85 * two.Linear, Describe(two));
-        Assert.True(three.Flow <= 0.80 * three.Linear, Describe(three));
+        Assert.True(single.Flow <= 0.80 * single.Linear, Describe(single));
+        Assert.True(two.Flow <= 0.75 * two.Linear, Describe(two));
+        Assert.True(three.Flow <= 0.73 * three.Linear, Describe(three));
     }
 
     [Fact]
     public void FlowFillBeatsLinearOnDemoTruthPlanes()
     {
         // The demo phantom's truth volume (before any mounting or registration): every 7th plane from 3 on removed.
-        // Measured (2026-12-02): linear 0.0982, flow 0.0891 (9.2 % lower); the 20 % target is NOT met here: neighbouring
-        // demo planes differ mostly by texture, not by displacement. Bound: this project's, under that measurement.
+        // Measured (2026-12-02, local normalisation + cubic-convolution warping): linear 0.0982, flow 0.0912 (7.1 % lower;
+        // 9.2 % with the earlier bilinear warping, which smoothed the phantom's fine texture). The 20 % target is NOT met
+        // here: neighbouring demo planes differ mostly by texture, not by displacement. Bound: this project's, under that
+        // measurement.
         var demo = DemoTruth();
         var cases = new List<GapCase>();
         for (int k = 3; k + 1 < demo.Nz; k += 7) cases.Add(new GapCase(k - 1, k + 1, k));
         var r = MeanNrmse(demo, cases, new GapFiller.FlowOptions());
         output.WriteLine($"demo truth, {cases.Count} single planes: {Describe(r)}");
-        Assert.True(r.Flow <= 0.95 * r.Linear, Describe(r));
+        Assert.True(r.Flow <= 0.95 * r.Linear, Describe(r)); // measured ratio 0.929
     }
 
     [Fact]
@@ -144,7 +147,8 @@ public sealed class GapFillTests(ITestOutputHelper output)
             for (int x = 20; x < w - 20; x++) err += Math.Pow(fill[y * w + x] - SmoothingSolverTests.Pattern(x - 3 * t, y + 2 * t), 2);
             output.WriteLine($"t = {t}: mean field in the middle ({su / m:0.###}, {sv / m:0.###}); fill rms {Math.Sqrt(err / m):0.####}");
             // The smoothness term pulls the field towards zero where the pattern varies slowly (the vertical cosine):
-            // measured (2026-12-02) up to 0.29 px short of 2 px; 0.35 px is this project's bound.
+            // measured (2026-12-02) up to 0.24 px short of 2 px (0.29 px before the local normalisation); 0.35 px is this
+            // project's bound.
             Assert.Equal(3, su / m, 0.35);
             Assert.Equal(-2, sv / m, 0.35);
             // The filled plane is the pattern moved t of the way.
