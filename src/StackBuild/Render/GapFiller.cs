@@ -258,11 +258,8 @@ public static class GapFiller
             for (int x = 0; x < w; x++)
             {
                 int i = y * w + x;
-                int xl = Math.Max(0, x - 1), xr = Math.Min(w - 1, x + 1), yu = Math.Max(0, y - 1), yd = Math.Min(h - 1, y + 1);
-                float mu = 0.25f * (du[y * w + xl] + du[y * w + xr] + du[yu * w + x] + du[yd * w + x]
-                                    + u[y * w + xl] + u[y * w + xr] + u[yu * w + x] + u[yd * w + x]) - u[i];
-                float mv = 0.25f * (dv[y * w + xl] + dv[y * w + xr] + dv[yu * w + x] + dv[yd * w + x]
-                                    + v[y * w + xl] + v[y * w + xr] + v[yu * w + x] + v[yd * w + x]) - v[i];
+                float mu = IncrementMean(du, u, w, h, x, y);
+                float mv = IncrementMean(dv, v, w, h, x, y);
                 float wi = weight[i];
                 if (hessian is null)
                 {
@@ -403,6 +400,19 @@ public static class GapFiller
     }
 
     /// <summary>
+    /// The 4-neighbourhood mean (edges clamped) of the total field, increment <paramref name="d"/> plus current
+    /// <paramref name="f"/>, minus the current field at (x, y): the increment that smoothness alone would ask for, so the
+    /// smoothness term acts on the whole flow, not only on the increment.
+    /// </summary>
+    [System.Runtime.CompilerServices.MethodImpl(System.Runtime.CompilerServices.MethodImplOptions.AggressiveInlining)]
+    private static float IncrementMean(float[] d, float[] f, int w, int h, int x, int y)
+    {
+        int xl = Math.Max(0, x - 1), xr = Math.Min(w - 1, x + 1), yu = Math.Max(0, y - 1), yd = Math.Min(h - 1, y + 1);
+        return 0.25f * (d[y * w + xl] + d[y * w + xr] + d[yu * w + x] + d[yd * w + x]
+                        + f[y * w + xl] + f[y * w + xr] + f[yu * w + x] + f[yd * w + x]) - f[y * w + x];
+    }
+
+    /// <summary>
     /// Both planes scaled by their common spread (optionally pre-smoothed), then halved until the short side would drop
     /// below <see cref="FlowOptions.CoarsestSide"/>: level 0 is full size.
     /// </summary>
@@ -489,12 +499,8 @@ public static class GapFiller
             for (int x = 0; x < w; x++)
             {
                 int i = y * w + x;
-                int xl = Math.Max(0, x - 1), xr = Math.Min(w - 1, x + 1), yu = Math.Max(0, y - 1), yd = Math.Min(h - 1, y + 1);
-                // The neighbourhood mean of the total field (increment + current), so smoothness acts on the whole flow.
-                float mu = 0.25f * (du[y * w + xl] + du[y * w + xr] + du[yu * w + x] + du[yd * w + x]
-                                    + u[y * w + xl] + u[y * w + xr] + u[yu * w + x] + u[yd * w + x]) - u[i];
-                float mv = 0.25f * (dv[y * w + xl] + dv[y * w + xr] + dv[yu * w + x] + dv[yd * w + x]
-                                    + v[y * w + xl] + v[y * w + xr] + v[yu * w + x] + v[yd * w + x]) - v[i];
+                float mu = IncrementMean(du, u, w, h, x, y);
+                float mv = IncrementMean(dv, v, w, h, x, y);
                 float k = (ix[i] * mu + iy[i] * mv + it[i]) / (alpha2 + ix[i] * ix[i] + iy[i] * iy[i]);
                 nu[i] = mu - ix[i] * k;
                 nv[i] = mv - iy[i] * k;
