@@ -62,7 +62,7 @@ internal sealed class MirrorStack : IDisposable
                 : source;
             var small = Preprocessing.Reduce(clean, scale);
             if (small.Width != w || small.Height != h) small = Resampler.Warp(small, Transform2D.Identity, w, h, 0f);
-            float background = BorderMedian(small);
+            float background = small.BorderMedian(Math.Max(1, (int)(0.02 * Math.Min(w, h))));
             if (highPass > 0)
             {
                 var low = ImageOps.GaussianBlur(small.Pixels, w, h, highPass * Math.Max(w, h));
@@ -98,17 +98,6 @@ internal sealed class MirrorStack : IDisposable
         return new MirrorStack(n, fft, keep.Select(k => canvas[k]).ToArray(), spectra, keep.Select(k => energy[k]).ToArray(),
             keep.Select(k => weights == null ? 1.0 : weights[indices[k]]).ToArray(), keep.Select(k => indices[k]).ToArray(),
             ox + (w - 1) / 2.0, oy + (h - 1) / 2.0, ox, oy, fullToWork);
-    }
-
-    /// <summary>The median of the outermost band of pixels (2 % of the short side, at least one): the slide's background level.</summary>
-    private static float BorderMedian(GrayImage image)
-    {
-        int w = image.Width, h = image.Height, band = Math.Max(1, (int)(0.02 * Math.Min(w, h)));
-        var border = new List<float>();
-        for (int y = 0; y < h; y++)
-        for (int x = 0; x < w; x++)
-            if (y < band || y >= h - band || x < band || x >= w - band) border.Add(image[x, y]);
-        return ImageOps.Percentile(border.ToArray(), 0.5);
     }
 
     /// <summary>

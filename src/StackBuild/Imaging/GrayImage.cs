@@ -29,6 +29,24 @@ public sealed class GrayImage
 
     public GrayImage Clone() => new(Width, Height, (float[])Pixels.Clone());
 
+    /// <summary>
+    /// The median of the outermost band of pixels, <paramref name="band"/> wide (each pixel counted once; the upper of
+    /// the two middle values for an even count): the slide's background level.
+    /// </summary>
+    public float BorderMedian(int band = 1)
+    {
+        band = Math.Clamp(band, 1, Math.Max(1, Math.Min(Width, Height)));
+        var border = new List<float>(2 * band * (Width + Height));
+        for (int y = 0; y < Height; y++)
+        {
+            bool edgeRow = y < band || y >= Height - band;
+            for (int x = 0; x < Width; x++)
+                if (edgeRow || x < band || x >= Width - band) border.Add(Pixels[y * Width + x]);
+        }
+        border.Sort();
+        return border[border.Count / 2];
+    }
+
     /// <summary>Bilinear sample at (x, y) in pixel coordinates; <paramref name="outside"/> beyond the edge.</summary>
     public float SampleBilinear(double x, double y, float outside = 0f)
     {

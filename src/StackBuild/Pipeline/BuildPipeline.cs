@@ -324,7 +324,7 @@ public static class BuildPipeline
             int? loadSide = scale < 1 ? Math.Max(1, (int)Math.Ceiling(Math.Max(full.Width, full.Height) * scale)) : null;
             var loaded = SectionImageReader.ReadSection(s.FilePath!, new ImageReadOptions { Channel = options.Channel, MaxLongSide = loadSide });
             var image = loaded.Image;
-            float fill = (float)(BorderMedian(image) * maxValue);
+            float fill = (float)(image.BorderMedian() * maxValue);
             ScaleInPlace(image, (float)maxValue);
             StackRenderer.RenderSection(volume, new PlacedSection(k, imageToPlane), image,
                 Resampler.FullToBlockReduced((int)loaded.Downsample), fill, options.Interpolation);
@@ -648,7 +648,7 @@ public static class BuildPipeline
                 double s = loadedUm / common;
                 var loadedToWork = Resampler.EdgeAlignedScale(s);
                 int w = Math.Max(1, (int)Math.Round(image.Width * s)), h = Math.Max(1, (int)Math.Round(image.Height * s));
-                image = Resampler.Warp(image, loadedToWork.Inverse(), w, h, (float)BorderMedian(image));
+                image = Resampler.Warp(image, loadedToWork.Inverse(), w, h, image.BorderMedian());
                 fullToWork = fullToLoaded.Then(loadedToWork);
             }
             if (options.Align && Math.Max(image.Width, image.Height) < MinRegistrationSide)
@@ -741,14 +741,6 @@ public static class BuildPipeline
         return va > 0 && vb > 0 ? cov / Math.Sqrt(va * vb) : 0;
     }
 
-    private static double BorderMedian(GrayImage image)
-    {
-        var border = new List<float>(2 * (image.Width + image.Height));
-        for (int x = 0; x < image.Width; x++) { border.Add(image[x, 0]); border.Add(image[x, image.Height - 1]); }
-        for (int y = 1; y < image.Height - 1; y++) { border.Add(image[0, y]); border.Add(image[image.Width - 1, y]); }
-        border.Sort();
-        return border[border.Count / 2];
-    }
 
     private static void ScaleInPlace(GrayImage image, float factor)
     {

@@ -204,24 +204,9 @@ public static class TemplateGuide
         return (FitRigid(from, to, mirrored), inliers.Count / (double)candidates.Count);
     }
 
-    /// <summary>Least-squares rotation and shift (after a mirror about x when asked) taking <paramref name="from"/> to <paramref name="to"/> (2D Procrustes; common practice).</summary>
-    internal static Transform2D FitRigid(IReadOnlyList<(double X, double Y)> from, IReadOnlyList<(double X, double Y)> to, bool mirrored)
-    {
-        var pre = mirrored ? Transform2D.MirrorX() : Transform2D.Identity;
-        var p = from.Select(q => pre.Apply(q.X, q.Y)).ToList();
-        double pxm = p.Average(q => q.X), pym = p.Average(q => q.Y), qxm = to.Average(q => q.X), qym = to.Average(q => q.Y);
-        double sxx = 0, sxy = 0;
-        for (int i = 0; i < p.Count; i++)
-        {
-            double ax = p[i].X - pxm, ay = p[i].Y - pym, bx = to[i].X - qxm, by = to[i].Y - qym;
-            sxx += ax * bx + ay * by; // cos part
-            sxy += ax * by - ay * bx; // sin part
-        }
-        double degrees = Math.Atan2(sxy, sxx) * 180 / Math.PI;
-        var rotation = Transform2D.Rotation(degrees);
-        var (rx, ry) = rotation.Apply(pxm, pym);
-        return pre.Then(rotation).Then(Transform2D.Translation(qxm - rx, qym - ry));
-    }
+    /// <summary>Least-squares rotation and shift (after a mirror about x when asked) taking <paramref name="from"/> to <paramref name="to"/> (<see cref="PointFit.Fit"/> without scale).</summary>
+    internal static Transform2D FitRigid(IReadOnlyList<(double X, double Y)> from, IReadOnlyList<(double X, double Y)> to, bool mirrored) =>
+        PointFit.Fit(from, to, mirrored, withScale: false);
 
     private static int[] Segments(IReadOnlyList<TemplateGuideSection> sections, double breakConfidence)
     {
@@ -279,8 +264,7 @@ public static class TemplateGuide
 
     private static double Median(IEnumerable<double> values)
     {
-        var a = values.OrderBy(v => v).ToArray();
-        if (a.Length == 0) return 0;
-        return a.Length % 2 == 1 ? a[a.Length / 2] : 0.5 * (a[a.Length / 2 - 1] + a[a.Length / 2]);
+        var list = values as IReadOnlyCollection<double> ?? values.ToList();
+        return list.Count == 0 ? 0 : Numerics.Quantiles.Median(list);
     }
 }

@@ -279,11 +279,7 @@ public static class TemplateRegistration
     /// </summary>
     internal static (double X, double Y) TissueCentre(GrayImage image, (double Low, double High) range, out double radius)
     {
-        var border = new List<float>();
-        for (int x = 0; x < image.Width; x++) { border.Add(image[x, 0]); border.Add(image[x, image.Height - 1]); }
-        for (int y = 0; y < image.Height; y++) { border.Add(image[0, y]); border.Add(image[image.Width - 1, y]); }
-        border.Sort();
-        double background = border[border.Count / 2], threshold = 0.2 * (range.High - range.Low);
+        double background = image.BorderMedian(), threshold = 0.2 * (range.High - range.Low);
         double sx = 0, sy = 0, sxx = 0, n = 0;
         for (int y = 0; y < image.Height; y++)
         {
