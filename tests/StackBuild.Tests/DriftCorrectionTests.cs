@@ -50,18 +50,35 @@ public sealed class DriftCorrectionTests(DriftBuilds builds, ITestOutputHelper o
     [Fact]
     public void TheSolveDoesNotBendTheStackAwayFromTheChain()
     {
-        // Target of the issue: drift ≤ 1/3 of the chain's. NOT reached: measured on this series (2026-12-02) the solve
-        // gave drift rms 3.51 px vs the chain's 3.33 px (max 5.36 vs 6.11 px). What is asserted is what the solve must
-        // at least do: not make the stack worse by more than a fifth, with no section lost. The bounds are this
-        // project's, from that measured run.
+        // The drift target (≤ 1/3 of the chain's) is met with a template, not without one: the chain's drift comes from
+        // slow link errors that every pair shares (TheChainsDriftComesFromSlowLinkErrors). What the reference-free solve
+        // must do is not amplify it: its second-neighbour pairs err more than twice a nearest pair here (at full weight the
+        // drift rose to 2.83 px against the chain's 2.66 px, measured 2026-12-02), the route closures show it (slow share
+        // above the limit), and they are weighted down. Bound: 5 % over the chain (this project's; measured 0.4 %).
         var chain = TruthEvaluation.Evaluate(builds.Chain.Record, builds.Truth);
         var solved = TruthEvaluation.Evaluate(builds.Solved.Record, builds.Truth);
         output.WriteLine($"chain:  drift rms {chain.DriftRmsPx:0.###} px, max {chain.DriftMaxPx:0.###}; error median {chain.ErrorPx.Median:0.###}; pair median {chain.PairErrorPx.Median:0.###}");
         output.WriteLine($"solved: drift rms {solved.DriftRmsPx:0.###} px, max {solved.DriftMaxPx:0.###}; error median {solved.ErrorPx.Median:0.###}; pair median {solved.PairErrorPx.Median:0.###}");
         Assert.Equal(chain.Evaluated, solved.Evaluated);
-        Assert.True(solved.DriftRmsPx <= 1.2 * chain.DriftRmsPx, $"solved drift {solved.DriftRmsPx} px, chain {chain.DriftRmsPx} px");
-        Assert.True(solved.DriftMaxPx <= 1.2 * chain.DriftMaxPx, $"solved max drift {solved.DriftMaxPx} px, chain {chain.DriftMaxPx} px");
+        output.WriteLine($"route closures: slow share {builds.Solved.Record.Parameters["route_closure_slow_share"]}, second-neighbour weight {builds.Solved.Record.Parameters["second_neighbour_weight"]}");
+        Assert.Equal("0.01", builds.Solved.Record.Parameters["second_neighbour_weight"]);
+        Assert.True(solved.DriftRmsPx <= 1.05 * chain.DriftRmsPx, $"solved drift {solved.DriftRmsPx} px, chain {chain.DriftRmsPx} px");
+        Assert.True(solved.DriftMaxPx <= 1.05 * chain.DriftMaxPx, $"solved max drift {solved.DriftMaxPx} px, chain {chain.DriftMaxPx} px");
         Assert.True(solved.PairErrorPx.Median <= chain.PairErrorPx.Median + 0.2, $"pairwise median {solved.PairErrorPx.Median} vs {chain.PairErrorPx.Median}");
+    }
+
+    [Fact]
+    public void TheChainsDriftComesFromSlowLinkErrors()
+    {
+        // Why the reference-free drift target (≤ 1/3 of the chain's) is not met: the chain's link errors against the truth
+        // are slow, neighbouring links err alike. The same link errors re-chained in shuffled order (DriftSurrogate) drift much
+        // less than in their real order. Errors that follow the tissue's real change of shape are shared by every pairwise
+        // registration over that stretch, so a solve from pairs alone cannot see them.
+        var split = DriftSurrogate.Measure(builds.Chain.Record, builds.Truth);
+        output.WriteLine($"chain drift rms {split.Chain.DriftRmsPx:0.###} px; same link errors shuffled: mean {split.ShuffledDriftRmsPx:0.###} px, p95 {split.ShuffledDriftP95Px:0.###} px ({DriftSurrogate.Shuffles} orders)");
+        output.WriteLine($"unbiased independent errors of the same spread: mean {split.NoiseDriftRmsPx:0.###} px, p95 {split.NoiseDriftP95Px:0.###} px");
+        output.WriteLine($"lag-1 autocorrelation of the link shifts: {split.LinkLag1Autocorrelation:0.###}; mean link error {split.MeanLink[0]:0.###}°, ({split.MeanLink[1]:0.###}, {split.MeanLink[2]:0.###}) px");
+        Assert.True(split.Chain.DriftRmsPx > split.NoiseDriftP95Px, "the chain drifts no more than unbiased independent link errors would");
     }
 
     [Fact]
@@ -125,6 +142,7 @@ public sealed class DriftCorrectionTests(DriftBuilds builds, ITestOutputHelper o
         Assert.Equal("off", new BuildOptions { Input = "" }.Smoothing.Strength < 0 ? "off" : "on");
         Assert.Equal("flow", record.Parameters["fill"]);
         Assert.Equal("off", builds.Chain.Record.Parameters["smoothing"]);
+        Assert.False(builds.Chain.Record.Parameters.ContainsKey("second_neighbour_weight")); // no solve, nothing to report
         var aligned = record.Sections.Where(s => s.Status == "aligned").ToList();
         Assert.All(aligned, s =>
         {

@@ -137,10 +137,27 @@ public sealed class MriSeriesBuildTests(MriSeriesBuilds builds, ITestOutputHelpe
         // bound, as in DriftCorrectionTests).
         Assert.True(guided.PairErrorPx.Median <= chain.PairErrorPx.Median + 0.2, $"pairwise median {guided.PairErrorPx.Median} vs {chain.PairErrorPx.Median}");
         Assert.True(smoothed.PairErrorPx.Median <= chain.PairErrorPx.Median + 0.2, $"pairwise median {smoothed.PairErrorPx.Median} vs {chain.PairErrorPx.Median}");
-        // The smoothing prior's drift target (≤ 1/3 of the chain's) is NOT reached here and not asserted: measured
-        // (2026-12-02) drift rms 4.34 px against the chain's 3.58 px (max 10.26 vs 8.19 px), placement error median
-        // 3.06 vs 2.59 px. A likely reason (not measured): without a reference it cannot tell the chain's slow drift from the brain's real change of
-        // shape from plane to plane, and on this series it bends the stack further than the chain.
+        // The reference-free solve does not meet the drift target (≤ 1/3 of the chain's; the chain's drift is slow link
+        // error every pair shares, TheChainsDriftComesFromSlowLinkErrors), but must not amplify it: at full weight its
+        // second-neighbour pairs raised the drift to 4.34 px (measured 2026-12-02); their route closures are slow (share
+        // above the limit), so they are weighted down. Bound: 5 % over the chain (this project's; measured 0.4 %).
+        output.WriteLine($"route closures: slow share {builds.Smoothed.Record.Parameters["route_closure_slow_share"]}, second-neighbour weight {builds.Smoothed.Record.Parameters["second_neighbour_weight"]}");
+        Assert.Equal("0.01", builds.Smoothed.Record.Parameters["second_neighbour_weight"]);
+        Assert.True(smoothed.DriftRmsPx <= 1.05 * chain.DriftRmsPx, $"smoothing drift {smoothed.DriftRmsPx} px, chain {chain.DriftRmsPx} px");
+    }
+
+    [Fact]
+    public void TheChainsDriftComesFromSlowLinkErrors()
+    {
+        // Why the reference-free drift target (≤ 1/3 of the chain's) is not met: the chain's link errors against the truth
+        // are slow, neighbouring links err alike. The same link errors re-chained in shuffled order (DriftSurrogate) drift much
+        // less than in their real order. Errors that follow the tissue's real change of shape are shared by every pairwise
+        // registration over that stretch, so a solve from pairs alone cannot see them.
+        var split = DriftSurrogate.Measure(builds.Chain.Record, SeriesTruth.Read(builds.TruthPath));
+        output.WriteLine($"chain drift rms {split.Chain.DriftRmsPx:0.###} px; same link errors shuffled: mean {split.ShuffledDriftRmsPx:0.###} px, p95 {split.ShuffledDriftP95Px:0.###} px ({DriftSurrogate.Shuffles} orders)");
+        output.WriteLine($"unbiased independent errors of the same spread: mean {split.NoiseDriftRmsPx:0.###} px, p95 {split.NoiseDriftP95Px:0.###} px");
+        output.WriteLine($"lag-1 autocorrelation of the link shifts: {split.LinkLag1Autocorrelation:0.###}; mean link error {split.MeanLink[0]:0.###}°, ({split.MeanLink[1]:0.###}, {split.MeanLink[2]:0.###}) px");
+        Assert.True(split.Chain.DriftRmsPx > split.NoiseDriftP95Px, "the chain drifts no more than unbiased independent link errors would");
     }
 
     [Fact]

@@ -133,6 +133,56 @@ public sealed class SmoothingSolverTests(ITestOutputHelper output)
     }
 
     [Fact]
+    public void IndependentPairErrorsKeepTheSecondNeighboursAtFullWeight()
+    {
+        // Independent errors: the route closures vary from triangle to triangle, their slow share stays near the 0.18
+        // expected (SmoothingSolver.SlowClosureShare), and the second-neighbour pairs count fully.
+        foreach (var (seed, count) in new[] { (21, 30), (22, 60), (23, 120) })
+        {
+            var random = new Random(seed);
+            var truth = Truth(count, random);
+            var pairs = NeighbourPairs(truth, random, 0.5, 0.1, (_, _, map) => Pair(map));
+            var result = SmoothingSolver.Solve(Chain(count, pairs).Select(c => (Transform2D?)c).ToList(), 0, pairs, _ => Points, new SmoothingOptions { Strength = 0 });
+            output.WriteLine($"{count} sections: slow share {result.SlowClosureShare:0.###}, second-neighbour weight {result.LongPairWeight}");
+            Assert.InRange(result.SlowClosureShare, 0.05, result.SlowClosureLimit);
+            Assert.Equal(1, result.LongPairWeight);
+        }
+    }
+
+    [Fact]
+    public void SecondNeighboursBiasedAgainstTheChainDoNotBendIt()
+    {
+        // Tissue changing shape: every pair errs the same way over a stretch (a slow bias in the reference frame), and a
+        // pair two sections apart errs 2.6 times as much as a nearest pair (more than the two nearest pairs it spans).
+        // At full weight the second-neighbour pairs would pull the stack further than the chain; the solver sees the slow
+        // closures and weights them down, so it stays with the chain (within 5 %, this project's bound).
+        var random = new Random(31);
+        const int count = 60;
+        var truth = Truth(count, random);
+        (double X, double Y) Bias(int i) => (0.3 * Math.Sin(i / 9.0), 0.2 + 0.2 * Math.Cos(i / 13.0));
+        var pairs = new List<PairObservation>();
+        for (int i = 1; i < count; i++)
+        for (int step = 1; step <= Math.Min(2, i); step++)
+        {
+            var b = Bias(i);
+            double factor = step == 1 ? 1 : 2.6;
+            var error = Transform2D.Translation(factor * b.X + 0.05 * Gaussian(random), factor * b.Y + 0.05 * Gaussian(random));
+            pairs.Add(new PairObservation(i, i - step, Pair(truth[i].Then(error).Then(truth[i - step].Inverse()))));
+        }
+        var chain = Chain(count, pairs);
+        var start = chain.Select(c => (Transform2D?)c).ToList();
+        var adaptive = SmoothingSolver.Solve(start, 0, pairs, _ => Points, new SmoothingOptions { Strength = 0 });
+        var full = SmoothingSolver.Solve(start, 0, pairs, _ => Points, new SmoothingOptions { Strength = 0, SlowClosureMargin = 1000 });
+        double Rms(IReadOnlyList<Transform2D> placed) => Math.Sqrt(Enumerable.Range(0, count).Average(i => Math.Pow(CentreError(placed[i], truth[i]), 2)));
+        output.WriteLine($"slow share {adaptive.SlowClosureShare:0.###}, weight {adaptive.LongPairWeight}; rms centre error: chain {Rms(chain):0.###} px, " +
+            $"adaptive {Rms(adaptive.ToReference):0.###} px, full weight {Rms(full.ToReference):0.###} px");
+        Assert.True(adaptive.SlowClosureShare > adaptive.SlowClosureLimit, $"slow share {adaptive.SlowClosureShare}, limit {adaptive.SlowClosureLimit}");
+        Assert.Equal(new SmoothingOptions().BiasedLongPairWeight, adaptive.LongPairWeight);
+        Assert.True(Rms(full.ToReference) > 1.2 * Rms(chain), "the case does not show what it is meant to: full weight does not bend the stack");
+        Assert.True(Rms(adaptive.ToReference) <= 1.05 * Rms(chain), $"adaptive {Rms(adaptive.ToReference)} vs chain {Rms(chain)}");
+    }
+
+    [Fact]
     public void ConsistentPairsAreLeftAlone()
     {
         // Pairs that agree exactly: the smoothness term is on the correction, so it must not move anything

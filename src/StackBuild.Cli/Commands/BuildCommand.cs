@@ -160,6 +160,10 @@ public static class BuildCommand
         o.WriteLine($"Report   {paths.Report}");
         o.WriteLine($"Grid     {r.Dimensions[0]} × {r.Dimensions[1]} × {r.Dimensions[2]} voxels of {r.VoxelSizeMm[0] * 1000:0.###} × {r.VoxelSizeMm[1] * 1000:0.###} × {r.VoxelSizeMm[2] * 1000:0.###} µm, axes {r.AxisCodes}");
         if (r.Frame is { } f) o.WriteLine($"Frame    {f.Describe()}");
+        if (r.Parameters.TryGetValue("second_neighbour_weight", out var longWeight) && r.Parameters.TryGetValue("route_closure_slow_share", out var share))
+            o.WriteLine($"Solve    every pair at once, smoothness {r.Parameters["smoothing"]}; " + (longWeight == "1"
+                ? $"second-neighbour pairs at full weight (route closures vary freely: slow share {share})"
+                : $"second-neighbour pairs weighted {longWeight}: they disagree with the chain the same way over stretches of sections (slow share {share}), so the chain's course is kept"));
         int filled = r.Sections.Count(s => s.Filled is not null);
         o.WriteLine($"Sections {string.Join(", ", counts.OrderBy(c => c.Key).Select(c => $"{c.Value} {c.Key}"))}" +
             (filled > 0 ? $"; {filled} empty plane(s) filled from their neighbours" : ""));

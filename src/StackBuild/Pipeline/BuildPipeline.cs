@@ -393,6 +393,12 @@ public static class BuildPipeline
             ["z_resampling"] = zResampling,
             ["template"] = onTemplate is null ? "none" : "sections matched to template slices by normalised mutual information; the template sets the course over 11 sections, the chain the detail",
         };
+        if (smoothing is not null)
+        {
+            parameters["route_closure_slow_share"] = double.IsNaN(smoothing.SlowClosureShare) ? "too few sections to tell"
+                : $"{Num(Math.Round(smoothing.SlowClosureShare, 3))}, limit {Num(Math.Round(smoothing.SlowClosureLimit, 3))}";
+            parameters["second_neighbour_weight"] = Num(smoothing.LongPairWeight);
+        }
         var buildRecord = new BuildRecord
         {
             Version = Version,

@@ -8,11 +8,11 @@ public sealed record SmoothingOptions
     /// <summary>
     /// Strength λ of the smoothness term (dimensionless, relative to one full-confidence pair); 0 solves with the
     /// robust consistency of all pairs only; negative (the default) keeps the plain neighbour chain.
-    /// Why off by default: on the demo phantom (seed 7) the solve with λ = 0 gave low-frequency drift rms 3.51 px
-    /// against the chain's 3.33 px (max 5.36 vs 6.11 px) and a larger pairwise error (median 0.53 vs 0.43 px):
-    /// the drift there is shared by first- and second-neighbour registrations, so more pairs do not remove it.
-    /// λ &gt; 0 penalises the curvature of the correction; a chain error from one bad pair is a step, which that
-    /// term resists (synthetic wild-pair case: λ = 0.05 left a 15 px step at 3–9 px instead of &lt; 1 px).
+    /// Why off by default: on the demo and on a public MRI series (docs/drift-and-frame.md) the solve does not beat the
+    /// chain: the chain's drift is slow link error every pair shares, and the solve, once it has weighted the biased
+    /// second-neighbour pairs down, keeps the chain's course (drift rms 2.67 vs 2.66 px and 3.59 vs 3.58 px, measured
+    /// 2026-12-02). λ &gt; 0 penalises the curvature of the correction; a chain error from one bad pair is a step, which
+    /// that term resists (synthetic wild-pair case: λ = 0.05 left a 15 px step at 3–9 px instead of &lt; 1 px).
     /// </summary>
     public double Strength { get; init; } = -1;
     /// <summary>Gauss–Newton iterations (each one also updates the robust weights).</summary>
@@ -21,6 +21,22 @@ public sealed record SmoothingOptions
     public double TukeyC { get; init; } = 4.685;
     /// <summary>The cut-off is never below this many registration pixels (pairs that agree this well are never outliers).</summary>
     public double MinCutoffPx { get; init; } = 1.0;
+    /// <summary>
+    /// Second-neighbour pairs count this much (relative to a nearest pair of the same confidence) when they disagree
+    /// with the chain systematically (<see cref="SlowClosureMargin"/>); otherwise they count fully.
+    /// </summary>
+    public double BiasedLongPairWeight { get; init; } = 0.01;
+    /// <summary>
+    /// The second-neighbour pairs are taken to be biased against the chain when the slow share of the route closures
+    /// (their moving average over <see cref="ClosureWindow"/> triangles; see <see cref="SmoothingSolver"/>) exceeds
+    /// 0.18 + SlowClosureMargin / √(number of triangles). 0.18 is what independent pair errors give; measured on 60
+    /// synthetic series each of 15–300 sections with independent errors (2026-12-02), the median was 0.17–0.20 and the
+    /// largest 0.58, 0.47, 0.40, 0.31, 0.28, 0.22 for 15, 20, 30, 60, 120, 300 sections; with a margin of 1, 7 of 360
+    /// fresh series of those sizes (2 %) were taken for biased (those keep the chain, which costs only the averaging).
+    /// Demo series 0.346 (limit 0.323), MRI series 0.759 (limit 0.342).
+    /// </summary>
+    public double SlowClosureMargin { get; init; } = 1.0;
+    public int ClosureWindow { get; init; } = 9;
     /// <summary>Pairs below this confidence are not used.</summary>
     public double MinConfidence { get; init; } = 0.2;
 }
@@ -37,7 +53,11 @@ public sealed record PairDecision(int Moving, int Fixed, double Confidence, doub
 
 /// <param name="ToReference">Solved map of each section (registration pixels → reference frame); the chain's for sections not solved.</param>
 /// <param name="CorrectionPx">How far (registration pixels, at the section's centre) the solution moved each section from the chain.</param>
-public sealed record SmoothingResult(IReadOnlyList<Transform2D> ToReference, IReadOnlyList<double> CorrectionPx, IReadOnlyList<PairDecision> Pairs);
+/// <param name="SlowClosureShare">Share of the route closures that is slow (NaN when there were too few triangles to tell).</param>
+/// <param name="SlowClosureLimit">The share above which the second-neighbour pairs were weighted down.</param>
+/// <param name="LongPairWeight">The weight second-neighbour pairs were given (1, or <see cref="SmoothingOptions.BiasedLongPairWeight"/>).</param>
+public sealed record SmoothingResult(IReadOnlyList<Transform2D> ToReference, IReadOnlyList<double> CorrectionPx, IReadOnlyList<PairDecision> Pairs,
+    double SlowClosureShare = double.NaN, double SlowClosureLimit = double.PositiveInfinity, double LongPairWeight = 1);
 
 /// <summary>
 /// Reference-free solution of all section placements at once: least squares over every pairwise registration
@@ -58,6 +78,11 @@ public sealed record SmoothingResult(IReadOnlyList<Transform2D> ToReference, IRe
 /// scale from the median absolute residual. A pair whose residual is beyond the cut-off is retried with its
 /// runner-up hypothesis (same handedness only) and keeps it when that agrees; otherwise it gets weight 0 and is
 /// reported with the reason. One wild pair cannot bend the rest because the second-neighbour pairs bridge it.</para>
+/// <para>Biased second neighbours: before solving, the route closures (second-neighbour pair against the two nearest
+/// pairs it spans) are tested for a slow part (<see cref="SmoothingOptions.SlowClosureMargin"/>). When tissue changes
+/// shape between sections, a pair two sections apart errs more than twice a nearest pair, the same way over a stretch,
+/// and at full weight those pairs bend the stack further than the chain (demo +7 %, MRI +21 % drift); they are then
+/// weighted down so that they bridge outliers but do not set the course.</para>
 /// </remarks>
 public static class SmoothingSolver
 {
@@ -89,6 +114,8 @@ public static class SmoothingSolver
         int band = 3 * span + 2;
 
         var suspect = RouteCheck(usable, maps, runnerUsed, points, options);
+        double slowShare = SlowClosureShare(usable, maps, suspect, solved, points, options, out int slowTriangles);
+        double longWeight = slowShare > SlowShareLimit(slowTriangles, options) ? options.BiasedLongPairWeight : 1;
         for (int iteration = 0; iteration <= options.Iterations; iteration++)
         {
             // Residuals and robust weights at the current solution. The first solve uses the route check alone: the
@@ -128,7 +155,7 @@ public static class SmoothingSolver
             var system = new BandedSystem(3 * count, band);
             for (int k = 0; k < usable.Count; k++)
             {
-                double w = robust[k] * usable[k].Result.Confidence;
+                double w = robust[k] * usable[k].Result.Confidence * (Math.Abs(usable[k].Moving - usable[k].Fixed) > 1 ? longWeight : 1);
                 if (w <= 0) continue;
                 AddPair(system, usable[k], maps[k], w, solved, points, centres);
             }
@@ -155,7 +182,7 @@ public static class SmoothingSolver
         }
         var decisions = usable.Select((p, k) => new PairDecision(p.Moving, p.Fixed, p.Result.Confidence,
             robust[k] * p.Result.Confidence, residual[k], runnerUsed[k], outlier[k])).ToList();
-        return new SmoothingResult(solved, correction, decisions);
+        return new SmoothingResult(solved, correction, decisions, slowShare, SlowShareLimit(slowTriangles, options), longWeight);
     }
 
     /// <summary>A small rigid map: rotation by θ (radians) about c, then a shift by t.</summary>
@@ -233,6 +260,64 @@ public static class SmoothingSolver
         }
         return suspect;
     }
+
+    /// <summary>
+    /// How much of the route closures is slow. For every triangle (a, a − 1, a − 2) whose pairs are not suspect, the
+    /// closure is the difference, in the reference frame at the sample points, between where the route a → a − 1 → a − 2
+    /// and the direct pair a → a − 2 put section a. Independent pair errors make closures that vary from triangle to
+    /// triangle (neighbouring closures share one nearest pair, lag-1 correlation about 1/3 at equal error sizes), so their
+    /// moving average over 9 triangles keeps about (1 + 2·(8/9)·(1/3))/9 ≈ 0.18 of their power. Tissue that changes
+    /// shape between sections makes a pair two sections apart err more than twice a nearest pair, the same way over a
+    /// stretch of sections: the closures then share a slow part and the share grows towards 1. Measured (2026-12-02):
+    /// demo series 0.35, MRI series 0.76, independent synthetic errors median 0.18.
+    /// </summary>
+    private static double SlowClosureShare(List<PairObservation> usable, Transform2D[] maps, bool[] suspect, Transform2D[] solved,
+        (double X, double Y)[][] points, SmoothingOptions options, out int triangles)
+    {
+        var index = new Dictionary<(int, int), int>();
+        for (int k = 0; k < usable.Count; k++)
+            if (usable[k].Result.Confidence >= options.MinConfidence && !suspect[k]) index[(usable[k].Moving, usable[k].Fixed)] = k;
+        var closures = new List<double[]>();
+        foreach (var (a, f) in index.Keys.Where(key => key.Item1 - key.Item2 == 2).OrderBy(key => key.Item1))
+        {
+            if (!index.TryGetValue((a, a - 1), out int first) || !index.TryGetValue((a - 1, f), out int second)) continue;
+            var route = maps[first].Then(maps[second]);
+            var direct = maps[index[(a, f)]];
+            var c = new double[2 * points[a].Length];
+            for (int p = 0; p < points[a].Length; p++)
+            {
+                var u = solved[f].Apply(route.Apply(points[a][p].X, points[a][p].Y).X, route.Apply(points[a][p].X, points[a][p].Y).Y);
+                var v = solved[f].Apply(direct.Apply(points[a][p].X, points[a][p].Y).X, direct.Apply(points[a][p].X, points[a][p].Y).Y);
+                c[2 * p] = u.X - v.X;
+                c[2 * p + 1] = u.Y - v.Y;
+            }
+            closures.Add(c);
+        }
+        triangles = closures.Count;
+        if (closures.Count < options.ClosureWindow) return double.NaN;
+        int half = options.ClosureWindow / 2;
+        double slow = 0, all = 0;
+        for (int t = 0; t < closures.Count; t++)
+        {
+            int lo = Math.Max(0, t - half), hi = Math.Min(closures.Count - 1, t + half);
+            for (int d = 0; d < closures[t].Length; d++)
+            {
+                double mean = 0;
+                for (int j = lo; j <= hi; j++) mean += closures[j][d];
+                mean /= hi - lo + 1;
+                slow += mean * mean;
+                all += closures[t][d] * closures[t][d];
+            }
+        }
+        return all > 0 ? slow / all : 0;
+    }
+
+    /// <summary>Expected slow share of independent closures.</summary>
+    public const double IndependentSlowShare = 0.18;
+
+    /// <summary>The slow share above which second-neighbour pairs are taken to be biased (<see cref="SmoothingOptions.SlowClosureMargin"/>).</summary>
+    public static double SlowShareLimit(int triangles, SmoothingOptions options) =>
+        triangles <= 0 ? double.PositiveInfinity : IndependentSlowShare + options.SlowClosureMargin / Math.Sqrt(triangles);
 
     /// <summary>1.4826 × median residual of the pairs in use (a consistent estimate of σ for Gaussian residuals).</summary>
     private static double RobustScale(double[] residual, List<PairObservation> usable, double minConfidence)
