@@ -196,6 +196,36 @@ public class TemplateGuideTests(ITestOutputHelper output)
         Assert.True(guided.MedianErrorPx <= 1, $"median error {guided.MedianErrorPx} px");
         Assert.True(result.OutlierCount <= 3, $"{result.OutlierCount} outliers");
         Assert.False(result.Mirrored);
+        Assert.DoesNotContain(result.Sections, s => s.PlacedByTemplate); // healthy chain: nothing replaced
+    }
+
+    [Fact]
+    public void ASectionTheChainTurnedOrMirroredIsPlacedByItsOwnTemplateMatch()
+    {
+        // Two sections whose weak chain links put them wrong: one turned by 180°, one mirrored (what a torn section's
+        // pair registration can do). Searched on their slices from scratch, both are placed by their own template match.
+        var truth = RegisterMriTests.Template();
+        var planes = Enumerable.Range(0, 40).Select(s => 50 + s * 2).ToList();
+        var sim = Simulate(truth, planes, v => 0.9f - 0.7f * MathF.Pow(v, 0.7f), v => 0.2f + 0.6f * MathF.Sin(MathF.PI * MathF.Min(v, 1)),
+            seed: 5, driftPx: 0.4, driftDegrees: 0.2, Options);
+        var sections = sim.Input.Sections.ToList();
+        const int turned = 14, mirrored = 27;
+        double c = (Canvas - 1) / 2.0;
+        sections[turned] = sections[turned] with { ToReference = Transform2D.Rotation(180, c, c).Then(sections[turned].ToReference), ChainConfidence = 0.3 };
+        sections[mirrored] = sections[mirrored] with { ToReference = Transform2D.MirrorX(c).Then(sections[mirrored].ToReference), ChainConfidence = 0.3 };
+        var wrong = sim with { Input = sim.Input with { Sections = sections } };
+        var (_, guided, result) = RunAndReport("MRI ch2, two sections placed wrong by the chain", wrong, Enumerable.Range(0, planes.Count).ToArray());
+        foreach (int s in new[] { turned, mirrored })
+        {
+            var p = result.Sections[s];
+            output.WriteLine($"  section {s}: placed by template {p.PlacedByTemplate}; {p.Reason}; error after the global fit {guided.Errors[s]:0.###} px");
+            Assert.True(p.PlacedByTemplate, $"section {s}: {p.Reason}");
+            Assert.Contains("placed by its own template match", p.Reason);
+            Assert.True(guided.Errors[s] < 1.5, $"section {s} is {guided.Errors[s]} px off");
+        }
+        Assert.Contains("mirrored against the chain", result.Sections[mirrored].Reason);
+        Assert.Equal(2, result.Sections.Count(s => s.PlacedByTemplate));
+        Assert.True(guided.MedianErrorPx <= 1, $"median error {guided.MedianErrorPx} px");
     }
 
     [Fact]

@@ -179,6 +179,8 @@ public sealed record SectionTemplateRecord
     /// <summary>Why the match was set aside, or null when it was used.</summary>
     [JsonPropertyName("outlier")] public string? Outlier { get; init; }
     [JsonPropertyName("note")] public string? Note { get; init; }
+    /// <summary>True when the section was placed by its own template match alone, not by the neighbour chain (the note says why).</summary>
+    [JsonPropertyName("placed_by_template")] public bool PlacedByTemplate { get; init; }
     /// <summary>How far (µm, at the section's centre) the smoothed template correction moved the chain's placement.</summary>
     [JsonPropertyName("correction_um")] public double CorrectionUm { get; init; }
     [JsonPropertyName("correction_deg")] public double CorrectionDegrees { get; init; }

@@ -35,6 +35,18 @@ public sealed record TemplateGuideOptions
     /// <summary>…and beyond this floor (pixels at working size, degrees), so that a very tidy series does not reject by noise.</summary>
     public double OutlierFloorPx { get; init; } = 2;
     public double OutlierFloorDegrees { get; init; } = 2;
+    /// <summary>
+    /// Sections whose template match was set aside, or whose chain link is below this confidence, are also searched on
+    /// their slice from scratch (any angle, both mirrors); see <see cref="RescueSimilarityShare"/>.
+    /// </summary>
+    public double RescueChainConfidence { get; init; } = 0.5;
+    /// <summary>
+    /// Such a section is placed by that match alone when its similarity is at least this share of the median similarity
+    /// of the accepted matches within the smoothing window…
+    /// </summary>
+    public double RescueSimilarityShare { get; init; } = 0.8;
+    /// <summary>…and at least this many times the similarity of its match near the chain placement.</summary>
+    public double RescueMargin { get; init; } = 1.1;
     /// <summary>A chain link below this confidence separates the stack into parts whose corrections are smoothed apart.</summary>
     public double ChainBreakConfidence { get; init; } = 0.1;
     public TemplateRegistrationOptions Registration { get; init; } = new();
@@ -51,9 +63,11 @@ public sealed record TemplateGuideInput(IReadOnlyList<TemplateGuideSection> Sect
 /// <param name="DeviationPx">Distance of the measured correction from the local median course (what outliers are judged by).</param>
 /// <param name="CorrectionDegrees">Rotation applied to the chain placement, about the section centre.</param>
 /// <param name="CorrectionX">Shift applied at the section centre, slice pixels.</param>
+/// <param name="PlacedByTemplate">True when the section was placed by its own template match alone (searched from scratch),
+/// not by the chain; <paramref name="Reason"/> then says why.</param>
 public sealed record TemplateSectionPlacement(int Index, Transform2D SectionToSlice, Transform2D ChainToSlice, Transform2D? Measured,
     double? Similarity, double Confidence, double? ResidualPx, double? ResidualDegrees, double? DeviationPx, double? DeviationDegrees,
-    bool Outlier, string? Reason, double CorrectionDegrees, double CorrectionX, double CorrectionY);
+    bool Outlier, string? Reason, double CorrectionDegrees, double CorrectionX, double CorrectionY, bool PlacedByTemplate = false);
 
 /// <param name="ReferenceToSlice">The one rigid map from the reference frame onto the template slices' frame.</param>
 /// <param name="GlobalAgreement">Fraction of the globally searched sections that agreed with the chosen map.</param>
@@ -136,15 +150,40 @@ public static class TemplateGuide
             }
         }
 
+        // (c2) Rescue: a section the template disagrees with, or one hanging on a weak chain link, is searched on its slice
+        // from scratch; a match as good as its neighbours' and clearly better than the one near the chain placement
+        // places it alone (a wrong mirror or turn from a torn section's weak pair registration is undone this way).
+        var rescue = new TemplateMatch?[n];
+        var retry = usable.Where(i => !candidate[i] || sections[i].ChainConfidence < options.RescueChainConfidence).ToList();
+        Parallel.ForEach(retry, i => rescue[i] = TemplateRegistration.Register(sections[i].Image!, sections[i].Slice!, null, options.Registration));
+        foreach (int i in retry)
+        {
+            var near = usable.Where(j => j != i && candidate[j] && Math.Abs(j - i) <= half).Select(j => measured[j]!.Similarity).ToList();
+            if (near.Count < 3) { rescue[i] = null; continue; }
+            double local = Median(near), own = measured[i]!.Similarity, found = rescue[i]!.Similarity;
+            if (found >= options.RescueSimilarityShare * local && found >= options.RescueMargin * own)
+                reason[i] = $"placed by its own template match (similarity {found:0.###}, neighbours' median {local:0.###}; near the chain placement {own:0.###}" +
+                    (rescue[i]!.Mirrored != chain[i].IsMirrored ? ", mirrored against the chain" : "") + ")";
+            else rescue[i] = null;
+        }
+
         // (d) Fuse: the smoothed correction applied to the chain placement.
         var weight = new double[n];
-        foreach (int i in usable) if (candidate[i]) weight[i] = 1;
+        foreach (int i in usable) if (candidate[i] && rescue[i] is null) weight[i] = 1;
         var sa = Smooth(angle, weight, segment, half); var sx = Smooth(dx, weight, segment, half); var sy = Smooth(dy, weight, segment, half);
         var result = new TemplateSectionPlacement[n];
         for (int i = 0; i < n; i++)
         {
             var (qx, qy) = chain[i].Apply(centres[i].Item1, centres[i].Item2);
             var fused = chain[i].Then(Transform2D.Rotation(sa[i], qx, qy)).Then(Transform2D.Translation(sx[i], sy[i]));
+            if (rescue[i] is { } own)
+            {
+                var (ox, oy) = own.SectionToSlice.Apply(centres[i].Item1, centres[i].Item2);
+                result[i] = new TemplateSectionPlacement(i, own.SectionToSlice, chain[i], own.SectionToSlice, own.Similarity, own.Confidence,
+                    double.Hypot(ox - qx, oy - qy), AngleDifference(own.SectionToSlice.RotationDegrees, chain[i].RotationDegrees),
+                    deviationPx[i], deviationDeg[i], false, reason[i], sa[i], sx[i], sy[i], PlacedByTemplate: true);
+                continue;
+            }
             var m = measured[i];
             bool outlier = m != null && !candidate[i];
             double confidence = m == null ? 0 : outlier ? 0 : m.Confidence;

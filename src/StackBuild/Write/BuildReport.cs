@@ -37,6 +37,7 @@ public static class SectionFlags
             reasons.Add(string.Create(CultureInfo.InvariantCulture, $"placements through the first and second neighbour differ by {d:0} µm"));
         if (s.Damaged) reasons.Add("marked damaged in the manifest" + (string.IsNullOrEmpty(s.Note) ? "" : $" ({s.Note})"));
         if (s.Template?.Outlier is { } why) reasons.Add($"its template match was set aside ({why})");
+        if (s.Template is { PlacedByTemplate: true } t) reasons.Add(t.Note ?? "placed by its own template match");
         return reasons;
     }
 }
