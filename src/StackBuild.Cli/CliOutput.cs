@@ -58,13 +58,29 @@ public sealed class CliOutput(TextWriter stdout, TextWriter stderr)
         }
     }
 
+    private string? _stage;
+
+    /// <summary>
+    /// On a terminal, one line rewritten in place; when stderr goes to a file or a pipe (a log, a job script), one line
+    /// per stage (the text before the first ':') so that a long build does not look hung.
+    /// </summary>
     public void Progress(string text)
     {
-        if (ShowProgress) Error.Write($"\r{text}\u001b[K");
+        if (ShowProgress) { Error.Write($"\r{text}\u001b[K"); return; }
+        if (!ReferenceEquals(Error, Console.Error)) return;
+        int colon = text.IndexOf(':');
+        string stage = (colon > 0 ? text[..colon] : text).TrimEnd('…');
+        lock (this)
+        {
+            if (stage == _stage) return;
+            _stage = stage;
+        }
+        Error.WriteLine($"{stage}…");
     }
 
     public void EndProgress()
     {
         if (ShowProgress) Error.WriteLine();
+        _stage = null;
     }
 }

@@ -97,7 +97,8 @@ public sealed class BuildCommandTests : IDisposable
         var output = Path.Combine(_dir, "solved.nii.gz");
         var (code, stdout, stderr) = Run("build", RepositoryPaths.DemoSeries, "-o", output, "--smoothing", "0", "--fill", "none");
         Assert.True(code == 0, stderr);
-        Assert.Contains("Solve    every pair at once, smoothness 0; second-neighbour pairs weighted 0.01: they disagree with the chain", stdout);
+        Assert.Contains("Solve    all pairs at once (--smoothing 0). Drift is NOT reduced", stdout);
+        Assert.Contains("--template removes drift", stdout);
         var parameters = JsonDocument.Parse(File.ReadAllText(Path.Combine(_dir, "solved.json"))).RootElement.GetProperty("parameters");
         Assert.Equal("0.01", parameters.GetProperty("second_neighbour_weight").GetString());
         Assert.Matches(@"^0\.\d+, limit 0\.\d+$", parameters.GetProperty("route_closure_slow_share").GetString());

@@ -27,7 +27,7 @@ public static class BuildCommand
         var voxelSize = new Option<double?>("--voxel-size") { Description = "Voxel size of the volume in µm: the plane spacing (planes between sections interpolated like the gaps) and, unless --output-pixel-size is given, the in-plane size" };
         var channel = new Option<string>("--channel") { Description = "How colour images become gray: luminance, red, green or blue", DefaultValueFactory = _ => "luminance" };
         var interpolation = new Option<string>("--interpolation") { Description = "Resampling: bilinear or bicubic", DefaultValueFactory = _ => "bilinear" };
-        var smoothing = new Option<double>("--smoothing") { Description = "Solve all placements from every neighbour pair with outlier rejection: the smoothness strength (0 = pairs only; negative, the default, = plain neighbour chain)", DefaultValueFactory = _ => new SmoothingOptions().Strength };
+        var smoothing = new Option<double>("--smoothing") { Description = "Solve all placements at once from every first- and second-neighbour pair, with outliers set aside: the smoothness strength (0 = pairs only; negative, the default, = plain neighbour chain). It evens out section-to-section jitter but does not remove slow drift; --template does", DefaultValueFactory = _ => new SmoothingOptions().Strength };
         var fill = new Option<string>("--fill") { Description = "Fill gap, excluded and failed planes of an aligned build from their neighbours: flow (optical-flow interpolation), linear or none", DefaultValueFactory = _ => "flow" };
         var reference = new Option<int?>("--reference") { Description = "Section number whose frame, as it lay on its slide, the volume takes (default: the first section matched confidently)" };
         var rotate = new Option<double>("--rotate") { Description = "Turn the whole volume in the section plane by this many degrees, clockwise as displayed", DefaultValueFactory = _ => 0 };
@@ -161,9 +161,9 @@ public static class BuildCommand
         o.WriteLine($"Grid     {r.Dimensions[0]} × {r.Dimensions[1]} × {r.Dimensions[2]} voxels of {r.VoxelSizeMm[0] * 1000:0.###} × {r.VoxelSizeMm[1] * 1000:0.###} × {r.VoxelSizeMm[2] * 1000:0.###} µm, axes {r.AxisCodes}");
         if (r.Frame is { } f) o.WriteLine($"Frame    {f.Describe()}");
         if (r.Parameters.TryGetValue("second_neighbour_weight", out var longWeight) && r.Parameters.TryGetValue("route_closure_slow_share", out var share))
-            o.WriteLine($"Solve    every pair at once, smoothness {r.Parameters["smoothing"]}; " + (longWeight == "1"
-                ? $"second-neighbour pairs at full weight (route closures vary freely: slow share {share})"
-                : $"second-neighbour pairs weighted {longWeight}: they disagree with the chain the same way over stretches of sections (slow share {share}), so the chain's course is kept"));
+            o.WriteLine($"Solve    all pairs at once (--smoothing {r.Parameters["smoothing"]}). " + (longWeight == "1"
+                ? "Section-to-section jitter is evened out; slow drift is not removed without a reference (--template removes it)."
+                : "Drift is NOT reduced: the second-neighbour pairs share the chain's slow errors, so they were weighted down and the chain's course is kept. --template removes drift."));
         int filled = r.Sections.Count(s => s.Filled is not null);
         o.WriteLine($"Sections {string.Join(", ", counts.OrderBy(c => c.Key).Select(c => $"{c.Value} {c.Key}"))}" +
             (filled > 0 ? $"; {filled} empty plane(s) filled from their neighbours" : ""));

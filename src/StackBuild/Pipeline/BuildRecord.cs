@@ -128,7 +128,7 @@ public sealed record FrameRecord
         static double R(double v) => Math.Round(v, 2) + 0.0;
         var parts = new List<string>();
         if (Template is { } t)
-            parts.Add(string.Format(c, "the template's frame ({0}, cut along {1}, first section at plane {2:0.##}{3}; {4} sections matched to it, {5} set aside)",
+            parts.Add(string.Format(c, "the template's frame ({0}, cut along {1}, first section at template plane {2:0.##}{3}; {4} sections matched to it, {5} set aside)",
                 System.IO.Path.GetFileName(t.File), t.CutAxis, R(t.FirstPlane), t.Reverse ? ", reversed" : "", t.Measured, t.Outliers));
         else
             parts.Add($"section {ReferenceSection} as scanned{(FaceFlipped ? ", turned face up" : "")}");

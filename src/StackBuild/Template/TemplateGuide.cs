@@ -144,8 +144,8 @@ public static class TemplateGuide
             double limitPx = Math.Max(options.OutlierMads * madPx, options.OutlierFloorPx), limitDeg = Math.Max(options.OutlierMads * madDeg, options.OutlierFloorDegrees);
             foreach (int i in devs)
             {
-                if (deviationPx[i] > limitPx) reason[i] = $"{deviationPx[i]:0.#} px from the local course of the template matches (limit {limitPx:0.#})";
-                else if (deviationDeg[i] > limitDeg) reason[i] = $"{deviationDeg[i]:0.#}° from the local course of the template matches (limit {limitDeg:0.#})";
+                if (deviationPx[i] > limitPx) reason[i] = $"{deviationPx[i]:0.#} px away from where its neighbours' template matches put it; at most {limitPx:0.#} px accepted";
+                else if (deviationDeg[i] > limitDeg) reason[i] = $"turned {deviationDeg[i]:0.#}° against its neighbours' template matches; at most {limitDeg:0.#}° accepted";
                 if (reason[i] != null) candidate[i] = false;
             }
         }

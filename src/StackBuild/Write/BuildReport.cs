@@ -109,7 +109,8 @@ public static class BuildReport
         Fact(o, "axis codes", $"{r.AxisCodes} (image right, image down, increasing section number)", "axis-codes");
         Fact(o, "input pixel size", $"{F(r.InputPixelSizeUm, "0.###")} µm");
         Fact(o, "section spacing", $"{F(r.SpacingUm, "0.###")} µm");
-        Fact(o, "reference section", r.ReferenceSection.ToString(Inv));
+        if (r.Frame?.Template is null) Fact(o, "reference section", r.ReferenceSection.ToString(Inv));
+        else Fact(o, "chain reference section", $"{r.ReferenceSection.ToString(Inv)} (the frame is the template's)");
         if (r.Frame is { } frame) Fact(o, "output frame", frame.Describe());
         var errors = placed.Where(s => s.EstimatedErrorUm is not null).Select(s => s.EstimatedErrorUm!.Value).ToList();
         if (errors.Count > 0) Fact(o, "estimated error", $"median {F(Quantiles.Median(errors), "0.#")} µm, largest {F(errors.Max(), "0.#")} µm");

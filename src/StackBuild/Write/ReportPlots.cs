@@ -64,7 +64,8 @@ internal static class ReportPlots
     /// <summary>The estimated placement error relative to the reference section (µm).</summary>
     public static byte[] EstimatedError(BuildRecord record)
     {
-        var plot = NewPlot("Estimated placement error (relative to the reference section)", "error (µm)");
+        var plot = NewPlot(record.Frame?.Template is null ? "Estimated placement error (relative to the reference section)"
+            : "Estimated placement error (relative to the template)", "error (µm)");
         AddSeries(plot, record.Sections.Where(s => s.EstimatedErrorUm is not null).ToList(), s => s.EstimatedErrorUm!.Value, Blue, "estimate (1 standard error)");
         plot.Axes.SetLimitsY(0, Math.Max(1, record.Sections.Max(s => s.EstimatedErrorUm ?? 0)) * 1.08);
         return Finish(plot, record);
