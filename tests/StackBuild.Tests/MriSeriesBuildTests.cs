@@ -147,6 +147,49 @@ public sealed class MriSeriesBuildTests(MriSeriesBuilds builds, ITestOutputHelpe
     }
 
     [Fact]
+    public void ASectionStainedDifferentlyIsPlacedByTheTemplateWhereTheChainFails()
+    {
+        // Section 20 rescanned with a non-monotone change of contrast (0.5 − 0.5·cos 4πv: a different stain). Measured
+        // 2026-12-02: the neighbour chain cannot place it (status failed without a template); normalised mutual information
+        // still finds it on its template slice, so the guided build places it by that match alone (route 'template').
+        var folder = Directory.CreateTempSubdirectory("sb-mristain-").FullName;
+        try
+        {
+            foreach (var file in Directory.GetFiles(builds.Folder).Where(f => f.EndsWith(".png") || f.EndsWith(".csv") || f.EndsWith("truth.json")))
+                File.Copy(file, Path.Combine(folder, Path.GetFileName(file)));
+            var path = Path.Combine(folder, "s20.png");
+            using (var image = SixLabors.ImageSharp.Image.Load<SixLabors.ImageSharp.PixelFormats.L16>(path))
+            {
+                var values = new ushort[image.Width, image.Height];
+                for (int y = 0; y < image.Height; y++) for (int x = 0; x < image.Width; x++) values[x, y] = image[x, y].PackedValue;
+                SectionImageTestFiles.Gray16Png(path, image.Width, image.Height,
+                    (x, y) => (ushort)Math.Round((0.5 - 0.5 * Math.Cos(4 * Math.PI * values[x, y] / 65535.0)) * 60000));
+            }
+            var build = BuildPipeline.Run(new BuildOptions
+            {
+                Input = folder,
+                Template = new TemplateOptions { Path = builds.TemplatePath, CutAxis = 'k', FirstPlane = (MriSeriesBuilds.FirstTemplatePlane - 0.5) / 2 },
+            });
+            var section = build.Record.Sections.Single(s => s.Number == 20);
+            output.WriteLine($"section 20: status {section.Status}, route {section.Route}, template note: {section.Template?.Note}");
+            Assert.Equal("aligned", section.Status);
+            Assert.Equal("template", section.Route);
+            Assert.True(section.Template!.PlacedByTemplate);
+            Assert.Contains("placed by its own template match alone", section.Template.Note);
+            var evaluation = TruthEvaluation.Evaluate(build.Record, SeriesTruth.Read(Path.Combine(folder, "truth.json")));
+            var error = evaluation.Sections.Single(e => e.Number == 20);
+            output.WriteLine($"section 20: error {error.ErrorPx:0.###} px, rotation {error.RotationErrorDegrees:0.###}°; build median {evaluation.ErrorPx.Median:0.###} px");
+            Assert.False(error.MirrorWrong);
+            Assert.True(error.ErrorPx < 1, $"section 20 is {error.ErrorPx} px off");
+            Assert.Equal(MriSeriesBuilds.Sections, build.Record.Sections.Count(s => s.Status == "aligned"));
+        }
+        finally
+        {
+            try { Directory.Delete(folder, true); } catch (IOException) { }
+        }
+    }
+
+    [Fact]
     public void TheChainsDriftComesFromSlowLinkErrors()
     {
         // Why the reference-free drift target (≤ 1/3 of the chain's) is not met: the chain's link errors against the truth

@@ -200,22 +200,30 @@ public class TemplateGuideTests(ITestOutputHelper output)
     }
 
     [Fact]
-    public void ASectionTheChainTurnedOrMirroredIsPlacedByItsOwnTemplateMatch()
+    public void SectionsTheChainPutWrongOrCouldNotPlaceArePlacedByTheirOwnTemplateMatch()
     {
         // Two sections whose weak chain links put them wrong: one turned by 180°, one mirrored (what a torn section's
-        // pair registration can do). Searched on their slices from scratch, both are placed by their own template match.
+        // pair registration can do), and one the chain could not place. Searched on their slices from scratch, all three
+        // are placed by their own template match; a section of pure noise is not.
         var truth = RegisterMriTests.Template();
         var planes = Enumerable.Range(0, 40).Select(s => 50 + s * 2).ToList();
         var sim = Simulate(truth, planes, v => 0.9f - 0.7f * MathF.Pow(v, 0.7f), v => 0.2f + 0.6f * MathF.Sin(MathF.PI * MathF.Min(v, 1)),
             seed: 5, driftPx: 0.4, driftDegrees: 0.2, Options);
         var sections = sim.Input.Sections.ToList();
-        const int turned = 14, mirrored = 27;
+        const int turned = 14, mirrored = 27, orphan = 5, noise = 33;
         double c = (Canvas - 1) / 2.0;
         sections[turned] = sections[turned] with { ToReference = Transform2D.Rotation(180, c, c).Then(sections[turned].ToReference), ChainConfidence = 0.3 };
         sections[mirrored] = sections[mirrored] with { ToReference = Transform2D.MirrorX(c).Then(sections[mirrored].ToReference), ChainConfidence = 0.3 };
+        // One the chain could not place at all (its chain map means nothing), and one that is only noise.
+        sections[orphan] = sections[orphan] with { ToReference = Transform2D.Identity, ChainConfidence = 0, ChainFailed = true };
+        var random = new Random(9);
+        var noiseImage = new GrayImage(Canvas, Canvas);
+        for (int p = 0; p < noiseImage.Pixels.Length; p++) noiseImage.Pixels[p] = (float)random.NextDouble();
+        sections[noise] = sections[noise] with { Image = noiseImage, ToReference = Transform2D.Identity, ChainConfidence = 0, ChainFailed = true };
         var wrong = sim with { Input = sim.Input with { Sections = sections } };
-        var (_, guided, result) = RunAndReport("MRI ch2, two sections placed wrong by the chain", wrong, Enumerable.Range(0, planes.Count).ToArray());
-        foreach (int s in new[] { turned, mirrored })
+        var (_, guided, result) = RunAndReport("MRI ch2, sections placed wrong or not at all by the chain", wrong,
+            Enumerable.Range(0, planes.Count).Where(s => s != noise).ToArray());
+        foreach (int s in new[] { turned, mirrored, orphan })
         {
             var p = result.Sections[s];
             output.WriteLine($"  section {s}: placed by template {p.PlacedByTemplate}; {p.Reason}; error after the global fit {guided.Errors[s]:0.###} px");
@@ -224,7 +232,11 @@ public class TemplateGuideTests(ITestOutputHelper output)
             Assert.True(guided.Errors[s] < 1.5, $"section {s} is {guided.Errors[s]} px off");
         }
         Assert.Contains("mirrored against the chain", result.Sections[mirrored].Reason);
-        Assert.Equal(2, result.Sections.Count(s => s.PlacedByTemplate));
+        Assert.Contains("alone", result.Sections[orphan].Reason);
+        output.WriteLine($"  section {noise}: {result.Sections[noise].Reason}");
+        Assert.False(result.Sections[noise].PlacedByTemplate);
+        Assert.Contains("no confident match with a neighbour, and its template match is", result.Sections[noise].Reason);
+        Assert.Equal(3, result.Sections.Count(s => s.PlacedByTemplate));
         Assert.True(guided.MedianErrorPx <= 1, $"median error {guided.MedianErrorPx} px");
     }
 

@@ -78,7 +78,7 @@ public static class Uncertainty
     /// </summary>
     public static double? TemplateError(SectionRecord section, IReadOnlyList<SectionRecord> all)
     {
-        var misfits = all.Where(o => o.Template is { Matched: true, Outlier: null, MisfitUm: not null }
+        var misfits = all.Where(o => o.Template is { Matched: true, Outlier: null, MisfitUm: not null, PlacedByTemplate: false }
                                      && Math.Abs(o.ZIndex - section.ZIndex) <= TemplateHalfWindow)
             .Select(o => o.Template!.MisfitUm!.Value).ToList();
         if (misfits.Count == 0) return null;

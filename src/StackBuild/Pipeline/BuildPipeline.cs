@@ -335,8 +335,8 @@ public static class BuildPipeline
                 RotationDegrees = imageToPlane.RotationDegrees,
                 ShiftPx = [imageToPlane.M02, imageToPlane.M12],
                 Matrix = imageToPlane.ToRows(),
-                ChainRotationDegrees = chainBefore is null ? null : ChainMap(chainBefore[n]).RotationDegrees,
-                ChainShiftPx = chainBefore is null ? null : [ChainMap(chainBefore[n]).M02, ChainMap(chainBefore[n]).M12],
+                ChainRotationDegrees = chainBefore is null || chainBefore[n].Route == LinkRoute.Failed ? null : ChainMap(chainBefore[n]).RotationDegrees,
+                ChainShiftPx = chainBefore is null || chainBefore[n].Route == LinkRoute.Failed ? null : [ChainMap(chainBefore[n]).M02, ChainMap(chainBefore[n]).M12],
             });
             Transform2D ChainMap(ChainPlacement p) => working[n].FullToWork.Then(p.ToReference).Then(workToOut).Then(toGrid);
             progress?.Report($"rendering: section {s.Number} ({++rendered}/{working.Count})");
@@ -482,9 +482,13 @@ public static class BuildPipeline
         });
         progress?.Report("template: matching sections to their slices");
         var guide = TemplateGuide.Place(new TemplateGuideInput(working.Select((w, n) => new TemplateGuideSection(
-            z[n], chain[n].Route == LinkRoute.Failed ? null : w.Image, chain[n].ToReference, slices[n], chain[n].Pair?.Confidence ?? 1)).ToList()));
+            z[n], w.Image, chain[n].ToReference, slices[n], chain[n].Pair?.Confidence ?? 1, ChainFailed: chain[n].Route == LinkRoute.Failed)).ToList()));
         var planeToWork = Transform2D.Scale(template.PixelWidthMm * 1000 / workUm, template.PixelHeightMm * 1000 / workUm);
-        var fused = chain.Select((c, n) => c.Route == LinkRoute.Failed ? c
+        // A section the chain could not place takes its own template match when the guide accepted it (route 'template').
+        var fused = chain.Select((c, n) => c.Route == LinkRoute.Failed
+            ? guide.Sections[n].PlacedByTemplate
+                ? new ChainPlacement(guide.Sections[n].SectionToSlice.Then(sliceToPlane).Then(planeToWork), LinkRoute.Template, -1, null, null, 0)
+                : c
             : c with { ToReference = guide.Sections[n].SectionToSlice.Then(sliceToPlane).Then(planeToWork) }).ToList();
         var before = chain.Select((c, n) => c.Route == LinkRoute.Failed ? c
             : c with { ToReference = guide.Sections[n].ChainToSlice.Then(sliceToPlane).Then(planeToWork) }).ToList();

@@ -16,6 +16,8 @@ public enum LinkRoute
     Distant,
     /// <summary>No confident match to any placed section: not placed.</summary>
     Failed,
+    /// <summary>No confident match to any placed section, but placed by its own template match alone (template builds only).</summary>
+    Template,
 }
 
 /// <summary>One section's place in the reference frame, and why.</summary>

@@ -10,7 +10,10 @@ namespace StackBuild.Template;
 /// <param name="Slice">The template slice at <paramref name="Z"/>, at the working pixel size; null when the template does not reach it.
 /// All slices must share one pixel frame (cut from one template at one pixel size).</param>
 /// <param name="ChainConfidence">Confidence of the chain link from this section to the previous one (1 for the first).</param>
-public sealed record TemplateGuideSection(double Z, GrayImage? Image, Transform2D ToReference, GrayImage? Slice, double ChainConfidence = 1);
+/// <param name="ChainFailed">The chain could not place the section (<paramref name="ToReference"/> means nothing); it is
+/// searched on its slice from scratch and placed by that match alone when the match is as good as its neighbours'.</param>
+public sealed record TemplateGuideSection(double Z, GrayImage? Image, Transform2D ToReference, GrayImage? Slice, double ChainConfidence = 1,
+    bool ChainFailed = false);
 
 public sealed record TemplateGuideOptions
 {
@@ -42,10 +45,19 @@ public sealed record TemplateGuideOptions
     public double RescueChainConfidence { get; init; } = 0.5;
     /// <summary>
     /// Such a section is placed by that match alone when its similarity is at least this share of the median similarity
-    /// of the accepted matches within the smoothing window…
+    /// of the accepted matches within the smoothing window (a section stained differently matches less well: one with a
+    /// non-monotone change of contrast, in the MRI series of the tests, reached 0.67 of its neighbours' and was placed
+    /// 0.06 px from the truth)…
     /// </summary>
-    public double RescueSimilarityShare { get; init; } = 0.8;
-    /// <summary>…and at least this many times the similarity of its match near the chain placement.</summary>
+    public double RescueSimilarityShare { get; init; } = 0.5;
+    /// <summary>
+    /// …and, for a section the chain could not place, at least this many times the similarity of the best distinct
+    /// candidate of its search (another angle or the other mirror; that section: 1.56; the demo's torn section 4, whose
+    /// mirror the match cannot tell: 1.02)…
+    /// </summary>
+    public double RescueDistinctMargin { get; init; } = 1.1;
+    /// <summary>…or, for a section the chain did place, this many times the similarity of its match near the chain placement
+    /// (MRI simulation: 1.8–1.9 for a turned or mirrored section; demo section 4: 1.06).</summary>
     public double RescueMargin { get; init; } = 1.1;
     /// <summary>A chain link below this confidence separates the stack into parts whose corrections are smoothed apart.</summary>
     public double ChainBreakConfidence { get; init; } = 0.1;
@@ -98,7 +110,8 @@ public static class TemplateGuide
         int n = sections.Count;
         if (n == 0) return new TemplateGuideResult([], Transform2D.Identity, false, 0, 0, 0);
         var centres = sections.Select(s => s.Image is { } im ? ((im.Width - 1) / 2.0, (im.Height - 1) / 2.0) : CentreOf(sections, s)).ToArray();
-        var usable = Enumerable.Range(0, n).Where(i => sections[i].Image != null && sections[i].Slice != null).ToList();
+        var usable = Enumerable.Range(0, n).Where(i => sections[i].Image != null && sections[i].Slice != null && !sections[i].ChainFailed).ToList();
+        var orphans = Enumerable.Range(0, n).Where(i => sections[i].Image != null && sections[i].Slice != null && sections[i].ChainFailed).ToList();
 
         // (a) The global map: sampled sections searched without a start; the candidate most others agree with, refitted on its agreeing set.
         var (referenceToSlice, agreement) = GlobalMap(sections, usable, centres, options);
@@ -154,13 +167,30 @@ public static class TemplateGuide
         // from scratch; a match as good as its neighbours' and clearly better than the one near the chain placement
         // places it alone (a wrong mirror or turn from a torn section's weak pair registration is undone this way).
         var rescue = new TemplateMatch?[n];
-        var retry = usable.Where(i => !candidate[i] || sections[i].ChainConfidence < options.RescueChainConfidence).ToList();
+        var retry = usable.Where(i => !candidate[i] || sections[i].ChainConfidence < options.RescueChainConfidence).Concat(orphans).ToList();
         Parallel.ForEach(retry, i => rescue[i] = TemplateRegistration.Register(sections[i].Image!, sections[i].Slice!, null, options.Registration));
         foreach (int i in retry)
         {
             var near = usable.Where(j => j != i && candidate[j] && Math.Abs(j - i) <= half).Select(j => measured[j]!.Similarity).ToList();
             if (near.Count < 3) { rescue[i] = null; continue; }
-            double local = Median(near), own = measured[i]!.Similarity, found = rescue[i]!.Similarity;
+            double local = Median(near), found = rescue[i]!.Similarity;
+            bool distinct = rescue[i]!.RunnerUpSimilarity is double runner && found >= options.RescueDistinctMargin * runner;
+            if (sections[i].ChainFailed)
+            {
+                if (found >= options.RescueSimilarityShare * local && distinct)
+                    reason[i] = $"no confident match with a neighbour; placed by its own template match alone (similarity {found:0.###}, neighbours' median {local:0.###})";
+                else
+                {
+                    reason[i] = found < options.RescueSimilarityShare * local
+                        ? $"no confident match with a neighbour, and its template match is too weak to place it (similarity {found:0.###}, needs {options.RescueSimilarityShare * local:0.###})"
+                        : $"no confident match with a neighbour, and its template match is ambiguous (similarity {found:0.###}, another placement {rescue[i]!.RunnerUpSimilarity:0.###})";
+                    rescue[i] = null;
+                }
+                continue;
+            }
+            double own = measured[i]!.Similarity;
+            // Here the alternative that matters is the chain's own placement, so the margin over it is the distinctness test
+            // (a nearly symmetric specimen always has the other mirror close behind in the search from scratch).
             if (found >= options.RescueSimilarityShare * local && found >= options.RescueMargin * own)
                 reason[i] = $"placed by its own template match (similarity {found:0.###}, neighbours' median {local:0.###}; near the chain placement {own:0.###}" +
                     (rescue[i]!.Mirrored != chain[i].IsMirrored ? ", mirrored against the chain" : "") + ")";
@@ -179,20 +209,23 @@ public static class TemplateGuide
             if (rescue[i] is { } own)
             {
                 var (ox, oy) = own.SectionToSlice.Apply(centres[i].Item1, centres[i].Item2);
+                bool noChain = sections[i].ChainFailed;
                 result[i] = new TemplateSectionPlacement(i, own.SectionToSlice, chain[i], own.SectionToSlice, own.Similarity, own.Confidence,
-                    double.Hypot(ox - qx, oy - qy), AngleDifference(own.SectionToSlice.RotationDegrees, chain[i].RotationDegrees),
+                    noChain ? null : double.Hypot(ox - qx, oy - qy), noChain ? null : AngleDifference(own.SectionToSlice.RotationDegrees, chain[i].RotationDegrees),
                     deviationPx[i], deviationDeg[i], false, reason[i], sa[i], sx[i], sy[i], PlacedByTemplate: true);
                 continue;
             }
             var m = measured[i];
             bool outlier = m != null && !candidate[i];
             double confidence = m == null ? 0 : outlier ? 0 : m.Confidence;
+            string? why = m != null ? reason[i] : sections[i].Image == null ? "gap" : sections[i].Slice == null ? "no template slice"
+                : reason[i] ?? "no confident match with a neighbour, and too few template matches nearby to place it";
             result[i] = new TemplateSectionPlacement(i, fused, chain[i], m?.SectionToSlice, m?.Similarity, confidence,
                 m == null ? null : double.Hypot(dx[i], dy[i]), m == null ? null : angle[i], deviationPx[i], deviationDeg[i],
-                outlier, m == null ? (sections[i].Image == null ? "gap" : "no template slice") : reason[i], sa[i], sx[i], sy[i]);
+                outlier, why, sa[i], sx[i], sy[i]);
         }
         return new TemplateGuideResult(result, referenceToSlice, referenceToSlice.IsMirrored, agreement,
-            usable.Count, result.Count(r => r.Outlier));
+            usable.Count + orphans.Count(i => rescue[i] is not null), result.Count(r => r.Outlier));
     }
 
     private static (double, double) CentreOf(IReadOnlyList<TemplateGuideSection> sections, TemplateGuideSection s)
