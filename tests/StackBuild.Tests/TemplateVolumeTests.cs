@@ -1,4 +1,5 @@
 using System.Text.Json;
+using StackBuild.Geometry;
 using StackBuild.Imaging;
 using StackBuild.IO;
 using StackBuild.Nifti;
@@ -18,6 +19,7 @@ public class TemplateVolumeTests(ITestOutputHelper output)
     [InlineData('k', 70.3, 0.7)]
     [InlineData('j', 100.6, 1.3)]
     [InlineData('i', 90.0, 0.5)]
+    [InlineData('k', 60.0, 3.0)]
     public void SliceMatchesScipyMapCoordinates(char axis, double k, double pixelMm)
     {
         var template = TemplateVolume.Load(RegisterMriTests.TemplatePath, axis);
@@ -48,6 +50,21 @@ public class TemplateVolumeTests(ITestOutputHelper output)
         {
             File.Delete(raw);
         }
+    }
+
+    [Fact]
+    public void FineDetailDoesNotAliasIntoACoarseSlice()
+    {
+        // Stripes one voxel wide (0, 1, 0, 1, … along i) sliced at 3 voxels per pixel: sampled without smoothing, every
+        // pixel lands on a stripe centre (1, 0, 1, …: sd 0.5); smoothed first, the slice shows their mean, 0.5.
+        var volume = new Volume(60, 40, 3, Affine.FromRows([1, 0, 0, 0], [0, 1, 0, 0], [0, 0, 1, 0]));
+        for (int k = 0; k < 3; k++) for (int j = 0; j < 40; j++) for (int i = 0; i < 60; i++) volume[i, j, k] = i % 2;
+        var slice = TemplateVolume.FromVolume(volume, 'k').Slice(1, 3.0, out _);
+        var inner = Enumerable.Range(2, slice.Width - 4).SelectMany(x => Enumerable.Range(2, slice.Height - 4).Select(y => (double)slice[x, y])).ToList();
+        double mean = inner.Average(), sd = Math.Sqrt(inner.Average(v => (v - mean) * (v - mean)));
+        output.WriteLine($"{slice.Width}×{slice.Height}: mean {mean:0.###}, sd {sd:0.###}");
+        Assert.InRange(mean, 0.45, 0.55);
+        Assert.True(sd < 0.05, $"sd {sd}: the stripes alias into the slice");
     }
 
     [Fact]

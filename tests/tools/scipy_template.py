@@ -5,8 +5,10 @@ scipy_template.py slice NIFTI AXIS K PIXEL_MM OUTPUT
     Reads NIFTI with nibabel, takes the planes across voxel axis AXIS (i, j or k; in-plane axes (i, j), (i, k) or
     (j, k) in that order), and samples the plane at fractional index K on square pixels of PIXEL_MM, keeping pixel
     edges: plane coordinate = (pixel + 0.5) * s - 0.5 with s = PIXEL_MM / voxel size along that axis (voxel sizes =
-    column norms of the affine); width = round(n / s). Values from scipy.ndimage.map_coordinates(order=1,
-    mode='nearest'); pixels outside the voxel cells ([-0.5, n - 0.5]) are 0. Writes raw float32 (x fastest) to
+    column norms of the affine); width = round(n / s). Where s > 1 the volume is first smoothed along that in-plane
+    axis with scipy.ndimage.gaussian_filter(sigma=(s - 1) / 2, mode='nearest') (the anti-aliasing of
+    skimage.transform.resize). Values from scipy.ndimage.map_coordinates(order=1, mode='nearest'); pixels outside
+    the voxel cells ([-0.5, n - 0.5]) are 0. Writes raw float32 (x fastest) to
     OUTPUT and prints {"width": W, "height": H} as JSON.
 
 scipy_template.py mi A.raw B.raw COUNT BINS LOW_A HIGH_A LOW_B HIGH_B
@@ -33,6 +35,11 @@ def slice_mode(path, axis, k, pixel, output):
     n = [data.shape[a] for a in order]
     s = [pixel / sizes[order[0]], pixel / sizes[order[1]]]
     w, h = int(round(n[0] / s[0])), int(round(n[1] / s[1]))
+    sigma = [0.0, 0.0, 0.0]
+    sigma[order[0]] = max(0.0, (s[0] - 1) / 2)
+    sigma[order[1]] = max(0.0, (s[1] - 1) / 2)
+    if any(v > 0 for v in sigma):
+        data = ndimage.gaussian_filter(data, sigma=sigma, mode="nearest")
     px = (np.arange(w) + 0.5) * s[0] - 0.5
     py = (np.arange(h) + 0.5) * s[1] - 0.5
     yy, xx = np.meshgrid(py, px, indexing="ij")

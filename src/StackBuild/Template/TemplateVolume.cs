@@ -134,7 +134,11 @@ public sealed class TemplateVolume
     /// The template plane at fractional index <paramref name="k"/> (linear between the two nearest planes, clamped to
     /// the first and last within half a plane), resampled bilinearly to square pixels of <paramref name="pixelSizeMm"/>
     /// covering the same field of view (pixel edges kept). Together this is trilinear interpolation of the volume.
-    /// No smoothing is applied when the new pixels are larger than the template's.
+    /// When the new pixels are larger than the template's (a finely photographed blockface sliced at the registration
+    /// pixel size), the plane is first smoothed along that axis by a Gaussian of σ = (s − 1)/2 template pixels for a
+    /// size ratio s, the anti-aliasing scikit-image's <c>transform.resize</c> applies (kernel and edge handling as
+    /// SciPy's <c>ndimage.gaussian_filter</c> with <c>mode='nearest'</c>), so that fine detail does not alias into
+    /// the slice the section is matched to.
     /// <paramref name="slicePixelToPlanePixel"/> maps the returned image's pixels to template plane pixels.
     /// </summary>
     public GrayImage Slice(double k, double pixelSizeMm, out Transform2D slicePixelToPlanePixel)
@@ -152,10 +156,48 @@ public sealed class TemplateVolume
             for (int i = 0; i < p.Length; i++) p[i] = p[i] * (1 - t) + q[i] * t;
         }
         double sx = pixelSizeMm / PixelWidthMm, sy = pixelSizeMm / PixelHeightMm; // plane pixels per slice pixel
+        if (sx > 1 || sy > 1) plane = GaussianBlur(plane, Math.Max(0, (sx - 1) / 2), Math.Max(0, (sy - 1) / 2));
         int width = Math.Max(1, (int)Math.Round(Width / sx)), height = Math.Max(1, (int)Math.Round(Height / sy));
         // Pixel edges kept: plane x = (slice x + 0.5)·sx − 0.5.
         slicePixelToPlanePixel = new Transform2D(sx, 0, 0.5 * sx - 0.5, 0, sy, 0.5 * sy - 0.5);
         return Resampler.Warp(plane, slicePixelToPlanePixel, width, height, 0f);
+    }
+
+    /// <summary>Separable Gaussian smoothing, edges repeated; σ in pixels per axis (0 leaves that axis alone).</summary>
+    internal static GrayImage GaussianBlur(GrayImage image, double sigmaX, double sigmaY)
+    {
+        var result = image.Clone();
+        if (sigmaX > 1e-15) Blur(result, Kernel(sigmaX), horizontal: true);
+        if (sigmaY > 1e-15) Blur(result, Kernel(sigmaY), horizontal: false);
+        return result;
+    }
+
+    /// <summary>Weights exp(−x²/2σ²) for |x| ≤ ⌊4σ + 0.5⌋, summing to 1 (SciPy's truncate = 4 default).</summary>
+    private static double[] Kernel(double sigma)
+    {
+        int radius = (int)(4 * sigma + 0.5);
+        var k = new double[2 * radius + 1];
+        for (int x = -radius; x <= radius; x++) k[x + radius] = Math.Exp(-0.5 * x * x / (sigma * sigma));
+        double sum = k.Sum();
+        for (int i = 0; i < k.Length; i++) k[i] /= sum;
+        return k;
+    }
+
+    private static void Blur(GrayImage image, double[] kernel, bool horizontal)
+    {
+        int radius = kernel.Length / 2, w = image.Width, h = image.Height;
+        int length = horizontal ? w : h, lines = horizontal ? h : w;
+        var line = new float[length];
+        for (int l = 0; l < lines; l++)
+        {
+            for (int i = 0; i < length; i++) line[i] = horizontal ? image[i, l] : image[l, i];
+            for (int i = 0; i < length; i++)
+            {
+                double s = 0;
+                for (int t = -radius; t <= radius; t++) s += kernel[t + radius] * line[Math.Clamp(i + t, 0, length - 1)];
+                if (horizontal) image[i, l] = (float)s; else image[l, i] = (float)s;
+            }
+        }
     }
 
     private long[] Strides()
