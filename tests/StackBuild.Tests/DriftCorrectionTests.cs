@@ -51,7 +51,7 @@ public sealed class DriftCorrectionTests(DriftBuilds builds, ITestOutputHelper o
     public void TheSolveDoesNotBendTheStackAwayFromTheChain()
     {
         // The drift target (≤ 1/3 of the chain's) is met with a template, not without one: the chain's drift comes from
-        // slow link errors that every pair shares (TheChainsDriftComesFromSlowLinkErrors). What the reference-free solve
+        // slow link errors, not noise (TheChainsDriftIsSlowLinkErrorNotNoise). What the reference-free solve
         // must do is not amplify it: its second-neighbour pairs err more than twice a nearest pair here (at full weight the
         // drift rose to 2.83 px against the chain's 2.66 px, measured 2026-12-02), the route closures show it (slow share
         // above the limit), and they are weighted down. Bound: 5 % over the chain (this project's; measured 0.4 %).
@@ -68,17 +68,18 @@ public sealed class DriftCorrectionTests(DriftBuilds builds, ITestOutputHelper o
     }
 
     [Fact]
-    public void TheChainsDriftComesFromSlowLinkErrors()
+    public void TheChainsDriftIsSlowLinkErrorNotNoise()
     {
         // Why the reference-free drift target (≤ 1/3 of the chain's) is not met: the chain's link errors against the truth
-        // are slow, neighbouring links err alike. The same link errors re-chained in shuffled order (DriftSurrogate) drift much
-        // less than in their real order. Errors that follow the tissue's real change of shape are shared by every pairwise
-        // registration over that stretch, so a solve from pairs alone cannot see them.
+        // are not registration noise. On the demo they are slow, neighbouring links err alike: the same link errors
+        // re-chained in shuffled order (DriftSurrogate) drift much less than in their real order, and unbiased independent
+        // errors of the same spread less still. Averaging more pairs removes noise, not errors that follow the tissue.
         var split = DriftSurrogate.Measure(builds.Chain.Record, builds.Truth);
         output.WriteLine($"chain drift rms {split.Chain.DriftRmsPx:0.###} px; same link errors shuffled: mean {split.ShuffledDriftRmsPx:0.###} px, p95 {split.ShuffledDriftP95Px:0.###} px ({DriftSurrogate.Shuffles} orders)");
         output.WriteLine($"unbiased independent errors of the same spread: mean {split.NoiseDriftRmsPx:0.###} px, p95 {split.NoiseDriftP95Px:0.###} px");
         output.WriteLine($"lag-1 autocorrelation of the link shifts: {split.LinkLag1Autocorrelation:0.###}; mean link error {split.MeanLink[0]:0.###}°, ({split.MeanLink[1]:0.###}, {split.MeanLink[2]:0.###}) px");
         Assert.True(split.Chain.DriftRmsPx > split.NoiseDriftP95Px, "the chain drifts no more than unbiased independent link errors would");
+        Assert.True(split.Chain.DriftRmsPx > split.ShuffledDriftP95Px, "the order of the link errors does not matter: they are not slow");
     }
 
     [Fact]
@@ -99,6 +100,13 @@ public sealed class DriftCorrectionTests(DriftBuilds builds, ITestOutputHelper o
         Assert.True(guided.PairErrorPx.Median <= chain.PairErrorPx.Median + 0.2, $"pairwise median {guided.PairErrorPx.Median} vs {chain.PairErrorPx.Median}");
         // The curved tube's course is kept because every section is where the truth put it: no section off by more than 2 px.
         Assert.True(guided.ErrorPx.Max <= 2, $"largest placement error {guided.ErrorPx.Max} px");
+        // Pinned as measured (2026-12-02), a known limit: the torn section 4, mirrored wrong by the chain, is not placed by
+        // its template match (1.06 times the match near the chain, 1.1 needed; the phantom is nearly symmetric), so it
+        // stays mirror-wrong and flagged. If this changes, update docs/drift-and-frame.md.
+        var torn = builds.Guided.Record.Sections.Single(s => s.Number == 4);
+        Assert.False(torn.Template!.PlacedByTemplate);
+        Assert.NotNull(torn.Template.Outlier);
+        Assert.Equal(1, guided.MirrorWrong);
 
         // The error estimate follows the template: the median estimate is within a factor of 3 of the true median error
         // (it would be the chain's random walk, about ten times larger, without the template term).

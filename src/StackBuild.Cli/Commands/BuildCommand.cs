@@ -163,7 +163,7 @@ public static class BuildCommand
         if (r.Parameters.TryGetValue("second_neighbour_weight", out var longWeight) && r.Parameters.TryGetValue("route_closure_slow_share", out var share))
             o.WriteLine($"Solve    all pairs at once (--smoothing {r.Parameters["smoothing"]}). " + (longWeight == "1"
                 ? "Section-to-section jitter is evened out; slow drift is not removed without a reference (--template removes it)."
-                : "Drift is NOT reduced: the second-neighbour pairs share the chain's slow errors, so they were weighted down and the chain's course is kept. --template removes drift."));
+                : "Drift is NOT reduced: the second-neighbour pairs disagree with the nearest ones the same way over stretches of sections, so they were weighted down and the chain's course is kept. --template removes drift."));
         int filled = r.Sections.Count(s => s.Filled is not null);
         o.WriteLine($"Sections {string.Join(", ", counts.OrderBy(c => c.Key).Select(c => $"{c.Value} {c.Key}"))}" +
             (filled > 0 ? $"; {filled} empty plane(s) filled from their neighbours" : ""));

@@ -61,7 +61,9 @@ public static class Uncertainty
             }
             // With a template the chain no longer accumulates: the course is the template's, known as well as the
             // template matches around the section agree with the fused placements.
-            if (s.Template is not null && TemplateError(s, record.Sections) is double templateUm)
+            if (s.Template is { PlacedByTemplate: true } && TemplateError(s, record.Sections, single: true) is double ownUm)
+                variance = ownUm * ownUm; // placed by one template match alone: no chain link, no averaging over neighbours
+            else if (s.Template is not null && TemplateError(s, record.Sections) is double templateUm)
                 variance = link[s.Number] * link[s.Number] + templateUm * templateUm;
             result[s.Number] = new SectionUncertainty(s.Number, link[s.Number], Math.Sqrt(variance));
         }
@@ -75,14 +77,16 @@ public static class Uncertainty
     /// Standard error (µm) of a template-guided section's course: the RMS misfit between the template matches and
     /// the fused placements within ±<see cref="TemplateHalfWindow"/> sections, divided by √(number of those matches)
     /// (the local fit averages them). Null when no match nearby was used (then the chain's random walk stands).
+    /// With <paramref name="single"/> (a section placed by its own template match alone) the RMS misfit itself: the
+    /// error of one match, not of an average.
     /// </summary>
-    public static double? TemplateError(SectionRecord section, IReadOnlyList<SectionRecord> all)
+    public static double? TemplateError(SectionRecord section, IReadOnlyList<SectionRecord> all, bool single = false)
     {
         var misfits = all.Where(o => o.Template is { Matched: true, Outlier: null, MisfitUm: not null, PlacedByTemplate: false }
                                      && Math.Abs(o.ZIndex - section.ZIndex) <= TemplateHalfWindow)
             .Select(o => o.Template!.MisfitUm!.Value).ToList();
         if (misfits.Count == 0) return null;
-        return Math.Sqrt(misfits.Average(m => m * m) / misfits.Count);
+        return Math.Sqrt(misfits.Average(m => m * m) / (single ? 1 : misfits.Count));
     }
 
     /// <summary>The record with <see cref="SectionRecord.EstimatedErrorUm"/> filled in for every placed section.</summary>

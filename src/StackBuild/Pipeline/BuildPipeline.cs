@@ -295,7 +295,7 @@ public static class BuildPipeline
                 Route = place.Route.ToString().ToLowerInvariant() switch { "secondneighbour" => "second-neighbour", var r => r },
                 RouteDisagreementUm = place.RouteDisagreement is { } d ? d * workUm : null,
                 RunnerUp = pair?.RunnerUp is { } ru ? new HypothesisRecord(ru.Mirrored, ru.RotationDegrees, ru.Ncc) : null,
-                DriftCorrectionUm = smoothing is null ? null : smoothing.CorrectionPx[n] * workUm,
+                DriftCorrectionUm = smoothing is null || place.Route is LinkRoute.Failed or LinkRoute.Template ? null : smoothing.CorrectionPx[n] * workUm,
                 Template = onTemplate is null ? null : TemplateRecord(onTemplate, n, workUm, working[n].Image),
                 NccBefore = place.LinkedTo >= 0 && working[n].Prepared is { } a && working[place.LinkedTo].Prepared is { } b
                     ? CentredNcc(a.WorkImage, b.WorkImage) : null,
@@ -546,8 +546,8 @@ public static class BuildPipeline
             Outlier = p.Outlier ? p.Reason ?? "outlier" : null,
             Note = p.PlacedByTemplate || (!p.Outlier && p.Measured is null) ? p.Reason : null,
             PlacedByTemplate = p.PlacedByTemplate,
-            CorrectionUm = Math.Sqrt(p.CorrectionX * p.CorrectionX + p.CorrectionY * p.CorrectionY) * workUm,
-            CorrectionDegrees = p.CorrectionDegrees,
+            CorrectionUm = p.PlacedByTemplate ? p.ResidualPx * workUm : Math.Sqrt(p.CorrectionX * p.CorrectionX + p.CorrectionY * p.CorrectionY) * workUm,
+            CorrectionDegrees = p.PlacedByTemplate ? p.ResidualDegrees : p.CorrectionDegrees,
             MisfitUm = misfit,
         };
     }

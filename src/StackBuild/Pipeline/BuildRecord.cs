@@ -23,7 +23,7 @@ public sealed record SectionRecord
     [JsonPropertyName("peak_to_sidelobe")] public double? PeakToSidelobe { get; init; }
     /// <summary>The section it was registered to; <see cref="Route"/> says which neighbour that was.</summary>
     [JsonPropertyName("registered_to")] public int? RegisteredTo { get; init; }
-    /// <summary>reference, neighbour, second-neighbour, distant or failed.</summary>
+    /// <summary>reference, neighbour, second-neighbour, distant, failed, or template (no confident neighbour match; placed by its own template match).</summary>
     [JsonPropertyName("route")] public string? Route { get; init; }
     /// <summary>How far apart (µm, mean over the corners) the placements through the first and second neighbour are.</summary>
     [JsonPropertyName("route_disagreement_um")] public double? RouteDisagreementUm { get; init; }
@@ -181,9 +181,12 @@ public sealed record SectionTemplateRecord
     [JsonPropertyName("note")] public string? Note { get; init; }
     /// <summary>True when the section was placed by its own template match alone, not by the neighbour chain (the note says why).</summary>
     [JsonPropertyName("placed_by_template")] public bool PlacedByTemplate { get; init; }
-    /// <summary>How far (µm, at the section's centre) the smoothed template correction moved the chain's placement.</summary>
-    [JsonPropertyName("correction_um")] public double CorrectionUm { get; init; }
-    [JsonPropertyName("correction_deg")] public double CorrectionDegrees { get; init; }
+    /// <summary>
+    /// How far (µm, at the section's centre) the template moved the chain's placement: the smoothed correction, or for a
+    /// section placed by its own template match the whole move to it; null when the chain did not place the section.
+    /// </summary>
+    [JsonPropertyName("correction_um")] public double? CorrectionUm { get; init; }
+    [JsonPropertyName("correction_deg")] public double? CorrectionDegrees { get; init; }
     /// <summary>How far (µm, at the section's centre) its own template match lies from its final placement; null when unmatched.</summary>
     [JsonPropertyName("misfit_um")] public double? MisfitUm { get; init; }
 }

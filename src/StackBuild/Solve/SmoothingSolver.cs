@@ -9,7 +9,7 @@ public sealed record SmoothingOptions
     /// Strength λ of the smoothness term (dimensionless, relative to one full-confidence pair); 0 solves with the
     /// robust consistency of all pairs only; negative (the default) keeps the plain neighbour chain.
     /// Why off by default: on the demo and on a public MRI series (docs/drift-and-frame.md) the solve does not beat the
-    /// chain: the chain's drift is slow link error every pair shares, and the solve, once it has weighted the biased
+    /// chain: the chain's drift is slow or biased link error, not noise that more pairs average out, and the solve, once it has weighted the biased
     /// second-neighbour pairs down, keeps the chain's course (drift rms 2.67 vs 2.66 px and 3.59 vs 3.58 px, measured
     /// 2026-12-02). λ &gt; 0 penalises the curvature of the correction; a chain error from one bad pair is a step, which
     /// that term resists (synthetic wild-pair case: λ = 0.05 left a 15 px step at 3–9 px instead of &lt; 1 px).
@@ -265,7 +265,8 @@ public static class SmoothingSolver
     /// How much of the route closures is slow. For every triangle (a, a − 1, a − 2) whose pairs are not suspect, the
     /// closure is the difference, in the reference frame at the sample points, between where the route a → a − 1 → a − 2
     /// and the direct pair a → a − 2 put section a. Independent pair errors make closures that vary from triangle to
-    /// triangle (neighbouring closures share one nearest pair, lag-1 correlation about 1/3 at equal error sizes), so their
+    /// triangle (neighbouring closures share one nearest pair, lag-1 correlation σ₁²/(2σ₁² + σ₂²), 1/3 at equal error
+    /// sizes; simulated, about 0.145 results when σ₂ = 2σ₁ and 0.21 when σ₂ = 0.3σ₁), so their
     /// moving average over 9 triangles keeps about (1 + 2·(8/9)·(1/3))/9 ≈ 0.18 of their power. Tissue that changes
     /// shape between sections makes a pair two sections apart err more than twice a nearest pair, the same way over a
     /// stretch of sections: the closures then share a slow part and the share grows towards 1. Measured (2026-12-02):

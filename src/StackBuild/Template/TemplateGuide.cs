@@ -171,10 +171,13 @@ public static class TemplateGuide
         Parallel.ForEach(retry, i => rescue[i] = TemplateRegistration.Register(sections[i].Image!, sections[i].Slice!, null, options.Registration));
         foreach (int i in retry)
         {
-            var near = usable.Where(j => j != i && candidate[j] && Math.Abs(j - i) <= half).Select(j => measured[j]!.Similarity).ToList();
+            var near = usable.Where(j => j != i && candidate[j] && Math.Abs(j - i) <= half && (sections[i].ChainFailed || segment[j] == segment[i]))
+                .Select(j => measured[j]!.Similarity).ToList();
             if (near.Count < 3) { rescue[i] = null; continue; }
             double local = Median(near), found = rescue[i]!.Similarity;
-            bool distinct = rescue[i]!.RunnerUpSimilarity is double runner && found >= options.RescueDistinctMargin * runner;
+            // No runner-up: nothing else came close. (The runner-up is scored at half size, the match at full size; MI
+            // changes little between the two for the smooth contrasts met here, and the margin absorbs it.)
+            bool distinct = rescue[i]!.RunnerUpSimilarity is not double runner || found >= options.RescueDistinctMargin * runner;
             if (sections[i].ChainFailed)
             {
                 if (found >= options.RescueSimilarityShare * local && distinct)
