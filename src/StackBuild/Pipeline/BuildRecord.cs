@@ -161,6 +161,8 @@ public sealed record TemplateFrameRecord
     [JsonPropertyName("measured")] public int Measured { get; init; }
     /// <summary>Sections whose template match was set aside as an outlier.</summary>
     [JsonPropertyName("outliers")] public int Outliers { get; init; }
+    /// <summary>Sections where the template's corrections step (the chain link from the section before is likely wrong; the stack is corrected on either side separately).</summary>
+    [JsonPropertyName("chain_steps")] public List<int> ChainSteps { get; init; } = [];
 }
 
 /// <summary>One section against its template slice.</summary>
@@ -181,6 +183,8 @@ public sealed record SectionTemplateRecord
     [JsonPropertyName("note")] public string? Note { get; init; }
     /// <summary>True when the section was placed by its own template match alone, not by the neighbour chain (the note says why).</summary>
     [JsonPropertyName("placed_by_template")] public bool PlacedByTemplate { get; init; }
+    /// <summary>True when the template's corrections step at this section: the chain link from the section before is likely wrong.</summary>
+    [JsonPropertyName("chain_step")] public bool ChainStep { get; init; }
     /// <summary>
     /// How far (µm, at the section's centre) the template moved the chain's placement: the smoothed correction, or for a
     /// section placed by its own template match the whole move to it; null when the chain did not place the section.

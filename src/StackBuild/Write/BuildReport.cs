@@ -38,6 +38,7 @@ public static class SectionFlags
         if (s.Damaged) reasons.Add("marked damaged in the manifest" + (string.IsNullOrEmpty(s.Note) ? "" : $" ({s.Note})"));
         if (s.Template?.Outlier is { } why) reasons.Add($"its template match was set aside ({why})");
         if (s.Template is { PlacedByTemplate: true } t) reasons.Add(t.Note ?? "placed by its own template match");
+        if (s.Template is { ChainStep: true }) reasons.Add("the template sees a step in the chain here: the link to the section before is likely wrong (the stack was corrected on either side separately)");
         return reasons;
     }
 }
