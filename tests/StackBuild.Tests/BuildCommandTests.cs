@@ -97,8 +97,12 @@ public sealed class BuildCommandTests : IDisposable
         var output = Path.Combine(_dir, "solved.nii.gz");
         var (code, stdout, stderr) = Run("build", RepositoryPaths.DemoSeries, "-o", output, "--smoothing", "0", "--fill", "none");
         Assert.True(code == 0, stderr);
-        Assert.Contains("Solve    all pairs at once (--smoothing 0). Drift is NOT reduced", stdout);
+        Assert.Contains("Solve    all pairs at once (--smoothing 0). Drift is not reduced", stdout);
         Assert.Contains("--template removes drift", stdout);
+        Assert.Contains("Sections 54 aligned, 1 excluded, 5 gaps", stdout);
+        // The torn section 4 is mounted wrong side up by the chain (truth.json); the build cannot know that, but says
+        // its side is uncertain because the turned-over hypothesis scored close.
+        Assert.Contains("section 4: low registration confidence (0.23); which side is up is uncertain", stdout);
         var parameters = JsonDocument.Parse(File.ReadAllText(Path.Combine(_dir, "solved.json"))).RootElement.GetProperty("parameters");
         Assert.Equal("0.01", parameters.GetProperty("second_neighbour_weight").GetString());
         Assert.Matches(@"^0\.\d+, limit 0\.\d+$", parameters.GetProperty("route_closure_slow_share").GetString());

@@ -27,7 +27,7 @@ public static class BuildCommand
         var voxelSize = new Option<double?>("--voxel-size") { Description = "Voxel size of the volume in µm: the plane spacing (planes between sections interpolated like the gaps) and, unless --output-pixel-size is given, the in-plane size" };
         var channel = new Option<string>("--channel") { Description = "How colour images become gray: luminance, red, green or blue", DefaultValueFactory = _ => "luminance" };
         var interpolation = new Option<string>("--interpolation") { Description = "Resampling: bilinear or bicubic", DefaultValueFactory = _ => "bilinear" };
-        var smoothing = new Option<double>("--smoothing") { Description = "Solve all placements at once from every first- and second-neighbour pair, with outliers set aside: the smoothness strength (0 = pairs only; negative, the default, = plain neighbour chain). It evens out section-to-section jitter but does not remove slow drift; --template does", DefaultValueFactory = _ => new SmoothingOptions().Strength };
+        var smoothing = new Option<double>("--smoothing") { Description = "Solve all placements at once from every first- and second-neighbour pair, with outliers set aside: the smoothness strength (0 = pairs only; negative, the default, = plain neighbour chain). It does not remove slow drift (--template does); where pairs two sections apart disagree systematically it stays close to the plain chain", DefaultValueFactory = _ => new SmoothingOptions().Strength };
         var fill = new Option<string>("--fill") { Description = "Fill gap, excluded and failed planes of an aligned build from their neighbours: flow (optical-flow interpolation), linear or none", DefaultValueFactory = _ => "flow" };
         var reference = new Option<int?>("--reference") { Description = "Section number whose frame, as it lay on its slide, the volume takes (default: the first section matched confidently)" };
         var rotate = new Option<double>("--rotate") { Description = "Turn the whole volume in the section plane by this many degrees, clockwise as displayed", DefaultValueFactory = _ => 0 };
@@ -163,10 +163,10 @@ public static class BuildCommand
         if (r.Parameters.TryGetValue("second_neighbour_weight", out var longWeight) && r.Parameters.TryGetValue("route_closure_slow_share", out var share))
             o.WriteLine($"Solve    all pairs at once (--smoothing {r.Parameters["smoothing"]}). " + (longWeight == "1"
                 ? "Section-to-section jitter is evened out; slow drift is not removed without a reference (--template removes it)."
-                : "Drift is NOT reduced: the second-neighbour pairs disagree with the nearest ones the same way over stretches of sections, so they were weighted down and the chain's course is kept. --template removes drift."));
+                : "Drift is not reduced, and on this series the result is close to the default build: pairs two sections apart disagree with the nearest ones the same way over stretches of the stack, so they were given little weight. --template removes drift."));
         int filled = r.Sections.Count(s => s.Filled is not null);
-        o.WriteLine($"Sections {string.Join(", ", counts.OrderBy(c => c.Key).Select(c => $"{c.Value} {c.Key}"))}" +
-            (filled > 0 ? $"; {filled} empty plane(s) filled from their neighbours" : ""));
+        o.WriteLine($"Sections {string.Join(", ", counts.OrderBy(c => c.Key).Select(c => $"{c.Value} {(c.Key == "gap" && c.Value != 1 ? "gaps" : c.Key)}"))}" +
+            (filled > 0 ? $"; {filled} empty {(filled == 1 ? "plane" : "planes")} filled from their neighbours" : ""));
         // The same sections the report flags (failed ones are in the warnings below).
         double limit = SectionFlags.DisagreementLimitUm(r);
         var flagged = r.Sections.Where(s => s.Status != "failed").Select(s => (s.Number, Reasons: SectionFlags.Reasons(s, limit))).Where(t => t.Reasons.Count > 0).ToList();

@@ -8,6 +8,9 @@ namespace StackBuild.Imaging;
 /// </summary>
 public sealed class Volume
 {
+    /// <summary>Most planes an output volume may have (far beyond any real series).</summary>
+    public const int MaxPlanes = 100_000;
+
     public int Nx { get; }
     public int Ny { get; }
     public int Nz { get; }

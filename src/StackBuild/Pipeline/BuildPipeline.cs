@@ -69,8 +69,8 @@ public static class BuildPipeline
     /// <summary>A present section with its registration image.</summary>
     private sealed record Working(SectionEntry Entry, Transform2D FullToWork, GrayImage Image, PreparedSection? Prepared);
 
-    /// <summary>Most planes an output volume may have (far beyond any real series).</summary>
-    public const int MaxPlanes = 100_000;
+    /// <summary>Most planes an output volume may have (<see cref="Volume.MaxPlanes"/>).</summary>
+    public const int MaxPlanes = Volume.MaxPlanes;
 
     /// <summary>Smallest registration image side, in pixels, that registration can work with.</summary>
     public const int MinRegistrationSide = 16;
@@ -294,7 +294,7 @@ public static class BuildPipeline
                 RegisteredTo = place.LinkedTo >= 0 ? working[place.LinkedTo].Entry.Number : null,
                 Route = place.Route.ToString().ToLowerInvariant() switch { "secondneighbour" => "second-neighbour", var r => r },
                 RouteDisagreementUm = place.RouteDisagreement is { } d ? d * workUm : null,
-                RunnerUp = pair?.RunnerUp is { } ru ? new HypothesisRecord(ru.Mirrored, ru.RotationDegrees, ru.Ncc) : null,
+                RunnerUp = pair?.RunnerUp is { } ru ? new HypothesisRecord(ru.Mirrored, ru.RotationDegrees, ru.Ncc, ru.Mirrored != pair.Best.Mirrored) : null,
                 DriftCorrectionUm = smoothing is null || place.Route is LinkRoute.Failed or LinkRoute.Template ? null : smoothing.CorrectionPx[n] * workUm,
                 Template = onTemplate is null ? null : TemplateRecord(onTemplate, n, workUm, working[n].Image),
                 NccBefore = place.LinkedTo >= 0 && working[n].Prepared is { } a && working[place.LinkedTo].Prepared is { } b

@@ -128,7 +128,7 @@ public sealed record FrameRecord
         static double R(double v) => Math.Round(v, 2) + 0.0;
         var parts = new List<string>();
         if (Template is { } t)
-            parts.Add(string.Format(c, "the template's frame ({0}, cut along {1}, first section at template plane {2:0.##}{3}; {4} sections matched to it, {5} set aside)",
+            parts.Add(string.Format(c, "the template's frame ({0}, cut along {1}, first section at template plane {2:0.##}{3}; {4} sections matched to it, {5} of them set aside)",
                 System.IO.Path.GetFileName(t.File), t.CutAxis, R(t.FirstPlane), t.Reverse ? ", reversed" : "", t.Measured, t.Outliers));
         else
             parts.Add($"section {ReferenceSection} as scanned{(FaceFlipped ? ", turned face up" : "")}");
@@ -208,7 +208,10 @@ public sealed record UprightRecord
 }
 
 /// <summary>A registration hypothesis kept for the record.</summary>
+/// <param name="FlipsSide">True when this hypothesis has the other handedness than the one chosen (the section would be
+/// face down instead of face up, or the reverse).</param>
 public sealed record HypothesisRecord(
     [property: JsonPropertyName("mirrored")] bool Mirrored,
     [property: JsonPropertyName("rotation_deg")] double RotationDegrees,
-    [property: JsonPropertyName("ncc")] double Ncc);
+    [property: JsonPropertyName("ncc")] double Ncc,
+    [property: JsonPropertyName("flips_side")] bool FlipsSide = false);

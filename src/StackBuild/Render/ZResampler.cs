@@ -1,7 +1,6 @@
 using StackBuild.Geometry;
 using StackBuild.Imaging;
 using StackBuild.IO;
-using StackBuild.Pipeline;
 
 namespace StackBuild.Render;
 
@@ -19,7 +18,7 @@ public static class ZResampler
     /// Geometry: the affine's k column is scaled by spacingMm / original spacing and its translation is kept, so plane
     /// 0 stays at the same world position and the i and j axes are unchanged. Resampling to the original spacing
     /// returns the same voxels. Refuses (<see cref="InputProblemException"/>, file "--voxel-size") a spacing that is
-    /// not a finite positive number or that would give more than <see cref="BuildPipeline.MaxPlanes"/> planes.
+    /// not a finite positive number or that would give more than <see cref="Volume.MaxPlanes"/> planes.
     /// </summary>
     public static Volume ResampleZ(Volume volume, double spacingMm, GapFill method)
     {
@@ -32,10 +31,10 @@ public static class ZResampler
             throw new InputProblemException(option, "the volume's plane spacing (the affine's k column) is zero or not a number",
                 "build the volume again without --voxel-size and check its sidecar");
         double last = (volume.Nz - 1) * original / spacingMm;
-        if (!(last + 1 <= BuildPipeline.MaxPlanes))
+        if (!(last + 1 <= Volume.MaxPlanes))
             throw new InputProblemException(option,
-                $"{spacingMm * 1000:0.###} µm between planes would give {Math.Floor(last + 1e-9) + 1:0} planes, more than {BuildPipeline.MaxPlanes}",
-                $"give a voxel size of at least {(volume.Nz - 1) * original * 1000 / (BuildPipeline.MaxPlanes - 1):0.###} µm");
+                $"{spacingMm * 1000:0.###} µm between planes would give {Math.Floor(last + 1e-9) + 1:0} planes, more than {Volume.MaxPlanes}",
+                $"give a voxel size of at least {(volume.Nz - 1) * original * 1000 / (Volume.MaxPlanes - 1):0.###} µm");
         int count = (int)Math.Floor(last + 1e-9) + 1;
         long plane = (long)volume.Nx * volume.Ny;
         if (plane * count > Array.MaxLength)

@@ -32,7 +32,12 @@ public static class SectionFlags
         var reasons = new List<string>();
         if (s.Status == "failed") reasons.Add("no confident match with a neighbour: left out of the volume");
         if (s.Confidence is double c && c < LowConfidence)
+        {
             reasons.Add(string.Create(CultureInfo.InvariantCulture, $"low registration confidence ({c:0.00})"));
+            if (s.RunnerUp is { FlipsSide: true } ru && s.Ncc is double ncc)
+                reasons.Add(string.Create(CultureInfo.InvariantCulture,
+                    $"which side is up is uncertain: the section turned over matched nearly as well (NCC {ru.Ncc:0.00} against {ncc:0.00}); check it against its neighbours"));
+        }
         if (s.RouteDisagreementUm is double d && d > disagreementLimitUm)
             reasons.Add(string.Create(CultureInfo.InvariantCulture, $"placements through the first and second neighbour differ by {d:0} µm"));
         if (s.Damaged) reasons.Add("marked damaged in the manifest" + (string.IsNullOrEmpty(s.Note) ? "" : $" ({s.Note})"));
