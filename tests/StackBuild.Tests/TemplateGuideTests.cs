@@ -230,6 +230,24 @@ public class TemplateGuideTests(ITestOutputHelper output)
     }
 
     [Fact]
+    public void AStretchTheChainCouldNotPlaceIsPlacedByTheTemplateAlone()
+    {
+        // Sections 10–21 all failed the chain (as when a run of sections is stained differently): with no chain-placed
+        // neighbour nearby, each is judged against the other unplaced sections' matches from scratch.
+        var (sim, planes) = MriSimulation();
+        var sections = sim.Input.Sections.ToList();
+        var stretch = Enumerable.Range(10, 12).ToList();
+        foreach (int s in stretch) sections[s] = sections[s] with { ToReference = Transform2D.Identity, ChainConfidence = 0, ChainFailed = true };
+        var broken = sim with { Input = sim.Input with { Sections = sections } };
+        var (_, guided, result) = RunAndReport("MRI ch2, 12 sections in a row not placed by the chain", broken, Enumerable.Range(0, planes.Count).ToArray());
+        var placed = stretch.Where(s => result.Sections[s].PlacedByTemplate).ToList();
+        output.WriteLine($"  placed by the template: {placed.Count} of {stretch.Count}; largest error among them {placed.Max(s => guided.Errors[s]):0.###} px");
+        foreach (int s in stretch.Except(placed)) output.WriteLine($"  section {s}: {result.Sections[s].Reason}");
+        Assert.True(placed.Count >= 10, $"only {placed.Count} of {stretch.Count} placed");
+        Assert.All(placed, s => Assert.True(guided.Errors[s] < 1, $"section {s} is {guided.Errors[s]} px off"));
+    }
+
+    [Fact]
     public void SectionsTheChainPutWrongOrCouldNotPlaceArePlacedByTheirOwnTemplateMatch()
     {
         // Two sections whose weak chain links put them wrong: one turned by 180°, one mirrored (what a torn section's

@@ -178,10 +178,15 @@ public static class TemplateGuide
         var rescue = new TemplateMatch?[n];
         var retry = usable.Where(i => !candidate[i] || sections[i].ChainConfidence < options.RescueChainConfidence).Concat(orphans).ToList();
         Parallel.ForEach(retry, i => rescue[i] = TemplateRegistration.Register(sections[i].Image!, sections[i].Slice!, null, options.Registration));
+        // An unplaced section is judged against its neighbours' matches whichever way they were found: where the chain
+        // failed over a whole stretch, the other unplaced sections' matches from scratch are its neighbours' matches.
+        var scratch = orphans.ToDictionary(i => i, i => rescue[i]!.Similarity);
         foreach (int i in retry)
         {
             var near = usable.Where(j => j != i && candidate[j] && Math.Abs(j - i) <= half && (sections[i].ChainFailed || segment[j] == segment[i]))
                 .Select(j => measured[j]!.Similarity).ToList();
+            if (sections[i].ChainFailed)
+                near.AddRange(scratch.Where(o => o.Key != i && Math.Abs(o.Key - i) <= half).Select(o => o.Value));
             if (near.Count < 3) { rescue[i] = null; continue; }
             double local = Median(near), found = rescue[i]!.Similarity;
             // No runner-up: nothing else came close. (The runner-up is scored at half size, the match at full size; MI
