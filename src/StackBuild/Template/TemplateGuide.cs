@@ -63,7 +63,7 @@ public sealed record TemplateGuideOptions
     /// <remarks>So does a step in the template corrections larger than <see cref="StepPx"/> or <see cref="StepDegrees"/>
     /// (a wrong chain link that every later section inherits).</remarks>
     public double ChainBreakConfidence { get; init; } = 0.1;
-    /// <summary>A step in the corrections (median of the sections on either side) beyond this is a break in the chain (pixels at working size)…</summary>
+    /// <summary>A step in the corrections (lines through the sections on either side, carried to the link) beyond this is a break in the chain (pixels at working size)…</summary>
     public double StepPx { get; init; } = 4;
     /// <summary>…or beyond this (degrees).</summary>
     public double StepDegrees { get; init; } = 4;
