@@ -548,8 +548,10 @@ public static class BuildPipeline
             Note = p.PlacedByTemplate || (!p.Outlier && p.Measured is null) ? p.Reason : null,
             PlacedByTemplate = p.PlacedByTemplate,
             ChainStep = t.Guide.ChainSteps?.Contains(n) == true,
-            CorrectionUm = p.PlacedByTemplate ? p.ResidualPx * workUm : Math.Sqrt(p.CorrectionX * p.CorrectionX + p.CorrectionY * p.CorrectionY) * workUm,
-            CorrectionDegrees = p.PlacedByTemplate ? p.ResidualDegrees : p.CorrectionDegrees,
+            // Nothing was corrected for a section left out; one placed by its own match was moved all the way to it.
+            CorrectionUm = t.Chain[n].Route == LinkRoute.Failed ? null
+                : p.PlacedByTemplate ? p.ResidualPx * workUm : Math.Sqrt(p.CorrectionX * p.CorrectionX + p.CorrectionY * p.CorrectionY) * workUm,
+            CorrectionDegrees = t.Chain[n].Route == LinkRoute.Failed ? null : p.PlacedByTemplate ? p.ResidualDegrees : p.CorrectionDegrees,
             MisfitUm = misfit,
         };
     }
