@@ -371,32 +371,11 @@ public static class GapFiller
         return result;
     }
 
-    /// <summary>Separable Gaussian blur (kernel cut at 3σ, edges clamped).</summary>
+    /// <summary>Separable Gaussian blur (kernel cut at 3σ, at least one pixel; edges clamped).</summary>
     private static GrayImage Gaussian(GrayImage image, double sigma)
     {
-        int r = Math.Max(1, (int)Math.Ceiling(3 * sigma));
-        var kernel = new float[2 * r + 1];
-        double sum = 0;
-        for (int i = -r; i <= r; i++) sum += kernel[i + r] = (float)Math.Exp(-i * i / (2 * sigma * sigma));
-        for (int i = 0; i < kernel.Length; i++) kernel[i] = (float)(kernel[i] / sum);
-        int w = image.Width, h = image.Height;
-        var tmp = new float[w * h];
-        var result = new GrayImage(w, h);
-        for (int y = 0; y < h; y++)
-        for (int x = 0; x < w; x++)
-        {
-            float s = 0;
-            for (int k = -r; k <= r; k++) s += kernel[k + r] * image.Pixels[y * w + Math.Clamp(x + k, 0, w - 1)];
-            tmp[y * w + x] = s;
-        }
-        for (int y = 0; y < h; y++)
-        for (int x = 0; x < w; x++)
-        {
-            float s = 0;
-            for (int k = -r; k <= r; k++) s += kernel[k + r] * tmp[Math.Clamp(y + k, 0, h - 1) * w + x];
-            result.Pixels[y * w + x] = s;
-        }
-        return result;
+        var kernel = GaussianFilter.Kernel(sigma, Math.Max(1, (int)Math.Ceiling(3 * sigma)));
+        return GaussianFilter.Blur(image, kernel, kernel);
     }
 
     /// <summary>

@@ -156,49 +156,16 @@ public sealed class TemplateVolume
             for (int i = 0; i < p.Length; i++) p[i] = p[i] * (1 - t) + q[i] * t;
         }
         double sx = pixelSizeMm / PixelWidthMm, sy = pixelSizeMm / PixelHeightMm; // plane pixels per slice pixel
-        if (sx > 1 || sy > 1) plane = GaussianBlur(plane, Math.Max(0, (sx - 1) / 2), Math.Max(0, (sy - 1) / 2));
+        if (sx > 1 || sy > 1) plane = GaussianFilter.Blur(plane, AntiAliasing(sx), AntiAliasing(sy));
         int width = Math.Max(1, (int)Math.Round(Width / sx)), height = Math.Max(1, (int)Math.Round(Height / sy));
         // Pixel edges kept: plane x = (slice x + 0.5)·sx − 0.5.
         slicePixelToPlanePixel = new Transform2D(sx, 0, 0.5 * sx - 0.5, 0, sy, 0.5 * sy - 0.5);
         return Resampler.Warp(plane, slicePixelToPlanePixel, width, height, 0f);
     }
 
-    /// <summary>Separable Gaussian smoothing, edges repeated; σ in pixels per axis (0 leaves that axis alone).</summary>
-    internal static GrayImage GaussianBlur(GrayImage image, double sigmaX, double sigmaY)
-    {
-        var result = image.Clone();
-        if (sigmaX > 1e-15) Blur(result, Kernel(sigmaX), horizontal: true);
-        if (sigmaY > 1e-15) Blur(result, Kernel(sigmaY), horizontal: false);
-        return result;
-    }
-
-    /// <summary>Weights exp(−x²/2σ²) for |x| ≤ ⌊4σ + 0.5⌋, summing to 1 (SciPy's truncate = 4 default).</summary>
-    private static double[] Kernel(double sigma)
-    {
-        int radius = (int)(4 * sigma + 0.5);
-        var k = new double[2 * radius + 1];
-        for (int x = -radius; x <= radius; x++) k[x + radius] = Math.Exp(-0.5 * x * x / (sigma * sigma));
-        double sum = k.Sum();
-        for (int i = 0; i < k.Length; i++) k[i] /= sum;
-        return k;
-    }
-
-    private static void Blur(GrayImage image, double[] kernel, bool horizontal)
-    {
-        int radius = kernel.Length / 2, w = image.Width, h = image.Height;
-        int length = horizontal ? w : h, lines = horizontal ? h : w;
-        var line = new float[length];
-        for (int l = 0; l < lines; l++)
-        {
-            for (int i = 0; i < length; i++) line[i] = horizontal ? image[i, l] : image[l, i];
-            for (int i = 0; i < length; i++)
-            {
-                double s = 0;
-                for (int t = -radius; t <= radius; t++) s += kernel[t + radius] * line[Math.Clamp(i + t, 0, length - 1)];
-                if (horizontal) image[i, l] = (float)s; else image[l, i] = (float)s;
-            }
-        }
-    }
+    /// <summary>The kernel for a size ratio s: σ = (s − 1)/2, SciPy's radius; none when s ≤ 1.</summary>
+    private static double[]? AntiAliasing(double s) =>
+        s > 1 ? GaussianFilter.Kernel((s - 1) / 2, GaussianFilter.ScipyRadius((s - 1) / 2)) : null;
 
     private long[] Strides()
     {
