@@ -287,8 +287,8 @@ public static class SmoothingSolver
             var c = new double[2 * points[a].Length];
             for (int p = 0; p < points[a].Length; p++)
             {
-                var u = solved[f].Apply(route.Apply(points[a][p].X, points[a][p].Y).X, route.Apply(points[a][p].X, points[a][p].Y).Y);
-                var v = solved[f].Apply(direct.Apply(points[a][p].X, points[a][p].Y).X, direct.Apply(points[a][p].X, points[a][p].Y).Y);
+                var u = route.Then(solved[f]).Apply(points[a][p].X, points[a][p].Y);
+                var v = direct.Then(solved[f]).Apply(points[a][p].X, points[a][p].Y);
                 c[2 * p] = u.X - v.X;
                 c[2 * p + 1] = u.Y - v.Y;
             }
