@@ -45,6 +45,7 @@ public static class Program
     {
         yield return InfoCommand.Create(console);
         yield return DemoCommand.Create(console);
+        yield return CutCommand.Create(console);
         yield return BuildCommand.Create(console);
         yield return EvaluateCommand.Create(console);
         yield return ResliceCommand.Create(console);

@@ -10,7 +10,12 @@ namespace StackBuild.Benchmarks;
 public static class Program
 {
     /// <summary>Run: dotnet run -c Release --project tests/StackBuild.Benchmarks -- --filter '*' --job short</summary>
-    public static void Main(string[] args) => BenchmarkSwitcher.FromAssembly(typeof(Program).Assembly).Run(args);
+    /// <summary>The accuracy table of whole-specimen series (docs/accuracy.md): dotnet run -c Release --project tests/StackBuild.Benchmarks -- accuracy</summary>
+    public static void Main(string[] args)
+    {
+        if (args.Length > 0 && args[0] == "accuracy") { AccuracyTable.Run(args[1..]); return; }
+        BenchmarkSwitcher.FromAssembly(typeof(Program).Assembly).Run(args);
+    }
 }
 
 /// <summary>One in-place forward 2D FFT of 512×512 single-precision complex values; the managed FFT is the baseline.</summary>

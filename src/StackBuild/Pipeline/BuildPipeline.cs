@@ -110,17 +110,28 @@ public static class BuildPipeline
         SmoothingResult? smoothing = null;
         IReadOnlyList<ChainPlacement>? chainBefore = null; // the neighbour chain, kept when the global solve replaces it
         bool faceFlipped = false;
+        ParityResult? parity = null;
         var warnings = new List<string>(series.Warnings);
         if (options.Align && working.Count > 1)
         {
-            var pairs = RegisterNeighbours(working, options, progress);
-            chain = ChainSolver.Solve(working.Count, (m, f) => pairs.GetOrAdd((m, f), k => RegisterPair(working, k.Item1, k.Item2, options)),
+            var registered = RegisterNeighbours(working, options, progress);
+            // Which side of every section is up, decided from every pair within MirrorParity.MaxReach sections at once; each
+            // pair then keeps its best hypothesis with that mirror, so one weak pair cannot turn over the sections after it.
+            parity = MirrorParity.Decide(working.Count, registered);
+            if (Environment.GetEnvironmentVariable("SB_DEBUG_PAIRS") is { } dbg)
+                File.WriteAllLines(dbg, registered.OrderBy(k => k.Key).Select(kv => $"{working[kv.Key.Item1].Entry.Number} {working[kv.Key.Item2].Entry.Number} {kv.Value.NccFor(false):0.0000} {kv.Value.NccFor(true):0.0000} {kv.Value.SameMirrorRunnerUpNcc:0.0000} {kv.Value.OtherMirrorRunnerUpNcc:0.0000}"));
+            var decided = parity;
+            var pairs = new ConcurrentDictionary<(int, int), PairResult>(registered.Select(kv =>
+                KeyValuePair.Create(kv.Key, kv.Value.WithMirror(decided.Flipped[kv.Key.Item1] != decided.Flipped[kv.Key.Item2]))));
+            chain = ChainSolver.Solve(working.Count, (m, f) => pairs.GetOrAdd((m, f), k =>
+                    RegisterPair(working, k.Item1, k.Item2, options).WithMirror(decided.Flipped[k.Item1] != decided.Flipped[k.Item2])),
                 i => Corners(working[i].Image), options.Chain);
             chain = FaceMajorityUp(chain, working, out faceFlipped);
             if (options.Smoothing.Strength >= 0 && working.Count > 2)
             {
                 chainBefore = chain;
-                var observations = pairs.Select(kv => new PairObservation(kv.Key.Item1, kv.Key.Item2, kv.Value)).OrderBy(o => o.Moving).ThenBy(o => o.Fixed).ToList();
+                // The solve weighs first- and second-neighbour pairs; the third-neighbour ones only serve the mirror decision.
+                var observations = pairs.Where(kv => kv.Key.Item1 - kv.Key.Item2 <= 2).Select(kv => new PairObservation(kv.Key.Item1, kv.Key.Item2, kv.Value)).OrderBy(o => o.Moving).ThenBy(o => o.Fixed).ToList();
                 int referenceIndex = chain.Select((c, i) => (c, i)).First(t => t.c.Route == LinkRoute.Reference).i;
                 smoothing = SmoothingSolver.Solve(chain.Select(c => c.Route == LinkRoute.Failed ? (Transform2D?)null : c.ToReference).ToList(),
                     referenceIndex, observations, i => SamplePoints(working[i].Image), options.Smoothing with { MinConfidence = options.Chain.MinConfidence });
@@ -297,6 +308,7 @@ public static class BuildPipeline
                 RunnerUp = pair?.RunnerUp is { } ru ? new HypothesisRecord(ru.Mirrored, ru.RotationDegrees, ru.Ncc, ru.Mirrored != pair.Best.Mirrored) : null,
                 DriftCorrectionUm = smoothing is null || place.Route is LinkRoute.Failed or LinkRoute.Template ? null : smoothing.CorrectionPx[n] * workUm,
                 Template = onTemplate is null ? null : TemplateRecord(onTemplate, n, workUm, working[n].Image),
+                SideMargin = parity is null || double.IsInfinity(parity.Margin[n]) ? null : Math.Round(parity.Margin[n], 4),
                 NccBefore = place.LinkedTo >= 0 && working[n].Prepared is { } a && working[place.LinkedTo].Prepared is { } b
                     ? CentredNcc(a.WorkImage, b.WorkImage) : null,
                 Pairs = smoothing?.Pairs.Where(d => d.Moving == n || d.Fixed == n).Select(d => new PairLinkRecord
@@ -680,10 +692,8 @@ public static class BuildPipeline
     {
         var jobs = new List<(int Moving, int Fixed)>();
         for (int i = 1; i < working.Count; i++)
-        {
-            jobs.Add((i, i - 1));
-            if (i >= 2) jobs.Add((i, i - 2));
-        }
+            for (int d = 1; d <= Math.Min(i, MirrorParity.MaxReach); d++)
+                jobs.Add((i, i - d));
         var pairs = new ConcurrentDictionary<(int, int), PairResult>();
         int done = 0;
         Parallel.ForEach(jobs, new ParallelOptions { MaxDegreeOfParallelism = Environment.ProcessorCount }, job =>

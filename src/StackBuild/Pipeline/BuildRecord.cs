@@ -50,6 +50,13 @@ public sealed record SectionRecord
     [JsonPropertyName("filled_from")] public int[]? FilledFrom { get; init; }
     /// <summary>Estimated placement error (µm, one standard error) relative to the reference section; see <see cref="Evaluate.Uncertainty"/>.</summary>
     [JsonPropertyName("estimated_error_um")] public double? EstimatedErrorUm { get; init; }
+    /// <summary>
+    /// How much the stack's weighted agreement (NCC summed over the pairs within three sections) would drop if this section
+    /// alone were turned over; near 0 the stack cannot tell which side is up (see <see cref="Solve.MirrorParity"/>).
+    /// </summary>
+    [JsonPropertyName("side_margin")] public double? SideMargin { get; init; }
+    /// <summary>Why the section deserves a look (plain sentences, the report's flags); empty when there is no reason.</summary>
+    [JsonPropertyName("flags")] public List<string>? Flags { get; init; }
     /// <summary>NCC with the section it was registered to before alignment (both registration images centred, as mounted); compare with <see cref="Ncc"/>.</summary>
     [JsonPropertyName("ncc_before")] public double? NccBefore { get; init; }
     /// <summary>With the global solve: the rotation the neighbour chain gave, before drift correction.</summary>

@@ -46,7 +46,37 @@ public sealed record PairHypothesis(Transform2D MovingToFixed, bool Mirrored, do
 /// match at all (NCC ≥ 0.7 counts fully), the second that nothing else matches nearly as well (a 0.05 lead
 /// gives 0.92). Both are rules of thumb of this project, set on the test pairs, not published values.
 /// </summary>
-public sealed record PairResult(PairHypothesis Best, PairHypothesis? RunnerUp, double Confidence);
+public sealed record PairResult(PairHypothesis Best, PairHypothesis? RunnerUp, double Confidence)
+{
+    /// <summary>The best hypothesis with the other mirror than <see cref="Best"/>; null when only one mirror was tried.</summary>
+    public PairHypothesis? OtherMirror { get; init; }
+    /// <summary>NCC of the best hypothesis with <see cref="Best"/>'s mirror more than 10° away from it; null when none was tried.</summary>
+    public double? SameMirrorRunnerUpNcc { get; init; }
+    /// <summary>The same for <see cref="OtherMirror"/>.</summary>
+    public double? OtherMirrorRunnerUpNcc { get; init; }
+
+    /// <summary>The NCC of the best hypothesis with relative mirror <paramref name="mirrored"/>, or null when it was not tried.</summary>
+    public double? NccFor(bool mirrored) => Best.Mirrored == mirrored ? Best.Ncc : OtherMirror?.Ncc;
+
+    /// <summary>
+    /// This pair with its mirror settled from outside (by the whole stack, <see cref="Solve.MirrorParity"/>): the best
+    /// hypothesis of that mirror, the other mirror's as runner-up, and a confidence that asks only whether the angle is
+    /// distinct within that mirror (the same rule, against the best hypothesis more than 10° away with the same mirror).
+    /// Itself when the mirror is already <see cref="Best"/>'s or the other was not tried.
+    /// </summary>
+    public PairResult WithMirror(bool mirrored)
+    {
+        if (Best.Mirrored == mirrored)
+            return this with { Confidence = SectionRegistration.Confidence(Best.Ncc, SameMirrorRunnerUpNcc) };
+        if (OtherMirror is null) return this;
+        return new PairResult(OtherMirror, Best, SectionRegistration.Confidence(OtherMirror.Ncc, OtherMirrorRunnerUpNcc))
+        {
+            OtherMirror = Best,
+            SameMirrorRunnerUpNcc = OtherMirrorRunnerUpNcc,
+            OtherMirrorRunnerUpNcc = SameMirrorRunnerUpNcc,
+        };
+    }
+}
 
 /// <summary>
 /// Pairwise rigid registration of two sections (rotation at any angle, translation, optional left-right
@@ -106,17 +136,43 @@ public static class SectionRegistration
             coarse.Add(engine.Evaluate(mirrored, degrees + 180, CoarseUpsample));
         }
         coarse.Sort((a, b) => b.Ncc.CompareTo(a.Ncc));
-        var best = coarse[0];
-        var second = coarse.Skip(1).FirstOrDefault(e => IsDistinct(e, best));
-
         double step = PolarSpectrum.DegreesPerBin;
-        var refinedBest = engine.Refine(best, step, options.AngleTolerance, options.UpsampleFactor);
-        var refinedSecond = second is null ? null : engine.Refine(second, step, options.AngleTolerance, options.UpsampleFactor);
-        if (refinedSecond is not null && refinedSecond.Ncc > refinedBest.Ncc) (refinedBest, refinedSecond) = (refinedSecond, refinedBest);
-
-        var bestHypothesis = ToHypothesis(refinedBest, fixedCanvas, movingCanvas);
-        var runnerUp = refinedSecond is null ? null : ToHypothesis(refinedSecond, fixedCanvas, movingCanvas);
-        return new PairResult(bestHypothesis, runnerUp, Confidence(bestHypothesis.Ncc, runnerUp?.Ncc));
+        // Per mirror: the best hypothesis refined, and the best one more than 10° away from it (its runner-up, refined
+        // for the mirror that wins here, coarse for the other), so that a mirror decided for the whole stack
+        // (MirrorParity) can still say how distinct the chosen angle is.
+        var perMirror = new List<(PairHypothesis Best, double? RunnerUpNcc, PairEngine.Evaluation? RunnerUp)>();
+        foreach (bool mirrored in mirrors)
+        {
+            var first = coarse.First(e => e.Mirrored == mirrored);
+            var refined = engine.Refine(first, step, options.AngleTolerance, options.UpsampleFactor);
+            var second = coarse.FirstOrDefault(e => e.Mirrored == mirrored && IsDistinct(e, refined));
+            perMirror.Add((ToHypothesis(refined, fixedCanvas, movingCanvas), second?.Ncc, second));
+        }
+        perMirror.Sort((a, b) => b.Best.Ncc.CompareTo(a.Best.Ncc));
+        var (bestHypothesis, sameRunnerUpNcc, sameRunnerUp) = perMirror[0];
+        var other = perMirror.Count > 1 ? perMirror[1] : default;
+        if (sameRunnerUp is not null)
+        {
+            var refinedSame = engine.Refine(sameRunnerUp, step, options.AngleTolerance, options.UpsampleFactor);
+            sameRunnerUpNcc = refinedSame.Ncc;
+            if (refinedSame.Ncc > bestHypothesis.Ncc)
+            {
+                // The refined runner-up overtook the best of its mirror: swap them.
+                sameRunnerUpNcc = bestHypothesis.Ncc;
+                bestHypothesis = ToHypothesis(refinedSame, fixedCanvas, movingCanvas);
+            }
+            sameRunnerUp = refinedSame;
+        }
+        // The runner-up overall: the better of the other mirror's best and this mirror's distinct runner-up.
+        PairHypothesis? runnerUp = other.Best;
+        if (sameRunnerUp is not null && (runnerUp is null || sameRunnerUp.Ncc > runnerUp.Ncc))
+            runnerUp = ToHypothesis(sameRunnerUp, fixedCanvas, movingCanvas);
+        return new PairResult(bestHypothesis, runnerUp, Confidence(bestHypothesis.Ncc, runnerUp?.Ncc))
+        {
+            OtherMirror = other.Best,
+            SameMirrorRunnerUpNcc = sameRunnerUpNcc,
+            OtherMirrorRunnerUpNcc = other.RunnerUpNcc,
+        };
     }
 
     /// <summary>The confidence rule documented on <see cref="PairResult"/>.</summary>

@@ -69,15 +69,24 @@ public static class ChainSolver
         return placed.Select(p => p!).ToList();
     }
 
+    /// <summary>
+    /// The section nearest the middle of the stack that matches both its next sections confidently (else one of them):
+    /// the middle sections are the largest and best matched, and a reference in the middle halves the longest chain. The
+    /// end sections of a specimen are small and change shape fast, the worst choice for the frame.
+    /// </summary>
     private static int ChooseReference(int count, Func<int, int, PairResult> pair, ChainOptions options)
     {
-        for (int r = 0; r < count; r++)
+        int Confident(int r)
         {
-            bool confident = false;
-            for (int next = r + 1; next <= Math.Min(count - 1, r + 2) && !confident; next++)
-                confident = pair(next, r).Confidence >= options.MinConfidence;
-            if (confident) return r;
+            int n = 0;
+            for (int next = r + 1; next <= Math.Min(count - 1, r + 2); next++)
+                if (pair(next, r).Confidence >= options.MinConfidence) n++;
+            return n;
         }
+        var order = Enumerable.Range(0, count).OrderBy(r => Math.Abs(r - (count - 1) / 2.0)).ThenBy(r => r).ToList();
+        foreach (int need in new[] { 2, 1 })
+            foreach (int r in order.Where(r => r <= count - 1 - need))
+                if (Confident(r) >= need) return r;
         return 0;
     }
 

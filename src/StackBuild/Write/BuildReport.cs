@@ -15,6 +15,9 @@ public static class SectionFlags
     /// <summary>Sections whose pair confidence is below this are flagged.</summary>
     public const double LowConfidence = 0.5;
 
+    /// <summary>A section whose side margin (<see cref="SectionRecord.SideMargin"/>) is below this is flagged (this project's rule of thumb).</summary>
+    public const double UncertainSideMargin = 0.05;
+
     /// <summary>
     /// Route disagreement (µm) above which a section is flagged: three times the build's median disagreement,
     /// and at least 2.5 registration pixels, so ordinary sub-pixel scatter is not flagged.
@@ -24,6 +27,13 @@ public static class SectionFlags
         var values = record.Sections.Where(s => s.RouteDisagreementUm is not null).Select(s => s.RouteDisagreementUm!.Value).OrderBy(v => v).ToArray();
         double median = values.Length == 0 ? 0 : values[values.Length / 2];
         return Math.Max(3 * median, 2.5 * Evaluate.Uncertainty.RegistrationPixelUm(record));
+    }
+
+    /// <summary>The record with every section's <see cref="SectionRecord.Flags"/> filled in (the reasons below).</summary>
+    public static BuildRecord Annotate(BuildRecord record)
+    {
+        double limit = DisagreementLimitUm(record);
+        return record with { Sections = record.Sections.Select(s => s with { Flags = [.. Reasons(s, limit)] }).ToList() };
     }
 
     /// <summary>The reasons (plain sentences) to look at a section; empty when there is none.</summary>
@@ -38,6 +48,9 @@ public static class SectionFlags
                 reasons.Add(string.Create(CultureInfo.InvariantCulture,
                     $"which side is up is uncertain: the section turned over matched nearly as well (NCC {ru.Ncc:0.00} against {ncc:0.00}); check it against its neighbours"));
         }
+        if (s.SideMargin is double m && m < UncertainSideMargin && s.Status is "aligned")
+            reasons.Add(string.Create(CultureInfo.InvariantCulture,
+                $"which side is up is uncertain: turned over, it would match its neighbours almost as well (side margin {m:0.000}); check it against its neighbours"));
         if (s.RouteDisagreementUm is double d && d > disagreementLimitUm)
             reasons.Add(string.Create(CultureInfo.InvariantCulture, $"placements through the first and second neighbour differ by {d:0} µm"));
         if (s.Damaged) reasons.Add("marked damaged in the manifest" + (string.IsNullOrEmpty(s.Note) ? "" : $" ({s.Note})"));

@@ -50,7 +50,7 @@ public static class BuildWriter
     /// </summary>
     public static void Write(BuildResult result, BuildOutputPaths paths)
     {
-        result = result with { Record = Uncertainty.Annotate(result.Record) };
+        result = result with { Record = SectionFlags.Annotate(Uncertainty.Annotate(result.Record)) };
         var type = result.InputBitDepth > 8 ? NiftiDataType.UInt16 : NiftiDataType.UInt8;
         var description = result.Record.Aligned ? "StackBuild aligned section series" : "StackBuild section series (unaligned)";
         // Everything that can fail for reasons other than the disk is done in memory first, so a failure leaves

@@ -1,0 +1,121 @@
+using System.Globalization;
+using System.Text;
+using StackBuild.Demo;
+using StackBuild.Geometry;
+using StackBuild.Imaging;
+using StackBuild.Nifti;
+using StackBuild.Pipeline;
+using StackBuild.Write;
+
+namespace StackBuild.Evaluate;
+
+/// <summary>One volume cut along one axis, built plain and with a template made from the same volume.</summary>
+public sealed record AccuracyCase(string VolumePath, char Axis, int Every = 2, int Seed = 1, bool BrightField = false, int Bits = 8)
+{
+    public string Name => $"{Path.GetFileName(VolumePath).Replace(".nii.gz", "").Replace(".nii", "")} {Axis}";
+}
+
+/// <summary>One row of the accuracy table: one case, one way of building.</summary>
+/// <param name="Unflagged">Sections more than <see cref="AccuracyRun.FlagLimitPx"/> off (or mirrored wrong) with no flag in the sidecar.</param>
+public sealed record AccuracyRow(string Case, string Build, int Sections, int Placed, int Unplaced, Summary ErrorPx, Summary PairErrorPx,
+    int MirrorWrong, double DriftRmsPx, int OffSections, IReadOnlyList<int> Unflagged, IReadOnlyList<(int Number, double ErrorPx)> Worst,
+    double PixelUm, double Seconds, EvaluationResult Evaluation, BuildRecord Record);
+
+/// <summary>
+/// The whole-specimen accuracy check: a public volume cut into a series with <see cref="VolumeCutter"/> (whole extent, both
+/// ends, any angle, shifts to 15 % of the canvas, 10 % face down, 5 % lost with one next to each end), built without and with a
+/// template made from the same volume (2× coarser on every axis, square-root contrast, noise: another contrast and
+/// resolution than the scans), each measured against the truth (<see cref="TruthEvaluation"/>).
+/// </summary>
+public static class AccuracyRun
+{
+    /// <summary>A section further off than this (output pixels) must carry a flag: no silent misplacement.</summary>
+    public const double FlagLimitPx = 2;
+
+    public static IReadOnlyList<AccuracyRow> Run(AccuracyCase c, string workFolder, IProgress<string>? progress = null)
+    {
+        var volume = NiftiFile.Read(c.VolumePath).ToVolume();
+        var series = VolumeCutter.Cut(volume, new CutOptions { Axis = c.Axis, Every = c.Every, Seed = c.Seed, BrightField = c.BrightField, Bits = c.Bits }, c.VolumePath);
+        string folder = Path.Combine(workFolder, c.Name.Replace(' ', '-'));
+        if (Directory.Exists(folder)) Directory.Delete(folder, true);
+        VolumeCutter.Write(series, folder);
+        string templatePath = Path.Combine(workFolder, c.Name.Replace(' ', '-') + "-template.nii.gz");
+        NiftiFile.Write(templatePath, CoarseTemplate(volume, c.Seed));
+        var truth = SeriesTruth.Read(Path.Combine(folder, VolumeCutter.TruthFileName));
+        var rows = new List<AccuracyRow>();
+        foreach (bool guided in new[] { false, true })
+        {
+            progress?.Report($"{c.Name}: building {(guided ? "with the template" : "plain")}");
+            var watch = System.Diagnostics.Stopwatch.StartNew();
+            var options = new BuildOptions
+            {
+                Input = folder,
+                // Template plane of the first section: the template's planes are 2-voxel blocks, so volume plane k lies at (k − 0.5)/2.
+                Template = guided ? new TemplateOptions { Path = templatePath, CutAxis = c.Axis, FirstPlane = (series.Sections[0].Plane - 0.5) / 2 } : null,
+            };
+            var result = BuildPipeline.Run(options);
+            double seconds = watch.Elapsed.TotalSeconds;
+            rows.Add(Row(c.Name, guided ? "template" : "plain", series, SectionFlags.Annotate(Uncertainty.Annotate(result.Record)), truth, seconds));
+        }
+        return rows;
+    }
+
+    public static AccuracyRow Row(string name, string build, CutSeries series, BuildRecord record, SeriesTruth truth, double seconds)
+    {
+        var e = TruthEvaluation.Evaluate(record, truth);
+        int present = series.Sections.Count(s => !s.Lost);
+        int placed = record.Sections.Count(s => s.Status is "aligned" or "placed");
+        var flagged = record.Sections.Where(s => s.Flags is { Count: > 0 }).Select(s => s.Number).ToHashSet();
+        var off = e.Sections.Where(s => s.ErrorPx > FlagLimitPx || s.MirrorWrong).ToList();
+        var unflagged = off.Where(s => !flagged.Contains(s.Number)).Select(s => s.Number).ToList();
+        var worst = e.Sections.OrderByDescending(s => s.MirrorWrong ? double.PositiveInfinity : s.ErrorPx).Take(3).Select(s => (s.Number, s.ErrorPx)).ToList();
+        return new AccuracyRow(name, build, present, placed, present - placed, e.ErrorPx, e.PairErrorPx, e.MirrorWrong, e.DriftRmsPx,
+            off.Count, unflagged, worst, e.OutputPixelUm, seconds, e, record);
+    }
+
+    /// <summary>
+    /// A template of another resolution and contrast than the scans: 2×2×2 block means (the affine moved to the block
+    /// centres), the square root of the values scaled to 0–200, Gaussian noise of standard deviation 5 (the same recipe as
+    /// tests/tools/template_world_check.py make, which the tests check with nibabel).
+    /// </summary>
+    public static Volume CoarseTemplate(Volume v, int seed)
+    {
+        int nx = v.Nx / 2, ny = v.Ny / 2, nz = v.Nz / 2;
+        var data = new float[(long)nx * ny * nz];
+        for (int k = 0; k < nz; k++)
+        for (int j = 0; j < ny; j++)
+        for (int i = 0; i < nx; i++)
+        {
+            double sum = 0;
+            for (int c = 0; c < 8; c++) sum += v[2 * i + (c & 1), 2 * j + (c >> 1 & 1), 2 * k + (c >> 2)];
+            data[i + (long)nx * (j + (long)ny * k)] = (float)(sum / 8);
+        }
+        float min = data.Min(), max = data.Max();
+        var rng = new DemoRandom(seed, purpose: 43);
+        for (int n = 0; n < data.Length; n++)
+            data[n] = (float)(Math.Sqrt(Math.Max(0, (data[n] - min) / Math.Max(1e-12, max - min))) * 200 + 5 * rng.NextGaussian());
+        var a = v.Affine;
+        var rows = new double[3][];
+        for (int r = 0; r < 3; r++)
+            rows[r] = [2 * a[r, 0], 2 * a[r, 1], 2 * a[r, 2], a[r, 3] + 0.5 * (a[r, 0] + a[r, 1] + a[r, 2])];
+        return new Volume(nx, ny, nz, Affine.FromRows(rows[0], rows[1], rows[2]), data);
+    }
+
+    /// <summary>The table as Markdown: one line per row, then the worst sections and any unflagged misplacement.</summary>
+    public static string Markdown(IReadOnlyList<AccuracyRow> rows)
+    {
+        var inv = CultureInfo.InvariantCulture;
+        var o = new StringBuilder();
+        o.AppendLine("| series | build | sections | unplaced | error median / p95 / max (px) | neighbour error median / p95 / max (px) | wrong mirror | drift rms (px) | > 2 px off | all of them flagged | worst sections (px) | px (µm) | s |");
+        o.AppendLine("| --- | --- | ---: | ---: | --- | --- | ---: | ---: | ---: | --- | --- | ---: | ---: |");
+        foreach (var r in rows)
+        {
+            string worst = string.Join(", ", r.Worst.Select(w => string.Create(inv, $"{w.Number}: {w.ErrorPx:0.0}")));
+            string flagged = r.Unflagged.Count == 0 ? "yes" : "no: " + string.Join(", ", r.Unflagged);
+            o.AppendLine(string.Create(inv,
+                $"| {r.Case} | {r.Build} | {r.Sections} | {r.Unplaced} | {r.ErrorPx.Median:0.00} / {r.ErrorPx.P95:0.00} / {r.ErrorPx.Max:0.00} | " +
+                $"{r.PairErrorPx.Median:0.00} / {r.PairErrorPx.P95:0.00} / {r.PairErrorPx.Max:0.00} | {r.MirrorWrong} | {r.DriftRmsPx:0.00} | {r.OffSections} | {flagged} | {worst} | {r.PixelUm:0} | {r.Seconds:0} |"));
+        }
+        return o.ToString();
+    }
+}

@@ -1,0 +1,57 @@
+using StackBuild.Evaluate;
+
+namespace StackBuild.Benchmarks;
+
+/// <summary>
+/// Reproduces docs/accuracy.md: three public volumes from Debian's mricron-data (a human T1 MRI, ch2bet; a macaque T1
+/// template, inia19-t1-brain; a human template of another contrast, jhu189), each cut along two voxel axes over its whole
+/// extent by <c>stackbuild cut</c>'s defaults (every 2nd plane), built plain and with a template made from the same
+/// volume. Options: <c>--only NAME</c> runs the cases whose name contains NAME; <c>--work DIR</c> keeps the series there.
+/// </summary>
+public static class AccuracyTable
+{
+    private const string Templates = "/usr/share/mricron/templates";
+
+    public static IReadOnlyList<AccuracyCase> Cases =>
+    [
+        new($"{Templates}/ch2bet.nii.gz", 'j'),
+        new($"{Templates}/ch2bet.nii.gz", 'k'),
+        new($"{Templates}/inia19-t1-brain.nii.gz", 'j'),
+        new($"{Templates}/inia19-t1-brain.nii.gz", 'i', BrightField: true, Bits: 16),
+        new($"{Templates}/jhu189.nii.gz", 'j'),
+        new($"{Templates}/jhu189.nii.gz", 'k', BrightField: true, Bits: 16),
+    ];
+
+    public static void Run(string[] args)
+    {
+        string? only = null, work = null;
+        for (int i = 0; i + 1 < args.Length; i += 2)
+        {
+            if (args[i] == "--only") only = args[i + 1];
+            else if (args[i] == "--work") work = args[i + 1];
+        }
+        bool keep = work is not null;
+        work ??= Directory.CreateTempSubdirectory("sb-accuracy-").FullName;
+        Directory.CreateDirectory(work);
+        var rows = new List<AccuracyRow>();
+        var progress = new Progress<string>(Console.Error.WriteLine);
+        try
+        {
+            foreach (var c in Cases.Where(c => only is null || c.Name.Contains(only, StringComparison.OrdinalIgnoreCase)))
+            {
+                var these = AccuracyRun.Run(c, work, progress);
+                rows.AddRange(these);
+                foreach (var r in these)
+                {
+                    Console.Error.WriteLine($"{r.Case} {r.Build}: per section (number: error px, neighbour error px, mirror wrong):");
+                    Console.Error.WriteLine("  " + string.Join("; ", r.Evaluation.Sections.Select(s => $"{s.Number}: {s.ErrorPx:0.0}, {s.PairErrorPx:0.0}{(s.MirrorWrong ? " M" : "")}")));
+                }
+            }
+            Console.WriteLine(AccuracyRun.Markdown(rows));
+        }
+        finally
+        {
+            if (!keep) try { Directory.Delete(work, true); } catch (IOException) { }
+        }
+    }
+}
