@@ -495,7 +495,9 @@ public static class BuildPipeline
         });
         progress?.Report("template: matching sections to their slices");
         var guide = TemplateGuide.Place(new TemplateGuideInput(working.Select((w, n) => new TemplateGuideSection(
-            z[n], w.Image, chain[n].ToReference, slices[n], chain[n].Pair?.Confidence ?? 1, ChainFailed: chain[n].Route == LinkRoute.Failed)).ToList()));
+            z[n], w.Image, chain[n].ToReference, slices[n], chain[n].Pair?.Confidence ?? 1, ChainFailed: chain[n].Route == LinkRoute.Failed,
+            // The link's error from its two routes' disagreement (each route errs; the difference has √2 times their spread).
+            LinkErrorPx: chain[n].RouteDisagreement is double d ? d / Math.Sqrt(2) : null)).ToList()));
         var planeToWork = Transform2D.Scale(template.PixelWidthMm * 1000 / workUm, template.PixelHeightMm * 1000 / workUm);
         // A section the chain could not place takes its own template match when the guide accepted it (route 'template').
         var fused = chain.Select((c, n) => c.Route == LinkRoute.Failed

@@ -12,8 +12,12 @@ namespace StackBuild.Template;
 /// <param name="ChainConfidence">Confidence of the chain link from this section to the previous one (1 for the first).</param>
 /// <param name="ChainFailed">The chain could not place the section (<paramref name="ToReference"/> means nothing); it is
 /// searched on its slice from scratch and placed by that match alone when the match is as good as its neighbours'.</param>
+/// <param name="LinkErrorPx">How far off the chain link from this section to the one before may be (working pixels, one standard
+/// deviation at the image corners; from the disagreement of its first- and second-neighbour routes); null when unknown. With it
+/// the course follows the template closely where the chain is weak (the small, fast-changing end sections of a specimen) and
+/// smooths over many sections where it is strong.</param>
 public sealed record TemplateGuideSection(double Z, GrayImage? Image, Transform2D ToReference, GrayImage? Slice, double ChainConfidence = 1,
-    bool ChainFailed = false);
+    bool ChainFailed = false, double? LinkErrorPx = null);
 
 public sealed record TemplateGuideOptions
 {
@@ -164,10 +168,17 @@ public static class TemplateGuide
             double madPx = 1.4826 * Median(devs.Select(i => deviationPx[i]!.Value));
             double madDeg = 1.4826 * Median(devs.Select(i => deviationDeg[i]!.Value));
             double limitPx = Math.Max(options.OutlierMads * madPx, options.OutlierFloorPx), limitDeg = Math.Max(options.OutlierMads * madDeg, options.OutlierFloorDegrees);
+            // Where the chain link itself is loose (the small, fast-changing end sections), a template match may differ from
+            // the neighbours' course by as much as the link may be off: the limit grows to twice the link's error there.
+            var loose = LinkSteps(sections, n);
             foreach (int i in devs)
             {
-                if (deviationPx[i] > limitPx) reason[i] = $"{deviationPx[i]:0.#} px away from where its neighbours' template matches put it; at most {limitPx:0.#} px accepted";
-                else if (deviationDeg[i] > limitDeg) reason[i] = $"turned {deviationDeg[i]:0.#}° against its neighbours' template matches; at most {limitDeg:0.#}° accepted";
+                double looseLimitPx = sections[i].LinkErrorPx is null ? limitPx : Math.Max(limitPx, 2 * loose[i]);
+                var im = sections[i].Image!;
+                double looseLimitDeg = sections[i].LinkErrorPx is null ? limitDeg
+                    : Math.Max(limitDeg, 2 * loose[i] / (0.5 * double.Hypot(im.Width, im.Height)) * 180 / Math.PI);
+                if (deviationPx[i] > looseLimitPx) reason[i] = $"{deviationPx[i]:0.#} px away from where its neighbours' template matches put it; at most {looseLimitPx:0.#} px accepted";
+                else if (deviationDeg[i] > looseLimitDeg) reason[i] = $"turned {deviationDeg[i]:0.#}° against its neighbours' template matches; at most {looseLimitDeg:0.#}° accepted";
                 if (reason[i] != null) candidate[i] = false;
             }
         }
@@ -217,7 +228,29 @@ public static class TemplateGuide
         // (d) Fuse: the smoothed correction applied to the chain placement.
         var weight = new double[n];
         foreach (int i in usable) if (candidate[i] && rescue[i] is null) weight[i] = 1;
-        var sa = Smooth(angle, weight, segment, half); var sx = Smooth(dx, weight, segment, half); var sy = Smooth(dy, weight, segment, half);
+        double[] sa, sx, sy;
+        if (sections.Any(x => x.LinkErrorPx is not null))
+        {
+            // Each link's error as a random step of the correction (shift at the section centre, turn about it), each template
+            // match as a noisy look at it: the optimal course for that model (Rauch, Tung & Striebel 1965).
+            var linkPx = LinkSteps(sections, n);
+            var linkDeg = new double[n];
+            for (int i = 0; i < n; i++)
+            {
+                var im = sections[i].Image;
+                double corner = im is null ? 1 : 0.5 * double.Hypot(im.Width, im.Height);
+                linkDeg[i] = double.IsPositiveInfinity(linkPx[i]) ? linkPx[i] : linkPx[i] / corner * 180 / Math.PI;
+            }
+            for (int i = 1; i < n; i++) if (segment[i] != segment[i - 1]) { linkPx[i] = double.PositiveInfinity; linkDeg[i] = double.PositiveInfinity; }
+            var wa = Smooth(angle, weight, segment, half); var wx = Smooth(dx, weight, segment, half); var wy = Smooth(dy, weight, segment, half);
+            sa = CourseSmoother.Smooth(angle, weight, linkDeg, CourseSmoother.NoiseVariance(angle, wa, weight, MinDegrees), MinDegrees);
+            sx = CourseSmoother.Smooth(dx, weight, linkPx, CourseSmoother.NoiseVariance(dx, wx, weight, MinPx), MinPx);
+            sy = CourseSmoother.Smooth(dy, weight, linkPx, CourseSmoother.NoiseVariance(dy, wy, weight, MinPx), MinPx);
+        }
+        else
+        {
+            sa = Smooth(angle, weight, segment, half); sx = Smooth(dx, weight, segment, half); sy = Smooth(dy, weight, segment, half);
+        }
         var result = new TemplateSectionPlacement[n];
         for (int i = 0; i < n; i++)
         {
@@ -385,6 +418,20 @@ public static class TemplateGuide
             result[i] = det > 1e-9 * s0 * s0 ? (s2 * t0 - s1 * t1) / det : t0 / s0;
         }
         return result;
+    }
+
+    /// <summary>Smallest chain link error assumed (working pixels; degrees): no link is perfect.</summary>
+    private const double MinPx = 0.1, MinDegrees = 0.02;
+
+    /// <summary>Each section's link error (working pixels); unknown ones take the median of the known; the first has none (∞: a fresh start).</summary>
+    private static double[] LinkSteps(IReadOnlyList<TemplateGuideSection> sections, int n)
+    {
+        var known = sections.Where(x => x.LinkErrorPx is double v && double.IsFinite(v)).Select(x => x.LinkErrorPx!.Value).ToList();
+        double typical = known.Count > 0 ? Median(known) : 1;
+        var step = new double[n];
+        for (int i = 0; i < n; i++) step[i] = Math.Max(MinPx, sections[i].LinkErrorPx is double v && double.IsFinite(v) ? v : typical);
+        if (n > 0) step[0] = double.PositiveInfinity;
+        return step;
     }
 
     private static double AngleDifference(double a, double b)
