@@ -65,6 +65,8 @@ public static class Uncertainty
                 variance = ownUm * ownUm; // placed by one template match alone: no chain link, no averaging over neighbours
             else if (s.Template is not null && TemplateError(s, record.Sections) is double templateUm)
                 variance = link[s.Number] * link[s.Number] + templateUm * templateUm;
+            // A part the chain could not link to the reference has no known place without a template: no estimate.
+            if (s.Part is not null && s.Template is null) continue;
             result[s.Number] = new SectionUncertainty(s.Number, link[s.Number], Math.Sqrt(variance));
         }
         return result;

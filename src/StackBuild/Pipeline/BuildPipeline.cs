@@ -133,7 +133,8 @@ public static class BuildPipeline
                 // The solve weighs first- and second-neighbour pairs; the third-neighbour ones only serve the mirror decision.
                 var observations = pairs.Where(kv => kv.Key.Item1 - kv.Key.Item2 <= 2).Select(kv => new PairObservation(kv.Key.Item1, kv.Key.Item2, kv.Value)).OrderBy(o => o.Moving).ThenBy(o => o.Fixed).ToList();
                 int referenceIndex = chain.Select((c, i) => (c, i)).First(t => t.c.Route == LinkRoute.Reference).i;
-                smoothing = SmoothingSolver.Solve(chain.Select(c => c.Route == LinkRoute.Failed ? (Transform2D?)null : c.ToReference).ToList(),
+                // Sections of a part the chain could not link to the reference are left as the chain put them (no pair ties them).
+                smoothing = SmoothingSolver.Solve(chain.Select(c => c.Route == LinkRoute.Failed || c.Part != 0 ? (Transform2D?)null : c.ToReference).ToList(),
                     referenceIndex, observations, i => SamplePoints(working[i].Image), options.Smoothing with { MinConfidence = options.Chain.MinConfidence });
                 var solved = smoothing.ToReference;
                 chain = chain.Select((c, i) => c.Route == LinkRoute.Failed ? c : c with { ToReference = solved[i] }).ToList();
@@ -303,7 +304,8 @@ public static class BuildPipeline
                 Ncc = pair?.Best.Ncc,
                 PeakToSidelobe = pair?.Best.PeakToSidelobe,
                 RegisteredTo = place.LinkedTo >= 0 ? working[place.LinkedTo].Entry.Number : null,
-                Route = place.Route.ToString().ToLowerInvariant() switch { "secondneighbour" => "second-neighbour", var r => r },
+                Route = place.Route.ToString().ToLowerInvariant() switch { "secondneighbour" => "second-neighbour", "partreference" => "part-reference", var r => r },
+                Part = place.Part != 0 && place.Route != LinkRoute.Failed ? place.Part : null,
                 RouteDisagreementUm = place.RouteDisagreement is { } d ? d * workUm : null,
                 RunnerUp = pair?.RunnerUp is { } ru ? new HypothesisRecord(ru.Mirrored, ru.RotationDegrees, ru.Ncc, ru.Mirrored != pair.Best.Mirrored) : null,
                 DriftCorrectionUm = smoothing is null || place.Route is LinkRoute.Failed or LinkRoute.Template ? null : smoothing.CorrectionPx[n] * workUm,
@@ -495,7 +497,8 @@ public static class BuildPipeline
         });
         progress?.Report("template: matching sections to their slices");
         var guide = TemplateGuide.Place(new TemplateGuideInput(working.Select((w, n) => new TemplateGuideSection(
-            z[n], w.Image, chain[n].ToReference, slices[n], chain[n].Pair?.Confidence ?? 1, ChainFailed: chain[n].Route == LinkRoute.Failed,
+            z[n], w.Image, chain[n].ToReference, slices[n], PartEdge(chain, n) ? 0 : chain[n].Pair?.Confidence ?? 1, ChainFailed: chain[n].Route == LinkRoute.Failed,
+            Unanchored: chain[n].Route != LinkRoute.Failed && chain[n].Part != 0,
             // The link's error from its two routes' disagreement (each route errs; the difference has √2 times their spread).
             LinkErrorPx: chain[n].RouteDisagreement is double d ? d / Math.Sqrt(2) : null)).ToList()));
         var planeToWork = Transform2D.Scale(template.PixelWidthMm * 1000 / workUm, template.PixelHeightMm * 1000 / workUm);
@@ -508,6 +511,15 @@ public static class BuildPipeline
         var before = chain.Select((c, n) => c.Route == LinkRoute.Failed ? c
             : c with { ToReference = guide.Sections[n].ChainToSlice.Then(sliceToPlane).Then(planeToWork) }).ToList();
         return new TemplatePlacement(fused, before, guide, z, firstPlane, direction, planeToWork);
+    }
+
+    /// <summary>True where section <paramref name="n"/> belongs to another part of the chain than the placed section before it.</summary>
+    private static bool PartEdge(IReadOnlyList<ChainPlacement> chain, int n)
+    {
+        if (chain[n].Route == LinkRoute.Failed) return false;
+        for (int j = n - 1; j >= 0; j--)
+            if (chain[j].Route != LinkRoute.Failed) return chain[j].Part != chain[n].Part;
+        return false;
     }
 
     /// <summary>Below this share of agreeing sections in the global search, the build warns that the template may be set up wrongly.</summary>

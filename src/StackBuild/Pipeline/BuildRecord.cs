@@ -23,8 +23,13 @@ public sealed record SectionRecord
     [JsonPropertyName("peak_to_sidelobe")] public double? PeakToSidelobe { get; init; }
     /// <summary>The section it was registered to; <see cref="Route"/> says which neighbour that was.</summary>
     [JsonPropertyName("registered_to")] public int? RegisteredTo { get; init; }
-    /// <summary>reference, neighbour, second-neighbour, distant, failed, or template (no confident neighbour match; placed by its own template match).</summary>
+    /// <summary>reference, neighbour, second-neighbour, distant, failed, template (no confident neighbour match; placed by its own template match), or part-reference (see <see cref="Part"/>).</summary>
     [JsonPropertyName("route")] public string? Route { get; init; }
+    /// <summary>
+    /// Set when nothing linked the section's stretch of the stack to the reference: the number of that part (1, 2, …), whose own
+    /// reference has route part-reference. Without a template, where the part lies relative to the rest is unknown.
+    /// </summary>
+    [JsonPropertyName("part")] public int? Part { get; init; }
     /// <summary>How far apart (µm, mean over the corners) the placements through the first and second neighbour are.</summary>
     [JsonPropertyName("route_disagreement_um")] public double? RouteDisagreementUm { get; init; }
     /// <summary>The best clearly different hypothesis (other mirror or a rotation over 10° away), for close calls.</summary>

@@ -18,6 +18,11 @@ public enum LinkRoute
     Failed,
     /// <summary>No confident match to any placed section, but placed by its own template match alone (template builds only).</summary>
     Template,
+    /// <summary>
+    /// The reference of a part of the stack that no confident match links to the rest (a run of sections that match nothing
+    /// across it): placed as scanned, so the part's place relative to the rest is unknown unless a template gives it.
+    /// </summary>
+    PartReference,
 }
 
 /// <summary>One section's place in the reference frame, and why.</summary>
@@ -29,8 +34,9 @@ public enum LinkRoute
 /// nearest neighbour and through the second-nearest; null when only one route exists.
 /// </param>
 /// <param name="PathConfidence">The weakest pair confidence on the way to the reference (1 for the reference).</param>
+/// <param name="Part">0 for sections chained to the reference; k for the k-th part of the stack chained to its own part reference.</param>
 public sealed record ChainPlacement(Transform2D ToReference, LinkRoute Route, int LinkedTo, PairResult? Pair, double? RouteDisagreement,
-    double PathConfidence = 1);
+    double PathConfidence = 1, int Part = 0);
 
 public sealed record ChainOptions
 {
@@ -66,6 +72,27 @@ public static class ChainSolver
             for (int i = reference + direction; i >= 0 && i < count; i += direction)
                 placed[i] = Link(i, direction, placed, pair, corners, options);
         }
+        // A run of sections the chain could not reach (nothing across it matches: a stretch of damaged or lost sections, a
+        // change of stain) is chained to a reference of its own, longest run first, so that the part keeps its inner
+        // alignment; where it lies relative to the rest stays unknown (a template can place it).
+        for (int part = 1; ; part++)
+        {
+            var runs = FailedRuns(placed).Where(r => r.Last - r.First + 1 >= MinPartSections).OrderByDescending(r => r.Last - r.First).ToList();
+            bool started = false;
+            foreach (var (first, last) in runs)
+            {
+                int r = ChooseReference(last - first + 1, (m, f) => pair(m + first, f + first), options) + first;
+                if (!Confident(r, first, last, pair, options)) continue;
+                placed[r] = new ChainPlacement(Transform2D.Identity, LinkRoute.PartReference, -1, null, null, 0, part);
+                foreach (int direction in new[] { +1, -1 })
+                    for (int i = r + direction; i >= first && i <= last; i += direction)
+                        placed[i] = Link(i, direction, placed, pair, corners, options) is { Route: not LinkRoute.Failed } linked
+                            ? linked with { Part = part } : placed[i];
+                started = true;
+                break;
+            }
+            if (!started) break;
+        }
         return placed.Select(p => p!).ToList();
     }
 
@@ -90,16 +117,47 @@ public static class ChainSolver
         return 0;
     }
 
+    /// <summary>
+    /// Furthest a link may reach (stack positions): sections further apart look too different for a match between them to
+    /// mean anything, and a chance match of two roundish outlines placed whole stretches wrongly (a whole-brain series cut
+    /// from the JHU atlas, 2026-12-03); beyond it the stretch becomes a part of its own.
+    /// </summary>
+    public const int MaxReach = 4;
+
+    /// <summary>Fewest sections in a run the chain could not reach for it to be chained as a part of its own.</summary>
+    public const int MinPartSections = 3;
+
+    private static IEnumerable<(int First, int Last)> FailedRuns(ChainPlacement?[] placed)
+    {
+        for (int i = 0; i < placed.Length; i++)
+        {
+            if (placed[i]!.Route != LinkRoute.Failed) continue;
+            int j = i;
+            while (j + 1 < placed.Length && placed[j + 1]!.Route == LinkRoute.Failed) j++;
+            yield return (i, j);
+            i = j;
+        }
+    }
+
+    private static bool Confident(int r, int first, int last, Func<int, int, PairResult> pair, ChainOptions options)
+    {
+        for (int next = r + 1; next <= Math.Min(last, r + 2); next++)
+            if (pair(next, r).Confidence >= options.MinConfidence) return true;
+        for (int before = r - 1; before >= Math.Max(first, r - 2); before--)
+            if (pair(r, before).Confidence >= options.MinConfidence) return true;
+        return false;
+    }
+
     private static ChainPlacement Link(int i, int direction, ChainPlacement?[] placed, Func<int, int, PairResult> pair,
         Func<int, (double X, double Y)[]> corners, ChainOptions options)
     {
         // Candidates: the nearest placed sections towards the reference, nearest first.
         var candidates = new List<(int Index, LinkRoute Route)>();
-        for (int step = 1, j = i - direction; j >= 0 && j < placed.Length; step++, j -= direction)
+        for (int step = 1, j = i - direction; j >= 0 && j < placed.Length && step <= MaxReach; step++, j -= direction)
         {
             if (placed[j] is not { } p || p.Route == LinkRoute.Failed) continue;
             candidates.Add((j, step == 1 ? LinkRoute.Neighbour : step == 2 ? LinkRoute.SecondNeighbour : LinkRoute.Distant));
-            if (candidates.Count == 2 || p.Route == LinkRoute.Reference) break;
+            if (candidates.Count == 2 || p.Route is LinkRoute.Reference or LinkRoute.PartReference) break;
         }
         var routes = candidates.Select(c =>
         {

@@ -16,8 +16,11 @@ namespace StackBuild.Template;
 /// deviation at the image corners; from the disagreement of its first- and second-neighbour routes); null when unknown. With it
 /// the course follows the template closely where the chain is weak (the small, fast-changing end sections of a specimen) and
 /// smooths over many sections where it is strong.</param>
+/// <param name="Unanchored">The chain placed the section in a part of the stack that nothing links to the reference
+/// (<paramref name="ToReference"/> holds within the part only): its template match is searched from scratch, and its part
+/// must begin a new run (a <paramref name="ChainConfidence"/> of 0 at the part's first section and after its last).</param>
 public sealed record TemplateGuideSection(double Z, GrayImage? Image, Transform2D ToReference, GrayImage? Slice, double ChainConfidence = 1,
-    bool ChainFailed = false, double? LinkErrorPx = null);
+    bool ChainFailed = false, double? LinkErrorPx = null, bool Unanchored = false);
 
 public sealed record TemplateGuideOptions
 {
@@ -125,12 +128,14 @@ public static class TemplateGuide
         var orphans = Enumerable.Range(0, n).Where(i => sections[i].Image != null && sections[i].Slice != null && sections[i].ChainFailed).ToList();
 
         // (a) The global map: sampled sections searched without a start; the candidate most others agree with, refitted on its agreeing set.
-        var (referenceToSlice, agreement) = GlobalMap(sections, usable, centres, options);
+        var anchored = usable.Where(i => !sections[i].Unanchored).ToList();
+        var (referenceToSlice, agreement) = GlobalMap(sections, anchored.Count > 0 ? anchored : usable, centres, options);
 
         // (b) Every section registered to its slice from its chain placement.
         var chain = sections.Select(s => s.ToReference.Then(referenceToSlice)).ToArray();
         var measured = new TemplateMatch?[n];
-        Parallel.ForEach(usable, i => measured[i] = TemplateRegistration.Register(sections[i].Image!, sections[i].Slice!, chain[i], options.Registration));
+        Parallel.ForEach(usable, i => measured[i] = TemplateRegistration.Register(sections[i].Image!, sections[i].Slice!,
+            sections[i].Unanchored ? null : chain[i], options.Registration));
 
         // The correction each measurement asks for: rotation about the section centre (as the chain places it) and a shift there.
         var angle = new double[n]; var dx = new double[n]; var dy = new double[n];

@@ -53,6 +53,10 @@ public static class SectionFlags
                 $"which side is up is uncertain: turned over, it would match its neighbours almost as well (side margin {m:0.000}); check it against its neighbours"));
         if (s.RouteDisagreementUm is double d && d > disagreementLimitUm)
             reasons.Add(string.Create(CultureInfo.InvariantCulture, $"placements through the first and second neighbour differ by {d:0} µm"));
+        if (s.Part is int part && s.Status == "aligned" && s.Template is null)
+            reasons.Add(s.Route == "part-reference"
+                ? $"nothing matched across the sections before or after this stretch, so it was chained to this section as a part of its own (part {part}): where the part lies relative to the rest is unknown — a template would place it"
+                : $"in part {part} of the stack, which nothing linked to the rest: where the part lies relative to the rest is unknown — a template would place it");
         if (s.Damaged) reasons.Add("marked damaged in the manifest" + (string.IsNullOrEmpty(s.Note) ? "" : $" ({s.Note})"));
         if (s.Template?.Outlier is { } why) reasons.Add($"its template match was set aside ({why})");
         if (s.Template is { PlacedByTemplate: true } t) reasons.Add(t.Note ?? "placed by its own template match");
