@@ -10,18 +10,6 @@ namespace StackBuild.Benchmarks;
 /// </summary>
 public static class AccuracyTable
 {
-    private const string Templates = "/usr/share/mricron/templates";
-
-    public static IReadOnlyList<AccuracyCase> Cases =>
-    [
-        new($"{Templates}/ch2bet.nii.gz", 'j'),
-        new($"{Templates}/ch2bet.nii.gz", 'k'),
-        new($"{Templates}/inia19-t1-brain.nii.gz", 'j'),
-        new($"{Templates}/inia19-t1-brain.nii.gz", 'i', BrightField: true, Bits: 16),
-        new($"{Templates}/jhu189.nii.gz", 'j'),
-        new($"{Templates}/jhu189.nii.gz", 'k', BrightField: true, Bits: 16),
-    ];
-
     public static void Run(string[] args)
     {
         string? only = null, work = null;
@@ -37,7 +25,7 @@ public static class AccuracyTable
         var progress = new Progress<string>(Console.Error.WriteLine);
         try
         {
-            foreach (var c in Cases.Where(c => only is null || c.Name.Contains(only, StringComparison.OrdinalIgnoreCase)))
+            foreach (var c in AccuracyRun.PublicCases.Where(c => only is null || c.Name.Contains(only, StringComparison.OrdinalIgnoreCase)))
             {
                 var these = AccuracyRun.Run(c, work, progress);
                 rows.AddRange(these);

@@ -135,7 +135,7 @@ public static class BuildCommand
 
     private static void Report(CliOutput console, BuildResult result, BuildOutputPaths paths, bool json, bool alignRequested)
     {
-        var r = result.Record;
+        var r = StackBuild.Evaluate.Uncertainty.Annotate(result.Record); // the estimates the sidecar carries, for the same flags
         var counts = r.Sections.GroupBy(s => s.Status).ToDictionary(g => g.Key, g => g.Count());
         if (json)
         {
@@ -169,7 +169,7 @@ public static class BuildCommand
             (filled > 0 ? $"; {filled} empty {(filled == 1 ? "plane" : "planes")} filled from their neighbours" : ""));
         // The same sections the report flags (failed ones are in the warnings below).
         double limit = SectionFlags.DisagreementLimitUm(r);
-        var flagged = r.Sections.Where(s => s.Status != "failed").Select(s => (s.Number, Reasons: SectionFlags.Reasons(s, limit))).Where(t => t.Reasons.Count > 0).ToList();
+        var flagged = r.Sections.Where(s => s.Status != "failed").Select(s => (s.Number, Reasons: SectionFlags.Reasons(s, limit, SectionFlags.VoxelUm(r)))).Where(t => t.Reasons.Count > 0).ToList();
         const int shown = 6;
         foreach (var (number, reasons) in flagged.Take(shown))
             o.WriteLine($"Check    section {number}: {string.Join("; ", reasons)}");

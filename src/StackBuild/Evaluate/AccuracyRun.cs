@@ -32,6 +32,24 @@ public static class AccuracyRun
     /// <summary>A section further off than this (output pixels) must carry a flag: no silent misplacement.</summary>
     public const double FlagLimitPx = 2;
 
+    /// <summary>Where Debian's mricron-data puts its public MRI templates.</summary>
+    public const string PublicTemplates = "/usr/share/mricron/templates";
+
+    /// <summary>
+    /// The table's cases: a human T1 MRI of one brain (ch2bet), a macaque T1 population template (inia19-t1-brain) and a human
+    /// label atlas whose structures have their own grey levels (jhu189, a stand-in for a stain that colours regions), each
+    /// cut along two voxel axes; one of each pair bright-field and 16-bit.
+    /// </summary>
+    public static IReadOnlyList<AccuracyCase> PublicCases =>
+    [
+        new($"{PublicTemplates}/ch2bet.nii.gz", 'j'),
+        new($"{PublicTemplates}/ch2bet.nii.gz", 'k'),
+        new($"{PublicTemplates}/inia19-t1-brain.nii.gz", 'j'),
+        new($"{PublicTemplates}/inia19-t1-brain.nii.gz", 'i', BrightField: true, Bits: 16),
+        new($"{PublicTemplates}/jhu189.nii.gz", 'j'),
+        new($"{PublicTemplates}/jhu189.nii.gz", 'k', BrightField: true, Bits: 16),
+    ];
+
     public static IReadOnlyList<AccuracyRow> Run(AccuracyCase c, string workFolder, IProgress<string>? progress = null)
     {
         var volume = NiftiFile.Read(c.VolumePath).ToVolume();

@@ -3,20 +3,21 @@ using StackBuild.Register;
 namespace StackBuild.Solve;
 
 /// <summary>Which sections lie turned over relative to the first, decided for the whole stack at once.</summary>
-/// <param name="Flipped">Per section (stack order): true when it lies mirrored relative to section 0.</param>
+/// <param name="Flipped">Per section (stack order): true when it lies face down (mirrored).</param>
 /// <param name="Margin">
-/// Per section: how much the stack's total agreement (weighted NCC) would drop if this section alone were turned the other
-/// way (≥ 0); near 0 means the stack cannot tell which side of this section is up.
+/// Per section: how much the decision's score (weighted Fisher z of the pairs' NCC, and the face-up prior) would drop if this
+/// section were turned the other way, alone or together with every section on its side of one link, whichever costs less
+/// (≥ 0); near 0 means the evidence cannot tell which side of this section is up.
 /// </param>
 /// <param name="Overruled">Pairs whose own best hypothesis had the other mirror than the stack decided.</param>
 public sealed record ParityResult(bool[] Flipped, double[] Margin, IReadOnlyList<(int Moving, int Fixed)> Overruled);
 
 /// <summary>
-/// Decides every section's mounting side (face up or face down, up to one flip of the whole stack) from every
+/// Decides every section's mounting side (face up or face down) from every
 /// registered pair at once, instead of composing the pairs' own decisions along a chain, where one wrong decision at a
 /// weak link would turn over every section after it. Each pair (i, j) scores both relative mirrors by the NCC of its
 /// best hypothesis with that mirror; the decision maximises the weighted sum of the scores of the chosen relative
-/// mirrors over all pairs. The pairs reach at most <see cref="MaxReach"/> sections, so the exact maximum is found by
+/// mirrors over all pairs, less a small cost for every section decided face down (most are mounted face up). The pairs reach at most <see cref="MaxReach"/> sections, so the exact maximum is found by
 /// dynamic programming over the mounting sides of the last sections (the Viterbi algorithm; Viterbi 1967, IEEE Trans.
 /// Inf. Theory 13:260; Forney 1973, Proc. IEEE 61:268).
 /// </summary>
@@ -31,6 +32,14 @@ public static class MirrorParity
     /// the NCC lead of the right mirror was positive for most nearest pairs but about as often negative as positive for
     /// pairs two and three sections apart; equal weights turned a block of 24 sections over there, these turned 3.
     /// </summary>
+    /// <summary>
+    /// The prior that a section was mounted face up (most are; common practice): each section decided face down costs this
+    /// much evidence (weighted Fisher z). Where the pairs cannot tell (a nearly symmetric end of the specimen, a stretch
+    /// linked to the rest only across a lost section) the decision falls to face up instead of to chance. 0.02 lies in the
+    /// middle of the values (0.01–0.03) that gave the fewest wrong sides on the series this was developed on (docs/accuracy.md).
+    /// </summary>
+    public const double FaceDownCost = 0.02;
+
     public static double Weight(int distance) => distance switch { 1 => 1.0, 2 => 0.5, _ => 0.25 };
 
     /// <summary>
@@ -65,6 +74,7 @@ public static class MirrorParity
         var best = new double[states];
         Array.Fill(best, double.NegativeInfinity);
         best[0] = 0;
+        best[1] = -FaceDownCost;
         var back = new int[count][];
         for (int i = 1; i < count; i++)
         {
@@ -76,7 +86,7 @@ public static class MirrorParity
                 if (double.IsNegativeInfinity(best[s])) continue;
                 for (int side = 0; side < 2; side++)
                 {
-                    double gain = 0;
+                    double gain = side == 1 ? -FaceDownCost : 0;
                     for (int d = 1; d <= Math.Min(MaxReach, i); d++)
                     {
                         if (!scores.TryGetValue((i, i - d), out var sc)) continue;
@@ -96,50 +106,40 @@ public static class MirrorParity
             flipped[i] = (state & 1) == 1;
             state = back[i][state];
         }
-        flipped[0] = false;
-        // Parts of the stack that no scored pair links (a run of sections that match nothing) cannot be told apart: each
-        // part is turned so that most of its sections lie as the part's majority does (most sections are mounted face up;
-        // common practice).
-        foreach (var part in Parts(count, scores.Keys))
-        {
-            if (part.Count(i => flipped[i]) * 2 > part.Count)
-                foreach (int i in part) flipped[i] = !flipped[i];
-        }
+        flipped[0] = (state & 1) == 1;
 
+        // Margins: what turning the section over alone, or with every section on its side of any one link, would cost.
+        double Unary(int i) => flipped[i] ? -FaceDownCost : FaceDownCost; // the prior's change when section i turns over
+        var single = new double[count];
+        var crossing = new double[count + 1]; // crossing[b]: change of the pairs that span the link b−1 | b, by a difference array
+        foreach (var ((m, f), sc) in scores)
+        {
+            bool relative = flipped[m] != flipped[f];
+            // A pair whose other side was never tried (the manifest said) makes a turn impossible: a large finite cost.
+            double change = Math.Min(1e6, (relative ? sc.Other : sc.Same) - (relative ? sc.Same : sc.Other));
+            single[m] += change; single[f] += change;
+            crossing[f + 1] += change; crossing[m + 1] -= change;
+        }
+        for (int b = 1; b <= count; b++) crossing[b] += crossing[b - 1];
+        var after = new double[count + 1];
+        for (int i = count - 1; i >= 0; i--) after[i] = after[i + 1] + Unary(i);
+        double before = 0;
+        var blockBefore = new double[count]; // best block ending at or after i (sections 0..b−1 turned, b > i)
+        var blockAfter = new double[count];  // best block starting at or before i (sections b..n−1 turned, b ≤ i)
+        for (int b = 1; b < count; b++) { before += Unary(b - 1); blockBefore[b - 1] = crossing[b] + before; }
+        if (count > 0) blockBefore[count - 1] = before + Unary(count - 1); // the whole stack turned over: the prior alone
+        for (int i = count - 2; i >= 0; i--) blockBefore[i] = Math.Min(blockBefore[i], blockBefore[i + 1]);
+        for (int i = 0; i < count; i++)
+            blockAfter[i] = i == 0 ? after[0] : Math.Min(blockAfter[i - 1], crossing[i] + after[i]);
         var margin = new double[count];
         for (int i = 0; i < count; i++)
         {
-            double change = 0;
-            foreach (var ((m, f), sc) in scores)
-            {
-                if (m != i && f != i) continue;
-                bool relative = flipped[m] != flipped[f];
-                change += (relative ? sc.Other : sc.Same) - (relative ? sc.Same : sc.Other);
-            }
-            margin[i] = double.IsFinite(change) ? change : double.PositiveInfinity;
+            double m = Math.Min(single[i] + Unary(i), Math.Min(blockBefore[i], blockAfter[i]));
+            margin[i] = Math.Max(0, m);
         }
         var overruled = pairs.Where(kv => kv.Key.Moving - kv.Key.Fixed <= MaxReach && kv.Value.OtherMirror is not null
                                           && kv.Value.Best.Mirrored != (flipped[kv.Key.Moving] != flipped[kv.Key.Fixed]))
             .Select(kv => kv.Key).OrderBy(k2 => k2.Moving).ThenBy(k2 => k2.Fixed).ToList();
         return new ParityResult(flipped, margin, overruled);
-    }
-
-    /// <summary>Runs of consecutive sections joined by at least one scored pair across every boundary between them.</summary>
-    private static List<List<int>> Parts(int count, IEnumerable<(int Moving, int Fixed)> links)
-    {
-        var reach = new int[count]; // reach[i]: the furthest section a scored pair from section ≤ i reaches
-        for (int i = 0; i < count; i++) reach[i] = i;
-        foreach (var (m, f) in links) reach[f] = Math.Max(reach[f], m);
-        var parts = new List<List<int>>();
-        var current = new List<int>();
-        int furthest = 0;
-        for (int i = 0; i < count; i++)
-        {
-            if (i > furthest && current.Count > 0) { parts.Add(current); current = []; }
-            current.Add(i);
-            furthest = Math.Max(furthest, reach[i]);
-        }
-        if (current.Count > 0) parts.Add(current);
-        return parts;
     }
 }

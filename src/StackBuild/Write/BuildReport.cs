@@ -18,6 +18,12 @@ public static class SectionFlags
     /// <summary>A section whose side margin (<see cref="SectionRecord.SideMargin"/>) is below this is flagged (this project's rule of thumb).</summary>
     public const double UncertainSideMargin = 0.05;
 
+    /// <summary>A section whose estimated placement error is above this many output voxels is flagged.</summary>
+    public const double EstimatedErrorVoxels = 2;
+
+    /// <summary>The output's in-plane voxel size in µm, for <see cref="Reasons"/>; null when the record has none.</summary>
+    public static double? VoxelUm(BuildRecord record) => record.VoxelSizeMm.Length > 0 ? record.VoxelSizeMm[0] * 1000 : null;
+
     /// <summary>
     /// Route disagreement (µm) above which a section is flagged: three times the build's median disagreement,
     /// and at least 2.5 registration pixels, so ordinary sub-pixel scatter is not flagged.
@@ -33,11 +39,11 @@ public static class SectionFlags
     public static BuildRecord Annotate(BuildRecord record)
     {
         double limit = DisagreementLimitUm(record);
-        return record with { Sections = record.Sections.Select(s => s with { Flags = [.. Reasons(s, limit)] }).ToList() };
+        return record with { Sections = record.Sections.Select(s => s with { Flags = [.. Reasons(s, limit, VoxelUm(record))] }).ToList() };
     }
 
     /// <summary>The reasons (plain sentences) to look at a section; empty when there is none.</summary>
-    public static IReadOnlyList<string> Reasons(SectionRecord s, double disagreementLimitUm)
+    public static IReadOnlyList<string> Reasons(SectionRecord s, double disagreementLimitUm, double? voxelUm = null)
     {
         var reasons = new List<string>();
         if (s.Status == "failed") reasons.Add("no confident match with a neighbour: left out of the volume");
@@ -57,6 +63,9 @@ public static class SectionFlags
             reasons.Add(s.Route == "part-reference"
                 ? $"nothing matched across the sections before or after this stretch, so it was chained to this section as a part of its own (part {part}): where the part lies relative to the rest is unknown — a template would place it"
                 : $"in part {part} of the stack, which nothing linked to the rest: where the part lies relative to the rest is unknown — a template would place it");
+        if (voxelUm is double v && s.EstimatedErrorUm is double estimate && estimate > EstimatedErrorVoxels * v && s.Status == "aligned")
+            reasons.Add(string.Create(CultureInfo.InvariantCulture, $"estimated placement error {estimate:0} µm, more than {EstimatedErrorVoxels} voxels")
+                + (s.Template is null ? " (the chain's errors add up with distance from the reference section; a template would measure and remove them)" : ""));
         if (s.Damaged) reasons.Add("marked damaged in the manifest" + (string.IsNullOrEmpty(s.Note) ? "" : $" ({s.Note})"));
         if (s.Template?.Outlier is { } why) reasons.Add($"its template match was set aside ({why})");
         if (s.Template is { PlacedByTemplate: true } t) reasons.Add(t.Note ?? "placed by its own template match");
@@ -96,7 +105,7 @@ public static class BuildReport
         var r = result.Record;
         var volume = result.Volume;
         double limit = SectionFlags.DisagreementLimitUm(r);
-        var flagged = r.Sections.Select(s => (Section: s, Reasons: SectionFlags.Reasons(s, limit))).Where(t => t.Reasons.Count > 0).ToList();
+        var flagged = r.Sections.Select(s => (Section: s, Reasons: SectionFlags.Reasons(s, limit, SectionFlags.VoxelUm(r)))).Where(t => t.Reasons.Count > 0).ToList();
         var placed = r.Sections.Where(s => s.Status is "aligned" or "placed").ToList();
         double minConfidence = r.Parameters.TryGetValue("min_confidence", out var mc) && double.TryParse(mc, NumberStyles.Float, Inv, out var m) ? m : 0.2;
 
