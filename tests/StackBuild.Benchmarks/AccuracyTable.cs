@@ -6,17 +6,24 @@ namespace StackBuild.Benchmarks;
 /// Reproduces docs/accuracy.md: three public volumes from Debian's mricron-data (a human T1 MRI, ch2bet; a macaque T1
 /// template, inia19-t1-brain; a human template of another contrast, jhu189), each cut along two voxel axes over its whole
 /// extent by <c>stackbuild cut</c>'s defaults (every 2nd plane), built plain and with a template made from the same
-/// volume. Options: <c>--only NAME</c> runs the cases whose name contains NAME; <c>--work DIR</c> keeps the series there.
+/// volume. Options: <c>--only NAME</c> runs the cases whose name contains NAME; <c>--work DIR</c> keeps the series there;
+/// <c>--seed N</c> cuts every case with seed N (placements, face-down and lost sections; the development seed is 1);
+/// <c>--held-out</c> adds the cases never looked at during development (<see cref="AccuracyRun.HeldOutCases"/>).
 /// </summary>
 public static class AccuracyTable
 {
     public static void Run(string[] args)
     {
         string? only = null, work = null;
-        for (int i = 0; i + 1 < args.Length; i += 2)
+        int? seed = null;
+        bool heldOut = false;
+        for (int i = 0; i < args.Length; i++)
         {
-            if (args[i] == "--only") only = args[i + 1];
-            else if (args[i] == "--work") work = args[i + 1];
+            if (args[i] == "--only" && i + 1 < args.Length) only = args[++i];
+            else if (args[i] == "--work" && i + 1 < args.Length) work = args[++i];
+            else if (args[i] == "--seed" && i + 1 < args.Length) seed = int.Parse(args[++i], System.Globalization.CultureInfo.InvariantCulture);
+            else if (args[i] == "--held-out") heldOut = true;
+            else throw new ArgumentException($"unknown option {args[i]}: use --only NAME, --work DIR, --seed N, --held-out");
         }
         bool keep = work is not null;
         work ??= Directory.CreateTempSubdirectory("sb-accuracy-").FullName;
@@ -25,7 +32,8 @@ public static class AccuracyTable
         var progress = new Progress<string>(Console.Error.WriteLine);
         try
         {
-            foreach (var c in AccuracyRun.PublicCases.Where(c => only is null || c.Name.Contains(only, StringComparison.OrdinalIgnoreCase)))
+            var cases = AccuracyRun.PublicCases.Concat(heldOut ? AccuracyRun.HeldOutCases : []).Select(c => seed is int s ? c with { Seed = s } : c);
+            foreach (var c in cases.Where(c => only is null || c.Name.Contains(only, StringComparison.OrdinalIgnoreCase)))
             {
                 var these = AccuracyRun.Run(c, work, progress);
                 rows.AddRange(these);

@@ -36,6 +36,17 @@ public static class AccuracyRun
     public const string PublicTemplates = "/usr/share/mricron/templates";
 
     /// <summary>
+    /// Cases never looked at while the method was developed: the whole head of the same subject as ch2bet (ch2: scalp,
+    /// skull, eyes and neck around the brain, so other shapes at the ends), cut along two axes. Run them with a seed other
+    /// than the development seed (1).
+    /// </summary>
+    public static IReadOnlyList<AccuracyCase> HeldOutCases =>
+    [
+        new($"{PublicTemplates}/ch2.nii.gz", 'j'),
+        new($"{PublicTemplates}/ch2.nii.gz", 'i', BrightField: true, Bits: 16),
+    ];
+
+    /// <summary>
     /// The table's cases: a human T1 MRI of one brain (ch2bet), a macaque T1 population template (inia19-t1-brain) and a human
     /// label atlas whose structures have their own grey levels (jhu189, a stand-in for a stain that colours regions), each
     /// cut along two voxel axes; one of each pair bright-field and 16-bit.
