@@ -17,13 +17,7 @@ public sealed class BuildCommandTests : IDisposable
         try { Directory.Delete(_dir, true); } catch (IOException) { }
     }
 
-    private static (int Code, string Out, string Err) Run(params string[] args)
-    {
-        var o = new StringWriter();
-        var e = new StringWriter();
-        int code = Cli.Program.Run(args, o, e);
-        return (code, o.ToString(), e.ToString());
-    }
+    private static (int Code, string Out, string Err) Run(params string[] args) => CliRun.Run(args);
 
     /// <summary>A gray 8-bit section: bright slide, a dark disc off centre so placement can be checked.</summary>
     private string WriteSection(string folder, string name, int width, int height, int discX, int discY, byte tissue = 60)

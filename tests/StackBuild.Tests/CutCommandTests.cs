@@ -19,13 +19,7 @@ public sealed class CutCommandTests(ITestOutputHelper output) : IDisposable
         try { Directory.Delete(_dir, true); } catch (IOException) { }
     }
 
-    private static (int Code, string Out, string Err) Run(params string[] args)
-    {
-        var o = new StringWriter();
-        var e = new StringWriter();
-        int code = Cli.Program.Run(args, o, e);
-        return (code, o.ToString(), e.ToString());
-    }
+    private static (int Code, string Out, string Err) Run(params string[] args) => CliRun.Run(args);
 
     private static void NeedsVolume()
     {

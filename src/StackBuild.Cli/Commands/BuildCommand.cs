@@ -168,8 +168,8 @@ public static class BuildCommand
         o.WriteLine($"Sections {string.Join(", ", counts.OrderBy(c => c.Key).Select(c => $"{c.Value} {(c.Key == "gap" && c.Value != 1 ? "gaps" : c.Key)}"))}" +
             (filled > 0 ? $"; {filled} empty {(filled == 1 ? "plane" : "planes")} filled from their neighbours" : ""));
         // The same sections the report flags (failed ones are in the warnings below).
-        double limit = SectionFlags.DisagreementLimitUm(r);
-        var flagged = r.Sections.Where(s => s.Status != "failed").Select(s => (s.Number, Reasons: SectionFlags.Reasons(s, limit, SectionFlags.VoxelUm(r)))).Where(t => t.Reasons.Count > 0).ToList();
+        var all = SectionFlags.For(r);
+        var flagged = r.Sections.Where(s => s.Status != "failed").Select(s => (s.Number, Reasons: all[s.Number])).Where(t => t.Reasons.Count > 0).ToList();
         const int shown = 6;
         foreach (var (number, reasons) in flagged.Take(shown))
             o.WriteLine($"Check    section {number}: {string.Join("; ", reasons)}");

@@ -161,7 +161,7 @@ public static class BuildPipeline
             if (!aligned)
                 throw new InputProblemException(options.Template!.Path, "--template needs aligned sections (it cannot be combined with --no-align or used on one section)",
                     "leave out --no-align, or build without --template");
-            onTemplate = PlaceOnTemplate(template, options.Template!, series, working, chain, workUm, progress);
+            onTemplate = PlaceOnTemplate(template, options.Template!, series, working, chain, parity?.Margin, workUm, progress);
             chainBefore = onTemplate.ChainBefore;
             chain = onTemplate.Chain;
             if (onTemplate.Guide.MeasuredCount == 0)
@@ -478,7 +478,7 @@ public static class BuildPipeline
     /// (<see cref="TemplateGuide"/>). Section depth: template plane = first plane ± (position − first position) / plane spacing.
     /// </summary>
     private static TemplatePlacement PlaceOnTemplate(TemplateVolume template, TemplateOptions o, SectionSeries series, List<Working> working,
-        IReadOnlyList<ChainPlacement> chain, double workUm, IProgress<string>? progress)
+        IReadOnlyList<ChainPlacement> chain, double[]? sideMargin, double workUm, IProgress<string>? progress)
     {
         var (firstPlane, direction) = TemplateDepths(template, o, series);
         double first = series.Sections[0].PositionUm, perUm = 1 / 1000.0 / template.PlaneSpacingMm;
@@ -499,6 +499,7 @@ public static class BuildPipeline
         var guide = TemplateGuide.Place(new TemplateGuideInput(working.Select((w, n) => new TemplateGuideSection(
             z[n], w.Image, chain[n].ToReference, slices[n], PartEdge(chain, n) ? 0 : chain[n].Pair?.Confidence ?? 1, ChainFailed: chain[n].Route == LinkRoute.Failed,
             Unanchored: chain[n].Route != LinkRoute.Failed && chain[n].Part != 0,
+            SideUncertain: sideMargin is not null && sideMargin[n] < MirrorParity.UncertainMargin,
             // The link's error from its two routes' disagreement (each route errs; the difference has √2 times their spread).
             LinkErrorPx: chain[n].RouteDisagreement is double d ? d / Math.Sqrt(2) : null)).ToList()));
         var planeToWork = Transform2D.Scale(template.PixelWidthMm * 1000 / workUm, template.PixelHeightMm * 1000 / workUm);

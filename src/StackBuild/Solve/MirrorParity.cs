@@ -40,6 +40,9 @@ public static class MirrorParity
     /// </summary>
     public const double FaceDownCost = 0.02;
 
+    /// <summary>Below this margin the side of a section counts as uncertain: flagged, and decided by a template's match when there is one (this project's rule of thumb).</summary>
+    public const double UncertainMargin = 0.05;
+
     public static double Weight(int distance) => distance switch { 1 => 1.0, 2 => 0.5, _ => 0.25 };
 
     /// <summary>

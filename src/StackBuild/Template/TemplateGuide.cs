@@ -19,8 +19,11 @@ namespace StackBuild.Template;
 /// <param name="Unanchored">The chain placed the section in a part of the stack that nothing links to the reference
 /// (<paramref name="ToReference"/> holds within the part only): its template match is searched from scratch, and its part
 /// must begin a new run (a <paramref name="ChainConfidence"/> of 0 at the part's first section and after its last).</param>
+/// <param name="SideUncertain">The pairs could hardly tell which side of the section is up (a nearly symmetric end of the
+/// specimen): its template match searched from scratch decides the side when it is as good as its neighbours' and better
+/// than the match with the chain's side.</param>
 public sealed record TemplateGuideSection(double Z, GrayImage? Image, Transform2D ToReference, GrayImage? Slice, double ChainConfidence = 1,
-    bool ChainFailed = false, double? LinkErrorPx = null, bool Unanchored = false);
+    bool ChainFailed = false, double? LinkErrorPx = null, bool Unanchored = false, bool SideUncertain = false);
 
 public sealed record TemplateGuideOptions
 {
@@ -192,7 +195,7 @@ public static class TemplateGuide
         // from scratch; a match as good as its neighbours' and clearly better than the one near the chain placement
         // places it alone (a wrong mirror or turn from a torn section's weak pair registration is undone this way).
         var rescue = new TemplateMatch?[n];
-        var retry = usable.Where(i => !candidate[i] || sections[i].ChainConfidence < options.RescueChainConfidence).Concat(orphans).ToList();
+        var retry = usable.Where(i => !candidate[i] || sections[i].ChainConfidence < options.RescueChainConfidence || sections[i].SideUncertain).Concat(orphans).ToList();
         Parallel.ForEach(retry, i => rescue[i] = TemplateRegistration.Register(sections[i].Image!, sections[i].Slice!, null, options.Registration));
         // An unplaced section is judged against its neighbours' matches whichever way they were found: where the chain
         // failed over a whole stretch, the other unplaced sections' matches from scratch are its neighbours' matches.
@@ -224,9 +227,12 @@ public static class TemplateGuide
             double own = measured[i]!.Similarity;
             // Here the alternative that matters is the chain's own placement, so the margin over it is the distinctness test
             // (a nearly symmetric specimen always has the other mirror close behind in the search from scratch).
-            if (found >= options.RescueSimilarityShare * local && found >= options.RescueMargin * own)
+            // Where the pairs could not tell the side, the template's side wins whenever its match is the better one.
+            bool sideByTemplate = sections[i].SideUncertain && rescue[i]!.Mirrored != chain[i].IsMirrored && found > own;
+            if (found >= options.RescueSimilarityShare * local && (found >= options.RescueMargin * own || sideByTemplate))
                 reason[i] = $"placed by its own template match (similarity {found:0.###}, neighbours' median {local:0.###}; near the chain placement {own:0.###}" +
-                    (rescue[i]!.Mirrored != chain[i].IsMirrored ? ", mirrored against the chain" : "") + ")";
+                    (rescue[i]!.Mirrored != chain[i].IsMirrored ? ", mirrored against the chain" : "") + ")" +
+                    (sideByTemplate && found < options.RescueMargin * own ? "; its neighbours could not tell which side is up, the template decided" : "");
             else rescue[i] = null;
         }
 

@@ -15,8 +15,8 @@ public static class SectionFlags
     /// <summary>Sections whose pair confidence is below this are flagged.</summary>
     public const double LowConfidence = 0.5;
 
-    /// <summary>A section whose side margin (<see cref="SectionRecord.SideMargin"/>) is below this is flagged (this project's rule of thumb).</summary>
-    public const double UncertainSideMargin = 0.05;
+    /// <summary>A section whose side margin (<see cref="SectionRecord.SideMargin"/>) is below this is flagged.</summary>
+    public const double UncertainSideMargin = Solve.MirrorParity.UncertainMargin;
 
     /// <summary>A section whose estimated placement error is above this many output voxels is flagged.</summary>
     public const double EstimatedErrorVoxels = 2;
@@ -35,11 +35,37 @@ public static class SectionFlags
         return Math.Max(3 * median, 2.5 * Evaluate.Uncertainty.RegistrationPixelUm(record));
     }
 
-    /// <summary>The record with every section's <see cref="SectionRecord.Flags"/> filled in (the reasons below).</summary>
+    /// <summary>The record with every section's <see cref="SectionRecord.Flags"/> filled in (<see cref="For"/>).</summary>
     public static BuildRecord Annotate(BuildRecord record)
     {
+        var flags = For(record);
+        return record with { Sections = record.Sections.Select(s => s with { Flags = [.. flags[s.Number]] }).ToList() };
+    }
+
+    /// <summary>A template match weaker than this share of its neighbours' median similarity is flagged.</summary>
+    public const double WeakTemplateShare = 0.5;
+
+    /// <summary>Every section's reasons (<see cref="Reasons"/>, and a template match much weaker than its neighbours'), by number.</summary>
+    public static IReadOnlyDictionary<int, IReadOnlyList<string>> For(BuildRecord record)
+    {
         double limit = DisagreementLimitUm(record);
-        return record with { Sections = record.Sections.Select(s => s with { Flags = [.. Reasons(s, limit, VoxelUm(record))] }).ToList() };
+        double? voxel = VoxelUm(record);
+        var matched = record.Sections.Where(s => s.Template is { Matched: true, Similarity: not null }).ToList();
+        var result = new Dictionary<int, IReadOnlyList<string>>();
+        foreach (var s in record.Sections)
+        {
+            var reasons = Reasons(s, limit, voxel).ToList();
+            if (s.Status == "aligned" && s.Template is { Matched: true, Similarity: double own, PlacedByTemplate: false })
+            {
+                var near = matched.Where(o => o.Number != s.Number && Math.Abs(o.ZIndex - s.ZIndex) <= Evaluate.Uncertainty.TemplateHalfWindow)
+                    .Select(o => o.Template!.Similarity!.Value).OrderBy(v => v).ToList();
+                if (near.Count >= 3 && own < WeakTemplateShare * near[near.Count / 2])
+                    reasons.Add(string.Create(CultureInfo.InvariantCulture,
+                        $"its template match is weak (similarity {own:0.000} against its neighbours' {near[near.Count / 2]:0.000}): the template could hardly check its place"));
+            }
+            result[s.Number] = reasons;
+        }
+        return result;
     }
 
     /// <summary>The reasons (plain sentences) to look at a section; empty when there is none.</summary>
@@ -104,8 +130,8 @@ public static class BuildReport
     {
         var r = result.Record;
         var volume = result.Volume;
-        double limit = SectionFlags.DisagreementLimitUm(r);
-        var flagged = r.Sections.Select(s => (Section: s, Reasons: SectionFlags.Reasons(s, limit, SectionFlags.VoxelUm(r)))).Where(t => t.Reasons.Count > 0).ToList();
+        var all = SectionFlags.For(r);
+        var flagged = r.Sections.Select(s => (Section: s, Reasons: all[s.Number])).Where(t => t.Reasons.Count > 0).ToList();
         var placed = r.Sections.Where(s => s.Status is "aligned" or "placed").ToList();
         double minConfidence = r.Parameters.TryGetValue("min_confidence", out var mc) && double.TryParse(mc, NumberStyles.Float, Inv, out var m) ? m : 0.2;
 

@@ -1,0 +1,13 @@
+namespace StackBuild.Tests;
+
+/// <summary>Runs the command line in-process with captured output (what a user would see on stdout and stderr).</summary>
+internal static class CliRun
+{
+    public static (int Code, string Out, string Err) Run(params string[] args)
+    {
+        var o = new StringWriter();
+        var e = new StringWriter();
+        int code = Cli.Program.Run(args, o, e);
+        return (code, o.ToString(), e.ToString());
+    }
+}
