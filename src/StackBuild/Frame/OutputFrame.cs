@@ -14,7 +14,7 @@ namespace StackBuild.Frame;
 /// </remarks>
 public sealed record FrameOptions
 {
-    /// <summary>The section whose frame, as scanned, the volume takes; null = the first section matched confidently.</summary>
+    /// <summary>The section whose frame, as scanned, the volume takes; null = the confident section nearest the middle of the stack.</summary>
     public int? ReferenceSection { get; init; }
     /// <summary>Turn of the whole volume in the section plane, in degrees, clockwise as displayed (image y down).</summary>
     public double RotateDegrees { get; init; }

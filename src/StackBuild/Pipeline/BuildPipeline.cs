@@ -431,7 +431,7 @@ public static class BuildPipeline
                 ReferenceSection = working[frameIndex].Entry.Number,
                 ReferenceChosenBy = onTemplate is not null ? "the neighbour chain; the frame is the template's"
                     : options.Frame.ReferenceSection is null
-                    ? (aligned ? "the first section matched confidently to its neighbours" : "the first section")
+                    ? (aligned ? "the section nearest the middle of the stack that matched its neighbours confidently" : "the first section")
                     : "--reference",
                 FaceFlipped = faceFlipped,
                 Upright = midline is null ? null : new UprightRecord
