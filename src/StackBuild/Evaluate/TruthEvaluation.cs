@@ -64,14 +64,18 @@ public sealed record EvaluationResult(
 
 /// <summary>
 /// Compares a build's sidecar with the truth: each placed section's map truth-plane → output plane should be
-/// one and the same map for every section. That common map is fitted by least squares over all sections
-/// (a similarity transform with reflection allowed, Umeyama 1991, IEEE TPAMI 13:376), and each section's
+/// one and the same map for every section. That common map is fitted by least squares over all sections of the
+/// majority's handedness (a similarity transform with reflection allowed, Umeyama 1991, IEEE TPAMI 13:376), refitted
+/// once without the grossly misplaced ones (<see cref="GrossFactor"/>), and each section's
 /// error is measured against it. Low-frequency drift is the moving average (over
 /// <see cref="DriftWindow"/> sections) of the per-section residual displacement.
 /// </summary>
 public static class TruthEvaluation
 {
     public const int DriftWindow = 9;
+
+    /// <summary>The global fit is refitted without sections further off than GrossFactor × the median error + GrossFloorPx.</summary>
+    public const double GrossFactor = 3, GrossFloorPx = 2;
 
     public static EvaluationResult Evaluate(BuildRecord build, SeriesTruth truth)
     {
@@ -87,11 +91,22 @@ public static class TruthEvaluation
         var points = SamplePoints(truth.PlaneWidth, truth.PlaneHeight);
         // Handedness of the common map: the majority's.
         bool majorityMirrored = placed.Count(p => p.Map.IsMirrored) * 2 > placed.Count;
-        var src = new List<(double X, double Y)>();
-        var dst = new List<(double X, double Y)>();
-        foreach (var (_, map) in placed.Where(p => p.Map.IsMirrored == majorityMirrored))
-            foreach (var p in points) { src.Add(p); dst.Add(map.Apply(p.X, p.Y)); }
-        var common = FitSimilarity(src, dst, majorityMirrored);
+        Transform2D Fit(IEnumerable<Transform2D> maps)
+        {
+            var src = new List<(double X, double Y)>();
+            var dst = new List<(double X, double Y)>();
+            foreach (var map in maps)
+                foreach (var p in points) { src.Add(p); dst.Add(map.Apply(p.X, p.Y)); }
+            return FitSimilarity(src, dst, majorityMirrored);
+        }
+        var sameHand = placed.Where(p => p.Map.IsMirrored == majorityMirrored).Select(p => p.Map).ToList();
+        var common = Fit(sameHand);
+        // Refitted once without the grossly misplaced sections (more than GrossFactor × the median error + GrossFloorPx
+        // off): least squares would otherwise let a few sections a hundred pixels off shift every other section's error.
+        var first = sameHand.Select(m => MeanDistance(points, m, common)).ToList();
+        double gross = GrossFactor * Quantiles.OfSorted([.. first.Order()], 0.5) + GrossFloorPx;
+        var kept = sameHand.Where((_, i) => first[i] <= gross).ToList();
+        if (kept.Count >= 2 && kept.Count < sameHand.Count) common = Fit(kept);
         double outUm = build.VoxelSizeMm.Length > 0 ? build.VoxelSizeMm[0] * 1000 : truth.PixelSizeUm;
 
         var residuals = placed.Select(p =>
