@@ -119,7 +119,7 @@ public sealed class CutCommandTests(ITestOutputHelper output) : IDisposable
         File.WriteAllBytes(notVolume, [0x89, (byte)'P', (byte)'N', (byte)'G', 13, 10, 26, 10]);
         (code, _, stderr) = Run("cut", notVolume, Path.Combine(_dir, "y"));
         Assert.Equal(1, code);
-        Assert.Contains("scan.png", stderr);
+        Assert.Contains("scan.png: is a PNG image, not a NIfTI-1 volume", stderr);
         Assert.False(Directory.Exists(Path.Combine(_dir, "y")));
     }
 }

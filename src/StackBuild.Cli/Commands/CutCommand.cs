@@ -68,6 +68,9 @@ public static class CutCommand
 
     private static int Run(CliOutput console, string volumePath, string outDir, CutOptions options)
     {
+        VolumeCutter.Check(options);
+        if (StackBuild.Template.TemplateVolume.ImageKind(volumePath) is { } kind)
+            throw new InputProblemException(volumePath, $"is a {kind} image, not a NIfTI-1 volume", "give the volume to cut as a .nii or .nii.gz file");
         var clock = Stopwatch.StartNew();
         console.Progress($"reading {volumePath}…");
         var image = NiftiFile.Read(volumePath);

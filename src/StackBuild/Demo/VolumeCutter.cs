@@ -240,7 +240,8 @@ public static class VolumeCutter
         return JsonSerializer.Serialize(truth, new JsonSerializerOptions { WriteIndented = true }) + "\n";
     }
 
-    private static void Check(CutOptions o)
+    /// <summary>Refuses options out of range (all problems at once), before any file is read.</summary>
+    public static void Check(CutOptions o)
     {
         var problems = new List<InputProblemException>();
         void Bad(bool bad, string what, string todo) { if (bad) problems.Add(new InputProblemException(null, what, todo)); }

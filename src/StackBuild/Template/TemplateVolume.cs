@@ -59,7 +59,7 @@ public sealed class TemplateVolume
     /// <summary>Reads a NIfTI-1 volume (.nii or .nii.gz, any datatype the reader supports; the first volume of a 4D file).</summary>
     /// <exception cref="InputProblemException">The file cannot be read, or holds no usable 3D volume.</exception>
     /// <summary>"PNG", "JPEG" or "TIFF" when the file starts like one (a common mistake: a section image given as the template); else null.</summary>
-    private static string? ImageKind(string path)
+    public static string? ImageKind(string path)
     {
         try
         {
