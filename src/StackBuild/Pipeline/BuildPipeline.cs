@@ -118,8 +118,6 @@ public static class BuildPipeline
             // Which side of every section is up, decided from every pair within MirrorParity.MaxReach sections at once; each
             // pair then keeps its best hypothesis with that mirror, so one weak pair cannot turn over the sections after it.
             parity = MirrorParity.Decide(working.Count, registered);
-            if (Environment.GetEnvironmentVariable("SB_DEBUG_PAIRS") is { } dbg)
-                File.WriteAllLines(dbg, registered.OrderBy(k => k.Key).Select(kv => $"{working[kv.Key.Item1].Entry.Number} {working[kv.Key.Item2].Entry.Number} {kv.Value.NccFor(false):0.0000} {kv.Value.NccFor(true):0.0000} {kv.Value.SameMirrorRunnerUpNcc:0.0000} {kv.Value.OtherMirrorRunnerUpNcc:0.0000}"));
             var decided = parity;
             var pairs = new ConcurrentDictionary<(int, int), PairResult>(registered.Select(kv =>
                 KeyValuePair.Create(kv.Key, kv.Value.WithMirror(decided.Flipped[kv.Key.Item1] != decided.Flipped[kv.Key.Item2]))));
@@ -137,7 +135,7 @@ public static class BuildPipeline
                 smoothing = SmoothingSolver.Solve(chain.Select(c => c.Route == LinkRoute.Failed || c.Part != 0 ? (Transform2D?)null : c.ToReference).ToList(),
                     referenceIndex, observations, i => SamplePoints(working[i].Image), options.Smoothing with { MinConfidence = options.Chain.MinConfidence });
                 var solved = smoothing.ToReference;
-                chain = chain.Select((c, i) => c.Route == LinkRoute.Failed ? c : c with { ToReference = solved[i] }).ToList();
+                chain = chain.Select((c, i) => c.Route == LinkRoute.Failed || c.Part != 0 ? c : c with { ToReference = solved[i] }).ToList();
             }
         }
         else
@@ -308,7 +306,7 @@ public static class BuildPipeline
                 Part = place.Part != 0 && place.Route != LinkRoute.Failed ? place.Part : null,
                 RouteDisagreementUm = place.RouteDisagreement is { } d ? d * workUm : null,
                 RunnerUp = pair?.RunnerUp is { } ru ? new HypothesisRecord(ru.Mirrored, ru.RotationDegrees, ru.Ncc, ru.Mirrored != pair.Best.Mirrored) : null,
-                DriftCorrectionUm = smoothing is null || place.Route is LinkRoute.Failed or LinkRoute.Template ? null : smoothing.CorrectionPx[n] * workUm,
+                DriftCorrectionUm = smoothing is null || place.Route is LinkRoute.Failed or LinkRoute.Template || place.Part != 0 ? null : smoothing.CorrectionPx[n] * workUm,
                 Template = onTemplate is null ? null : TemplateRecord(onTemplate, n, workUm, working[n].Image),
                 SideMargin = parity is null || double.IsInfinity(parity.Margin[n]) ? null : Math.Round(parity.Margin[n], 4),
                 NccBefore = place.LinkedTo >= 0 && working[n].Prepared is { } a && working[place.LinkedTo].Prepared is { } b
