@@ -387,7 +387,8 @@ public static class BuildPipeline
         RoundInPlace(volume.Voxels, (float)maxValue);
 
         int failed = records.Count(r => r.Status == "failed");
-        if (failed > 0) warnings.Add($"{failed} section(s) could not be matched to a neighbour and were left out (status 'failed' in the sidecar)");
+        if (failed > 0) warnings.Add($"{failed} section(s) could not be matched to a neighbour and were left out (status 'failed' in the sidecar): " +
+            string.Join(", ", records.Where(r => r.Status == "failed").Select(r => r.Number.ToString(CultureInfo.InvariantCulture))));
 
         var sizes = affine.VoxelSizes;
         var parameters = new Dictionary<string, string>

@@ -76,11 +76,11 @@ public static class SectionFlags
         if (s.Confidence is double c && c < LowConfidence)
         {
             reasons.Add(string.Create(CultureInfo.InvariantCulture, $"low registration confidence ({c:0.00})"));
-            if (s.RunnerUp is { FlipsSide: true } ru && s.Ncc is double ncc)
+            if (s.RunnerUp is { FlipsSide: true } ru && s.Ncc is double ncc && s.Status != "failed")
                 reasons.Add(string.Create(CultureInfo.InvariantCulture,
                     $"which side is up is uncertain: the section turned over matched nearly as well (NCC {ru.Ncc:0.00} against {ncc:0.00}); check it against its neighbours"));
         }
-        if (s.SideMargin is double m && m < UncertainSideMargin && s.Status is "aligned")
+        if (s.SideMargin is double m && m < UncertainSideMargin && s.Status is "aligned" && !reasons.Any(r => r.StartsWith("which side is up", StringComparison.Ordinal)))
             reasons.Add(string.Create(CultureInfo.InvariantCulture,
                 $"which side is up is uncertain: turned over, it would match its neighbours almost as well (side margin {m:0.000}); check it against its neighbours"));
         if (s.RouteDisagreementUm is double d && d > disagreementLimitUm)
