@@ -64,7 +64,7 @@ public static class ChainSolver
         options ??= new ChainOptions();
         var placed = new ChainPlacement?[count];
         if (count == 0) return [];
-        int reference = ChooseReference(count, pair, options);
+        int reference = ChooseReference(count, pair, options) ?? 0;
         placed[reference] = new ChainPlacement(Transform2D.Identity, LinkRoute.Reference, -1, null, null);
 
         foreach (int direction in new[] { +1, -1 })
@@ -81,8 +81,8 @@ public static class ChainSolver
             bool started = false;
             foreach (var (first, last) in runs)
             {
-                int r = ChooseReference(last - first + 1, (m, f) => pair(m + first, f + first), options) + first;
-                if (!Confident(r, first, last, pair, options)) continue;
+                if (ChooseReference(last - first + 1, (m, f) => pair(m + first, f + first), options) is not int within) continue;
+                int r = within + first;
                 placed[r] = new ChainPlacement(Transform2D.Identity, LinkRoute.PartReference, -1, null, null, 0, part);
                 foreach (int direction in new[] { +1, -1 })
                     for (int i = r + direction; i >= first && i <= last; i += direction)
@@ -101,7 +101,8 @@ public static class ChainSolver
     /// the middle sections are the largest and best matched, and a reference in the middle halves the longest chain. The
     /// end sections of a specimen are small and change shape fast, the worst choice for the frame.
     /// </summary>
-    private static int ChooseReference(int count, Func<int, int, PairResult> pair, ChainOptions options)
+    /// <returns>Null when no section matches a next one confidently.</returns>
+    private static int? ChooseReference(int count, Func<int, int, PairResult> pair, ChainOptions options)
     {
         int Confident(int r)
         {
@@ -114,7 +115,7 @@ public static class ChainSolver
         foreach (int need in new[] { 2, 1 })
             foreach (int r in order.Where(r => r <= count - 1 - need))
                 if (Confident(r) >= need) return r;
-        return 0;
+        return null;
     }
 
     /// <summary>
@@ -137,15 +138,6 @@ public static class ChainSolver
             yield return (i, j);
             i = j;
         }
-    }
-
-    private static bool Confident(int r, int first, int last, Func<int, int, PairResult> pair, ChainOptions options)
-    {
-        for (int next = r + 1; next <= Math.Min(last, r + 2); next++)
-            if (pair(next, r).Confidence >= options.MinConfidence) return true;
-        for (int before = r - 1; before >= Math.Max(first, r - 2); before--)
-            if (pair(r, before).Confidence >= options.MinConfidence) return true;
-        return false;
     }
 
     private static ChainPlacement Link(int i, int direction, ChainPlacement?[] placed, Func<int, int, PairResult> pair,

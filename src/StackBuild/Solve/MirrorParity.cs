@@ -2,7 +2,7 @@ using StackBuild.Register;
 
 namespace StackBuild.Solve;
 
-/// <summary>Which sections lie turned over relative to the first, decided for the whole stack at once.</summary>
+/// <summary>Which sections lie face down, decided for the whole stack at once.</summary>
 /// <param name="Flipped">Per section (stack order): true when it lies face down (mirrored).</param>
 /// <param name="Margin">
 /// Per section: how much the decision's score (weighted Fisher z of the pairs' NCC, and the face-up prior) would drop if this
@@ -27,12 +27,6 @@ public static class MirrorParity
     public const int MaxReach = 3;
 
     /// <summary>
-    /// Weight of a pair <paramref name="distance"/> sections apart: 1, 0.5, 0.25. Nearer pairs look more alike and their
-    /// mirror evidence is more often right: on the tuning series (macaque template inia19, coronal, docs/accuracy.md)
-    /// the NCC lead of the right mirror was positive for most nearest pairs but about as often negative as positive for
-    /// pairs two and three sections apart; equal weights turned a block of 24 sections over there, these turned 3.
-    /// </summary>
-    /// <summary>
     /// The prior that a section was mounted face up (most are; common practice): each section decided face down costs this
     /// much evidence (weighted Fisher z). Where the pairs cannot tell (a nearly symmetric end of the specimen, a stretch
     /// linked to the rest only across a lost section) the decision falls to face up instead of to chance. 0.02 lies in the
@@ -43,6 +37,12 @@ public static class MirrorParity
     /// <summary>Below this margin the side of a section counts as uncertain: flagged, and decided by a template's match when there is one (this project's rule of thumb).</summary>
     public const double UncertainMargin = 0.05;
 
+    /// <summary>
+    /// Weight of a pair <paramref name="distance"/> sections apart: 1, 0.5, 0.25. Nearer pairs look more alike and their
+    /// mirror evidence is more often right: on the tuning series (macaque template inia19, coronal, docs/accuracy.md)
+    /// the NCC lead of the right mirror was positive for most nearest pairs but about as often negative as positive for
+    /// pairs two and three sections apart; equal weights turned a block of 24 sections over there, these turned 3.
+    /// </summary>
     public static double Weight(int distance) => distance switch { 1 => 1.0, 2 => 0.5, _ => 0.25 };
 
     /// <summary>
@@ -51,13 +51,13 @@ public static class MirrorParity
     /// </summary>
     public static double Evidence(double ncc) => Math.Atanh(Math.Clamp(ncc, -0.999, 0.999));
 
+    private static double Score(double ncc) => double.IsNegativeInfinity(ncc) ? ncc : Evidence(ncc);
+
     /// <summary>
     /// <paramref name="pairs"/>: (moving, fixed) → result, moving &gt; fixed, stack positions. A pair whose other mirror
     /// was not tried (the manifest said how both were mounted) forces its relative mirror. A pair whose both sides
     /// score below 0.1 NCC says nothing.
     /// </summary>
-    private static double Score(double ncc) => double.IsNegativeInfinity(ncc) ? ncc : Evidence(ncc);
-
     public static ParityResult Decide(int count, IReadOnlyDictionary<(int Moving, int Fixed), PairResult> pairs)
     {
         if (count == 0) return new ParityResult([], [], []);
@@ -73,7 +73,7 @@ public static class MirrorParity
         }
         int k = Math.Min(MaxReach, count - 1); // sides remembered: the last k sections
         int states = 1 << Math.Max(k, 0);
-        // State after position i: bits b = side of sections i, i−1, …, i−k+1 (bit 0 = section i). Section 0 is face up (side 0).
+        // State after position i: bits b = side of sections i, i−1, …, i−k+1 (bit 0 = section i; 1 = face down).
         var best = new double[states];
         Array.Fill(best, double.NegativeInfinity);
         best[0] = 0;

@@ -171,6 +171,8 @@ public static class TemplateGuide
             deviationDeg[i] = Math.Abs(angle[i] - mac);
         }
         var devs = usable.Where(i => candidate[i]).ToList();
+        // Each chain link's likely error (working pixels at the corners, and as a turn in degrees); null when the chain gave none.
+        var (linkPx, linkDeg) = sections.Any(x => x.LinkErrorPx is not null) ? LinkSteps(sections) : (null, null);
         if (devs.Count >= 3)
         {
             double madPx = 1.4826 * Median(devs.Select(i => deviationPx[i]!.Value));
@@ -178,13 +180,11 @@ public static class TemplateGuide
             double limitPx = Math.Max(options.OutlierMads * madPx, options.OutlierFloorPx), limitDeg = Math.Max(options.OutlierMads * madDeg, options.OutlierFloorDegrees);
             // Where the chain link itself is loose (the small, fast-changing end sections), a template match may differ from
             // the neighbours' course by as much as the link may be off: the limit grows to twice the link's error there.
-            var loose = LinkSteps(sections, n);
             foreach (int i in devs)
             {
-                double looseLimitPx = sections[i].LinkErrorPx is null ? limitPx : Math.Max(limitPx, 2 * loose[i]);
-                var im = sections[i].Image!;
-                double looseLimitDeg = sections[i].LinkErrorPx is null ? limitDeg
-                    : Math.Max(limitDeg, 2 * loose[i] / (0.5 * double.Hypot(im.Width, im.Height)) * 180 / Math.PI);
+                bool known = linkPx is not null && sections[i].LinkErrorPx is not null;
+                double looseLimitPx = known ? Math.Max(limitPx, 2 * linkPx![i]) : limitPx;
+                double looseLimitDeg = known ? Math.Max(limitDeg, 2 * linkDeg![i]) : limitDeg;
                 if (deviationPx[i] > looseLimitPx) reason[i] = $"{deviationPx[i]:0.#} px away from where its neighbours' template matches put it; at most {looseLimitPx:0.#} px accepted";
                 else if (deviationDeg[i] > looseLimitDeg) reason[i] = $"turned {deviationDeg[i]:0.#}° against its neighbours' template matches; at most {looseLimitDeg:0.#}° accepted";
                 if (reason[i] != null) candidate[i] = false;
@@ -239,28 +239,17 @@ public static class TemplateGuide
         // (d) Fuse: the smoothed correction applied to the chain placement.
         var weight = new double[n];
         foreach (int i in usable) if (candidate[i] && rescue[i] is null) weight[i] = 1;
-        double[] sa, sx, sy;
-        if (sections.Any(x => x.LinkErrorPx is not null))
+        var sa = Smooth(angle, weight, segment, half); var sx = Smooth(dx, weight, segment, half); var sy = Smooth(dy, weight, segment, half);
+        if (linkPx is not null && linkDeg is not null)
         {
             // Each link's error as a random step of the correction (shift at the section centre, turn about it), each template
-            // match as a noisy look at it: the optimal course for that model (Rauch, Tung & Striebel 1965).
-            var linkPx = LinkSteps(sections, n);
-            var linkDeg = new double[n];
-            for (int i = 0; i < n; i++)
-            {
-                var im = sections[i].Image;
-                double corner = im is null ? 1 : 0.5 * double.Hypot(im.Width, im.Height);
-                linkDeg[i] = double.IsPositiveInfinity(linkPx[i]) ? linkPx[i] : linkPx[i] / corner * 180 / Math.PI;
-            }
-            for (int i = 1; i < n; i++) if (segment[i] != segment[i - 1]) { linkPx[i] = double.PositiveInfinity; linkDeg[i] = double.PositiveInfinity; }
-            var wa = Smooth(angle, weight, segment, half); var wx = Smooth(dx, weight, segment, half); var wy = Smooth(dy, weight, segment, half);
-            sa = CourseSmoother.Smooth(angle, weight, linkDeg, CourseSmoother.NoiseVariance(angle, wa, weight, MinDegrees), MinDegrees);
-            sx = CourseSmoother.Smooth(dx, weight, linkPx, CourseSmoother.NoiseVariance(dx, wx, weight, MinPx), MinPx);
-            sy = CourseSmoother.Smooth(dy, weight, linkPx, CourseSmoother.NoiseVariance(dy, wy, weight, MinPx), MinPx);
-        }
-        else
-        {
-            sa = Smooth(angle, weight, segment, half); sx = Smooth(dx, weight, segment, half); sy = Smooth(dy, weight, segment, half);
+            // match as a noisy look at it: the optimal course for that model (Rauch, Tung & Striebel 1965). The window smooth
+            // above serves to measure the matches' noise; a new segment starts afresh.
+            var stepPx = (double[])linkPx.Clone(); var stepDeg = (double[])linkDeg.Clone();
+            for (int i = 1; i < n; i++) if (segment[i] != segment[i - 1]) stepPx[i] = stepDeg[i] = double.PositiveInfinity;
+            sa = CourseSmoother.Smooth(angle, weight, stepDeg, CourseSmoother.NoiseVariance(angle, sa, weight, MinDegrees), MinDegrees);
+            sx = CourseSmoother.Smooth(dx, weight, stepPx, CourseSmoother.NoiseVariance(dx, sx, weight, MinPx), MinPx);
+            sy = CourseSmoother.Smooth(dy, weight, stepPx, CourseSmoother.NoiseVariance(dy, sy, weight, MinPx), MinPx);
         }
         var result = new TemplateSectionPlacement[n];
         for (int i = 0; i < n; i++)
@@ -434,15 +423,24 @@ public static class TemplateGuide
     /// <summary>Smallest chain link error assumed (working pixels; degrees): no link is perfect.</summary>
     private const double MinPx = 0.1, MinDegrees = 0.02;
 
-    /// <summary>Each section's link error (working pixels); unknown ones take the median of the known; the first has none (∞: a fresh start).</summary>
-    private static double[] LinkSteps(IReadOnlyList<TemplateGuideSection> sections, int n)
+    /// <summary>
+    /// Each section's link error in working pixels at the image corners, and as a turn in degrees (that distance over the
+    /// corner radius); unknown ones take the median of the known; the first section has none (∞: a fresh start).
+    /// </summary>
+    private static (double[] Px, double[] Degrees) LinkSteps(IReadOnlyList<TemplateGuideSection> sections)
     {
+        int n = sections.Count;
         var known = sections.Where(x => x.LinkErrorPx is double v && double.IsFinite(v)).Select(x => x.LinkErrorPx!.Value).ToList();
         double typical = known.Count > 0 ? Median(known) : 1;
-        var step = new double[n];
-        for (int i = 0; i < n; i++) step[i] = Math.Max(MinPx, sections[i].LinkErrorPx is double v && double.IsFinite(v) ? v : typical);
-        if (n > 0) step[0] = double.PositiveInfinity;
-        return step;
+        var px = new double[n];
+        var degrees = new double[n];
+        for (int i = 0; i < n; i++)
+        {
+            px[i] = i == 0 ? double.PositiveInfinity : Math.Max(MinPx, sections[i].LinkErrorPx is double v && double.IsFinite(v) ? v : typical);
+            double corner = sections[i].Image is { } im ? 0.5 * double.Hypot(im.Width, im.Height) : 1;
+            degrees[i] = double.IsPositiveInfinity(px[i]) ? px[i] : px[i] / corner * 180 / Math.PI;
+        }
+        return (px, degrees);
     }
 
     private static double AngleDifference(double a, double b)
