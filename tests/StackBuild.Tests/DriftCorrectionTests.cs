@@ -61,7 +61,12 @@ public sealed class DriftCorrectionTests(DriftBuilds builds, ITestOutputHelper o
         output.WriteLine($"solved: drift rms {solved.DriftRmsPx:0.###} px, max {solved.DriftMaxPx:0.###}; error median {solved.ErrorPx.Median:0.###}; pair median {solved.PairErrorPx.Median:0.###}");
         Assert.Equal(chain.Evaluated, solved.Evaluated);
         output.WriteLine($"route closures: slow share {builds.Solved.Record.Parameters["route_closure_slow_share"]}, second-neighbour weight {builds.Solved.Record.Parameters["second_neighbour_weight"]}");
-        Assert.Equal("0.01", builds.Solved.Record.Parameters["second_neighbour_weight"]);
+        // The second-neighbour pairs are weighted down exactly when the closures say they are biased. Since pairs are
+        // polished by NCC (2026-12-03) they are not on the demo (slow share 0.09 against the limit 0.32): full weight.
+        var closure = builds.Solved.Record.Parameters["route_closure_slow_share"].Split(", limit ");
+        double share = double.Parse(closure[0], System.Globalization.CultureInfo.InvariantCulture);
+        double limit = double.Parse(closure[1], System.Globalization.CultureInfo.InvariantCulture);
+        Assert.Equal(share > limit ? "0.01" : "1", builds.Solved.Record.Parameters["second_neighbour_weight"]);
         Assert.True(solved.DriftRmsPx <= 1.05 * chain.DriftRmsPx, $"solved drift {solved.DriftRmsPx} px, chain {chain.DriftRmsPx} px");
         // The largest drift gets 10 %: since the chain's reference moved from the first section to the middle of the stack
         // (2026-12-03) the chain drifts a little less (rms 2.66 → 2.61 px, largest 4.05 px), while the solve, which does not
@@ -103,12 +108,14 @@ public sealed class DriftCorrectionTests(DriftBuilds builds, ITestOutputHelper o
         Assert.True(guided.PairErrorPx.Median <= chain.PairErrorPx.Median + 0.2, $"pairwise median {guided.PairErrorPx.Median} vs {chain.PairErrorPx.Median}");
         // The curved tube's course is kept because every section is where the truth put it: no section off by more than 2 px.
         Assert.True(guided.ErrorPx.Max <= 2, $"largest placement error {guided.ErrorPx.Max} px");
-        // Pinned as measured (2026-12-02), a known limit: the torn section 4, mirrored wrong by the chain, is not placed by
-        // its template match (1.06 times the match near the chain, 1.1 needed; the phantom is nearly symmetric), so it
-        // stays mirror-wrong and flagged. If this changes, update docs/drift-and-frame.md.
+        // Pinned as measured (2026-12-03, after pairs are polished by NCC), a known limit: the torn section 4 stays the
+        // wrong side up (the phantom is nearly symmetric and the torn piece changes its outline); its template match now
+        // agrees with the chain's placement, so it is no outlier, but it is flagged. If this changes, update
+        // docs/drift-and-frame.md.
         var torn = builds.Guided.Record.Sections.Single(s => s.Number == 4);
-        Assert.False(torn.Template!.PlacedByTemplate);
-        Assert.NotNull(torn.Template.Outlier);
+        output.WriteLine($"torn section 4: placed by template {torn.Template!.PlacedByTemplate}, outlier {torn.Template.Outlier}, mirrored {torn.Mirrored}; mirror wrong {guided.MirrorWrong}");
+        Assert.False(torn.Template.PlacedByTemplate);
+        Assert.NotEmpty(Write.SectionFlags.For(builds.Guided.Record)[4]);
         Assert.Equal(1, guided.MirrorWrong);
 
         // The error estimate follows the template: the median estimate is within a factor of 3 of the true median error

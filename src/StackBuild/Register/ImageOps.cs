@@ -149,14 +149,19 @@ internal static class ImageOps
                 if (sx > -1 && sy > -1 && sx < n && sy < n)
                 {
                     int x0 = (int)Math.Floor(sx), y0 = (int)Math.Floor(sy);
-                    float tx = (float)(sx - x0), ty = (float)(sy - y0);
-                    float a = At(source, n, x0, y0), b = At(source, n, x0 + 1, y0);
-                    float c = At(source, n, x0, y0 + 1), d = At(source, n, x0 + 1, y0 + 1);
-                    v = (a + (b - a) * tx) * (1 - ty) + (c + (d - c) * tx) * ty;
+                    v = Bilinear(source, n, x0, y0, (float)(sx - x0), (float)(sy - y0));
                 }
                 output[y * n + x] = v;
             }
         }
+    }
+
+    /// <summary>Bilinear sample of an n×n image at (x0 + tx, y0 + ty), 0 outside.</summary>
+    internal static float Bilinear(ReadOnlySpan<float> s, int n, int x0, int y0, float tx, float ty)
+    {
+        float a = At(s, n, x0, y0), b = At(s, n, x0 + 1, y0);
+        float c = At(s, n, x0, y0 + 1), d = At(s, n, x0 + 1, y0 + 1);
+        return (a + (b - a) * tx) * (1 - ty) + (c + (d - c) * tx) * ty;
     }
 
     private static float At(ReadOnlySpan<float> s, int n, int x, int y) =>

@@ -73,6 +73,10 @@ internal sealed class SectionCanvas
     public Complex32[] Spectrum { get; }
     public PolarSpectrum Polar { get; }
     public float[] Window { get; }
+    /// <summary>Bounding box (inclusive) of the canvas pixels whose soft mask is above 0.5; (n, n, −1, −1) when there are none.</summary>
+    public (int X0, int Y0, int X1, int Y1) MaskBox { get; }
+    /// <summary>Largest distance of such a pixel from the canvas centre (0 when there are none).</summary>
+    public double TissueRadius { get; }
 
     public SectionCanvas(PreparedSection section, int size)
     {
@@ -84,6 +88,7 @@ internal sealed class SectionCanvas
         var soft = Preprocessing.Feather(section.TissueMask, work.Width, work.Height);
         Image = Place(work.Pixels, work.Width, work.Height, ox, oy, size);
         SoftMask = Place(soft, work.Width, work.Height, ox, oy, size);
+        (MaskBox, TissueRadius) = Extent(SoftMask, size, Centre);
         Signal = section.UsesForegroundMask ? Image.Select((v, i) => v * SoftMask[i]).ToArray() : Image;
         Window = RadialWindow(size);
         var fft = Fft2D.Create(size, size);
@@ -119,6 +124,20 @@ internal sealed class SectionCanvas
             w[y * n + x] = (float)PhaseCorrelation.TukeyTaper(1 - r, 0.25);
         }
         return w;
+    }
+
+    private static ((int, int, int, int) Box, double Radius) Extent(float[] mask, int n, double centre)
+    {
+        int x0 = n, y0 = n, x1 = -1, y1 = -1;
+        double r2 = 0;
+        for (int y = 0; y < n; y++)
+        for (int x = 0; x < n; x++)
+        {
+            if (mask[y * n + x] <= 0.5f) continue;
+            x0 = Math.Min(x0, x); x1 = Math.Max(x1, x); y0 = Math.Min(y0, y); y1 = Math.Max(y1, y);
+            r2 = Math.Max(r2, (x - centre) * (x - centre) + (y - centre) * (y - centre));
+        }
+        return ((x0, y0, x1, y1), Math.Sqrt(r2));
     }
 
     private static (double X, double Y) Centroid(bool[] mask, int w, int h)

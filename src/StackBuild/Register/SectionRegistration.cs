@@ -144,7 +144,7 @@ public static class SectionRegistration
         foreach (bool mirrored in mirrors)
         {
             var first = coarse.First(e => e.Mirrored == mirrored);
-            var refined = engine.Refine(first, step, options.AngleTolerance, options.UpsampleFactor);
+            var refined = engine.Polish(engine.Refine(first, step, options.AngleTolerance, options.UpsampleFactor));
             var second = coarse.FirstOrDefault(e => e.Mirrored == mirrored && IsDistinct(e, refined));
             perMirror.Add((ToHypothesis(refined, fixedCanvas, movingCanvas), second?.Ncc, second));
         }
@@ -154,6 +154,7 @@ public static class SectionRegistration
         if (sameRunnerUp is not null)
         {
             var refinedSame = engine.Refine(sameRunnerUp, step, options.AngleTolerance, options.UpsampleFactor);
+            if (refinedSame.Ncc > bestHypothesis.Ncc) refinedSame = engine.Polish(refinedSame);
             sameRunnerUpNcc = refinedSame.Ncc;
             if (refinedSame.Ncc > bestHypothesis.Ncc)
             {
