@@ -177,13 +177,16 @@ public static class ResliceCommand
 /// <summary>Reads the volume a command was given (the first volume of a 4D file, saying so).</summary>
 internal static class VolumeInput
 {
-    public static Volume Load(string path, TextWriter notes)
+    public static Volume Load(string path, TextWriter notes) => LoadWithHeader(path, notes).Volume;
+
+    /// <summary>As <see cref="Load"/>, with the file's header (its datatype and intent).</summary>
+    public static (Volume Volume, NiftiHeader Header) LoadWithHeader(string path, TextWriter notes)
     {
         if (!File.Exists(path))
             throw new InputProblemException(path, "no such file", "check the path to the NIfTI volume (.nii or .nii.gz)");
         var image = NiftiFile.Read(path);
         if (image.VolumeCount > 1)
             notes.WriteLine($"note: {path} holds {image.VolumeCount} volumes; using the first");
-        return image.ToVolume();
+        return (image.ToVolume(), image.Header);
     }
 }
