@@ -1,4 +1,5 @@
 using StackBuild.Imaging;
+using StackBuild.IO;
 using StackBuild.Reslice;
 
 namespace StackBuild.Viewer;
@@ -36,7 +37,42 @@ public sealed record ViewerOverlay(Volume Volume, string Name, bool Labels)
 /// <param name="PlaneIndex">The plane k (voxel index along the stack).</param>
 /// <param name="Number">The section number.</param>
 /// <param name="Status">aligned, placed, gap, excluded or failed, with ", filled" when the plane was interpolated.</param>
-public sealed record ViewerSection(int PlaneIndex, int Number, string Status);
+public sealed record ViewerSection(int PlaneIndex, int Number, string Status)
+{
+    /// <summary>
+    /// The series' sections by plane, from the build's sidecar beside the volume (OUT.json for OUT.nii.gz) when there is
+    /// one that describes this volume's grid; otherwise null (the page then shows plane indices only).
+    /// </summary>
+    public static IReadOnlyList<ViewerSection>? FromSidecar(string volumePath, Volume volume, TextWriter notes)
+    {
+        string sidecar;
+        try { sidecar = StackBuild.Write.BuildOutputPaths.For(volumePath).Sidecar; }
+        catch (InputProblemException) { return null; }
+        if (!File.Exists(sidecar)) return null;
+        StackBuild.Pipeline.BuildRecord? record;
+        try { record = System.Text.Json.JsonSerializer.Deserialize<StackBuild.Pipeline.BuildRecord>(File.ReadAllText(sidecar)); }
+        catch (Exception e) when (e is System.Text.Json.JsonException or IOException or UnauthorizedAccessException)
+        {
+            notes.WriteLine($"note: {sidecar}: not read as this volume's sidecar ({e.Message.Split('\n')[0]}); section numbers are not shown");
+            return null;
+        }
+        if (record is null || !record.Dimensions.SequenceEqual(new[] { volume.Nx, volume.Ny, volume.Nz }))
+        {
+            notes.WriteLine($"note: {sidecar} describes another grid than {volumePath}; section numbers are not shown");
+            return null;
+        }
+        var planes = new List<ViewerSection>();
+        foreach (var s in record.Sections)
+        {
+            // With --voxel-size a section lies at a fractional plane; only a plane that is the section itself is named by it.
+            double z = s.VolumeZ ?? s.ZIndex;
+            int k = (int)Math.Round(z);
+            if (Math.Abs(z - k) > 0.01 || k < 0 || k >= volume.Nz) continue;
+            planes.Add(new ViewerSection(k, s.Number, s.Filled is null ? s.Status : $"{s.Status}, filled"));
+        }
+        return planes;
+    }
+}
 
 /// <summary>What a viewer shows besides its main volume.</summary>
 public sealed record ViewerOptions

@@ -44,3 +44,29 @@ public sealed class ViewerCommandTests : IDisposable
         Assert.True(ViewerOverlay.LooksLikeLabels(image, integerStorage: false, intentCode: 1002)); // NIFTI_INTENT_LABEL (nifti1.h)
     }
 }
+
+/// <summary>The viewer names the section at each plane from the build's sidecar beside the volume.</summary>
+public sealed class ViewerSidecarTests(BuildReportFixture fixture) : IClassFixture<BuildReportFixture>
+{
+    [Fact]
+    public void SectionNumbersComeFromTheSidecarBesideTheVolume()
+    {
+        var volume = StackBuild.Nifti.NiftiFile.Read(fixture.Paths.Volume).ToVolume();
+        var notes = new StringWriter();
+        var sections = ViewerSection.FromSidecar(fixture.Paths.Volume, volume, notes);
+        Assert.NotNull(sections);
+        // Read the sidecar as plain JSON (its documented fields: number, status, z_index, filled), not through BuildRecord.
+        using var json = System.Text.Json.JsonDocument.Parse(File.ReadAllText(fixture.Paths.Sidecar));
+        var expected = json.RootElement.GetProperty("sections").EnumerateArray().Select(s => (
+            K: s.GetProperty("z_index").GetInt32(), Number: s.GetProperty("number").GetInt32(),
+            Status: s.GetProperty("status").GetString() + (s.TryGetProperty("filled", out var f) && f.ValueKind == System.Text.Json.JsonValueKind.String ? ", filled" : ""))).ToList();
+        Assert.Equal(expected, sections!.Select(s => (s.PlaneIndex, s.Number, s.Status)).ToList());
+        Assert.Contains(sections!, s => s.Status.StartsWith("gap", StringComparison.Ordinal)); // gaps are named too
+        Assert.Equal("", notes.ToString());
+
+        // A volume of another grid next to that sidecar: no numbers, and a note saying why.
+        var other = new Volume(volume.Nx + 1, volume.Ny, volume.Nz, volume.Affine);
+        Assert.Null(ViewerSection.FromSidecar(fixture.Paths.Volume, other, notes));
+        Assert.Contains("another grid", notes.ToString());
+    }
+}

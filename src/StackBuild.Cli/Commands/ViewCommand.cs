@@ -52,7 +52,7 @@ public static class ViewCommand
                 bool asLabels = forceLabels || ViewerOverlay.LooksLikeLabels(other, header.DataType is StackBuild.Nifti.NiftiDataType.UInt8 or StackBuild.Nifti.NiftiDataType.Int8 or StackBuild.Nifti.NiftiDataType.Int16 or StackBuild.Nifti.NiftiDataType.UInt16 or StackBuild.Nifti.NiftiDataType.Int32, header.IntentCode);
                 overlays.Add(new ViewerOverlay(other, Path.GetFileName(file), asLabels));
             }
-            var sections = SidecarSections(path, volume, console.Error);
+            var sections = ViewerSection.FromSidecar(path, volume, console.Error);
             if (!IPAddress.IsLoopback(address))
                 console.Error.WriteLine($"warning: listening on {address}: anyone who can reach this computer can see this volume");
             ViewerServer server;
@@ -79,39 +79,5 @@ public static class ViewCommand
             return CliOutput.ExitOk;
         })));
         return command;
-    }
-
-    /// <summary>
-    /// The series' sections by plane, from the build's sidecar beside the volume (OUT.json for OUT.nii.gz) when there is
-    /// one that describes this volume's grid; otherwise null (the page then shows plane indices only).
-    /// </summary>
-    internal static IReadOnlyList<ViewerSection>? SidecarSections(string volumePath, StackBuild.Imaging.Volume volume, TextWriter notes)
-    {
-        string sidecar;
-        try { sidecar = StackBuild.Write.BuildOutputPaths.For(volumePath).Sidecar; }
-        catch (InputProblemException) { return null; }
-        if (!File.Exists(sidecar)) return null;
-        StackBuild.Pipeline.BuildRecord? record;
-        try { record = System.Text.Json.JsonSerializer.Deserialize<StackBuild.Pipeline.BuildRecord>(File.ReadAllText(sidecar)); }
-        catch (Exception e) when (e is System.Text.Json.JsonException or IOException or UnauthorizedAccessException)
-        {
-            notes.WriteLine($"note: {sidecar}: not read as this volume's sidecar ({e.Message.Split('\n')[0]}); section numbers are not shown");
-            return null;
-        }
-        if (record is null || !record.Dimensions.SequenceEqual(new[] { volume.Nx, volume.Ny, volume.Nz }))
-        {
-            notes.WriteLine($"note: {sidecar} describes another grid than {volumePath}; section numbers are not shown");
-            return null;
-        }
-        var planes = new List<ViewerSection>();
-        foreach (var s in record.Sections)
-        {
-            // With --voxel-size a section lies at a fractional plane; only a plane that is the section itself is named by it.
-            double z = s.VolumeZ ?? s.ZIndex;
-            int k = (int)Math.Round(z);
-            if (Math.Abs(z - k) > 0.01 || k < 0 || k >= volume.Nz) continue;
-            planes.Add(new ViewerSection(k, s.Number, s.Filled is null ? s.Status : $"{s.Status}, filled"));
-        }
-        return planes;
     }
 }
