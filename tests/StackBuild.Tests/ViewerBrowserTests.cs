@@ -144,6 +144,30 @@ public class ViewerBrowserTests(ITestOutputHelper output)
             cursor = await CursorAsync(page);
             Assert.Equal([31, 22, 4], cursor);
             await AssertAxisPlanesMatchNibabelAsync(page, path, cursor, 0, 255);
+
+            // "Save plane as PNG" saves the chosen (i–k) plane enlarged, with margins for letters and the scale bar:
+            // every enlarged pixel is nibabel's value.
+            var download = await page.RunAndWaitForDownloadAsync(() => page.Locator("#snapshot").ClickAsync());
+            Assert.Equal("phantom-ik.png", download.SuggestedFilename);
+            var saved = Path.Combine(Path.GetDirectoryName(path)!, "saved.png");
+            await download.SaveAsAsync(saved);
+            var ik = JsonDocument.Parse(NiftiPython.Run("nibabel_planes.py", path, "31", "22", "4", "0", "255")).RootElement.GetProperty("ik");
+            int width = ik.GetProperty("width").GetInt32(), height = ik.GetProperty("height").GetInt32();
+            var layout = FigureLayout.For(width, height);
+            var expectedGray = ik.GetProperty("gray").EnumerateArray().Select(v => v.GetInt32()).ToArray();
+            using (var figure = Image.Load<Rgb24>(saved))
+            {
+                Assert.Equal((layout.FigureWidth(width), layout.FigureHeight(height)), (figure.Width, figure.Height));
+                int wrong = 0;
+                for (int y = 0; y < height; y++)
+                for (int x = 0; x < width; x++)
+                {
+                    var c = figure[layout.Margin + x * layout.Zoom + layout.Zoom / 2, layout.Margin + y * layout.Zoom + layout.Zoom / 2];
+                    int v = expectedGray[y * width + x];
+                    if (c.R != v || c.G != v || c.B != v) wrong++;
+                }
+                Assert.Equal(0, wrong);
+            }
             await session.ScreenshotAsync("viewer-planes.png", output);
             session.AssertNoErrors();
         });

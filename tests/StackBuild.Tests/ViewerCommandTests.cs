@@ -6,11 +6,9 @@ using Xunit;
 namespace StackBuild.Tests;
 
 /// <summary><c>stackbuild view --overlay/--labels</c>: bad overlay files are one-line errors; which overlays are taken for labels.</summary>
-public sealed class ViewerCommandTests : IDisposable
+public sealed class ViewerCommandTests(NiftiTempFolder temp) : IClassFixture<NiftiTempFolder>
 {
-    private readonly string _folder = Directory.CreateTempSubdirectory("stackbuild-view-").FullName;
-
-    public void Dispose() => Directory.Delete(_folder, recursive: true);
+    private readonly string _folder = temp.Path;
 
     [Theory]
     [InlineData("--overlay", "absent.nii.gz", "no such file")]

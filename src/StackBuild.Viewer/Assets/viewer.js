@@ -640,10 +640,11 @@ async function snapshot() {
   const g = tile.geometry;
   if (!g) return;
   const zoom = Math.max(1, Math.round(600 / Math.max(g.width, g.height)));
+  // The same layout as stackbuild reslice --figure: a 28-pixel margin for the letters, 26 more below for the scale bar.
   const pad = 28, w = g.width * zoom, h = g.height * zoom;
   const canvas = document.createElement("canvas");
   canvas.width = w + 2 * pad;
-  canvas.height = h + 2 * pad + 24;
+  canvas.height = h + 2 * pad + 26;
   const ctx = canvas.getContext("2d");
   ctx.fillStyle = "#141318";
   ctx.fillRect(0, 0, canvas.width, canvas.height);
@@ -668,7 +669,7 @@ async function snapshot() {
   const target = w / 5 * mmPerPx;
   const power = Math.pow(10, Math.floor(Math.log10(target)));
   const mm = [5, 2, 1].map((m) => m * power).find((m) => m <= target) || power;
-  const barY = pad + h + pad + 8;
+  const barY = pad + h + pad + 11;
   ctx.fillRect(pad, barY - 2, mm / mmPerPx, 4);
   ctx.textAlign = "left";
   ctx.font = "12px DejaVu Sans, sans-serif";

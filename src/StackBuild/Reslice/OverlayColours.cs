@@ -2,15 +2,15 @@ using SixLabors.ImageSharp;
 using SixLabors.ImageSharp.Formats.Png;
 using SixLabors.ImageSharp.PixelFormats;
 using StackBuild.Imaging;
-using StackBuild.Reslice;
 
-namespace StackBuild.Viewer;
+namespace StackBuild.Reslice;
 
 /// <summary>
-/// An overlay plane as colour with transparency. Pixels outside the overlay's grid (NaN) are transparent. The page
-/// sets each layer's opacity; these images carry only what the layer shows where.
+/// An overlay plane as colour with transparency (the viewer's layers and <c>stackbuild reslice --overlay</c> share
+/// these). Pixels outside the overlay's grid (NaN) are transparent. Each layer's opacity is applied when the layers are
+/// composed (<see cref="PlaneFigure"/>, or the page); these images carry only what the layer shows where.
 /// </summary>
-internal static class OverlayColours
+public static class OverlayColours
 {
     /// <summary>
     /// Intensities in one colour: the colour of <paramref name="hue"/> everywhere, with the windowed value (0–255,
@@ -82,6 +82,9 @@ internal static class OverlayColours
             CompressionLevel = PngCompressionLevel.BestSpeed, ChunkFilter = PngChunkFilter.ExcludeAll,
         });
     }
+
+    /// <summary>The colours given to intensity overlays in order (hue in degrees): amber, green, cyan, blue, magenta, red.</summary>
+    public static IReadOnlyList<int> Hues { get; } = [32, 130, 188, 222, 300, 0];
 
     private static (byte R, byte G, byte B) Hsl(double hue, double saturation, double lightness)
     {
