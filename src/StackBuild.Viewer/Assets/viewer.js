@@ -174,7 +174,9 @@ function buildTiles() {
       const li = document.createElement("img");
       li.className = "layer";
       li.id = `layer-${t.id}-${n}`;
-      li.alt = `${o.name} on the ${t.name.toLowerCase()}`;
+      li.alt = ""; // decorative: the read-out names the layer's value under the cursor
+      li.setAttribute("aria-hidden", "true");
+      li.dataset.layer = o.name;
       el.querySelector(".layer-stack").append(li);
       tile.layers.push({ img: li, loader: makeLoader(li, "api/overlay.png", null) });
     });
