@@ -129,6 +129,14 @@ public class ViewerBrowserTests(ITestOutputHelper output)
             Assert.Equal("31,15", await page.Locator("#tile-ik").GetAttributeAsync("data-cursor-pixel"));      // i across, k down
             Assert.Equal("9,15", await page.Locator("#tile-jk").GetAttributeAsync("data-cursor-pixel"));       // j across, k down
 
+            // "Through cursor" moves the oblique plane along its depth onto the cursor's voxel centre.
+            await page.Locator("#through-cursor").ClickAsync();
+            await WaitUntilShownAsync(page);
+            var moved = PlaneOf(await GeometryAsync(page, "oblique"));
+            var (cx, cy, cz) = volume.Affine.Apply(31, 9, 15);
+            double off = (new Vector3D(cx, cy, cz) - moved.Centre).Dot(moved.Normal);
+            Assert.True(Math.Abs(off) < 1e-4, $"the oblique plane passes {off} mm from the cursor");
+
             // A click on the j–k plane moves i's neighbours: the cursor takes j and k from the click.
             await ClickPixelAsync(page, "jk", 20, 4);
             await WaitUntilShownAsync(page);
@@ -207,6 +215,11 @@ public class ViewerBrowserTests(ITestOutputHelper output)
             Assert.Equal([7, 17, 21], cursor); // the i–k plane at j = 34 / 2 was clicked at (i 7, k 21)
             // What the reopened page shows, against nibabel with the window from the address (nearest voxel: exact values).
             await AssertAxisPlanesMatchNibabelAsync(other, path, cursor, 30, 210);
+            // A new address pasted into an open page takes effect too.
+            await other.EvaluateAsync("() => { location.hash = location.hash.replace(/c=[^&]*/, 'c=3%2C4%2C5'); }");
+            await other.WaitForFunctionAsync("() => document.getElementById('cursor-voxel').textContent === '3, 4, 5'");
+            await WaitUntilShownAsync(other);
+            await AssertAxisPlanesMatchNibabelAsync(other, path, [3, 4, 5], 30, 210);
             session.AssertNoErrors();
         });
     }
