@@ -24,7 +24,7 @@ const view = {
   cursor: [0, 0, 0], // voxel indices of the main volume (whole numbers)
   active: "section",
   layers: [],        // per overlay: { on, style, opacity, low, high, hue }
-  probe: { seq: 0, shown: 0 },
+  probe: { seq: 0, shown: 0, asked: null },
 };
 
 // ---- loaders: one request in flight per image ----
@@ -328,9 +328,12 @@ function showCursor() {
   probe(mm);
 }
 
+// Asks for the values under the cursor once per cursor position (cross-hairs are redrawn far more often).
 async function probe(mm) {
-  const seq = ++view.probe.seq;
   const p = new URLSearchParams({ x: num(mm[0]), y: num(mm[1]), z: num(mm[2]) });
+  if (view.probe.asked === p.toString()) return;
+  view.probe.asked = p.toString();
+  const seq = ++view.probe.seq;
   try {
     const response = await fetch("api/probe?" + p);
     if (!response.ok || seq < view.probe.shown) return;
