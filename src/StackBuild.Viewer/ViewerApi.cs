@@ -55,6 +55,95 @@ internal static class ViewerApi
             context.Response.ContentLength = png.Length;
             await context.Response.Body.WriteAsync(png.GetBuffer().AsMemory(0, (int)png.Length));
         });
+
+        MapOverlays(app, volume);
+    }
+
+    private static void MapOverlays(WebApplication app, ViewerVolume volume)
+    {
+        app.MapGet("/api/overlay.png", async (HttpContext context) =>
+        {
+            if (!PlaneQuery.TryParse(context.Request.Query, out var query, out var problem, "layer", "style", "hue")
+                || !TryLayer(context.Request.Query, volume, out var layer, out problem)
+                || !TryStyle(context.Request.Query, layer, out var style, out int hue, out problem)
+                || !TryBuild(volume, query, out var plane, out problem))
+            {
+                await ViewerServer.Problem(context, 400, problem);
+                return;
+            }
+            var sampling = layer.Overlay.Labels ? ResliceSampling.Nearest : query.Interpolation;
+            var image = Reslicer.Reslice(layer.Source, plane, new ResliceOptions(sampling, float.NaN, MaxThreads: 0));
+            var pixels = style switch
+            {
+                "fill" => OverlayColours.Fill(image),
+                "outline" => OverlayColours.Outline(image),
+                _ => OverlayColours.Tint(image, query.Window, hue),
+            };
+            using var png = new MemoryStream();
+            OverlayColours.WritePng(png, pixels, image.Width, image.Height);
+            context.Response.ContentType = "image/png";
+            context.Response.ContentLength = png.Length;
+            await context.Response.Body.WriteAsync(png.GetBuffer().AsMemory(0, (int)png.Length));
+        });
+
+        app.MapGet("/api/probe", (HttpContext context) =>
+        {
+            var q = context.Request.Query;
+            foreach (var key in q.Keys)
+                if (key is not ("x" or "y" or "z") || q[key].Count != 1)
+                    return ViewerServer.Problem(context, 400, $"/api/probe takes x, y and z (world mm) once each, not '{PlaneQuery.Shorten(key)}'");
+            if (!PlaneQuery.Number(q, "x", out double x, out var problem) || !PlaneQuery.Number(q, "y", out double y, out problem)
+                || !PlaneQuery.Number(q, "z", out double z, out problem))
+                return ViewerServer.Problem(context, 400, problem);
+            var mm = new Vector3D(x, y, z);
+            var (value, voxel) = ViewerLayer.Probe(volume.Volume, mm);
+            return Json(context, new
+            {
+                Mm = mm.ToArray(),
+                Value = value,
+                Voxel = voxel,
+                Overlays = volume.Layers.Select(l =>
+                {
+                    var (v, at) = ViewerLayer.Probe(l.Overlay.Volume, mm);
+                    return new { Value = v, Voxel = at };
+                }).ToArray(),
+            });
+        });
+    }
+
+    private static bool TryLayer(IQueryCollection query, ViewerVolume volume, out ViewerLayer layer, out string problem)
+    {
+        layer = null!;
+        problem = "";
+        var text = query["layer"].ToString();
+        if (!int.TryParse(text, NumberStyles.None, CultureInfo.InvariantCulture, out int index) || index >= volume.Layers.Count)
+        {
+            problem = volume.Layers.Count == 0 ? "this viewer was started without overlays (stackbuild view VOL --overlay OTHER.nii.gz)"
+                : $"layer must be a number from 0 to {volume.Layers.Count - 1}, not '{PlaneQuery.Shorten(text)}'";
+            return false;
+        }
+        layer = volume.Layers[index];
+        return true;
+    }
+
+    private static bool TryStyle(IQueryCollection query, ViewerLayer layer, out string style, out int hue, out string problem)
+    {
+        problem = "";
+        hue = 0;
+        style = query.TryGetValue("style", out var s) ? s.ToString() : layer.Overlay.Labels ? "fill" : "tint";
+        string[] allowed = layer.Overlay.Labels ? ["fill", "outline"] : ["tint"];
+        if (!allowed.Contains(style, StringComparer.Ordinal))
+        {
+            problem = $"style of this {(layer.Overlay.Labels ? "label" : "intensity")} layer must be {string.Join(" or ", allowed)}, not '{PlaneQuery.Shorten(style)}'";
+            return false;
+        }
+        var hueText = query.TryGetValue("hue", out var h) ? h.ToString() : "30";
+        if (!int.TryParse(hueText, NumberStyles.None, CultureInfo.InvariantCulture, out hue) || hue > 359)
+        {
+            problem = $"hue must be a whole number of degrees from 0 to 359, not '{PlaneQuery.Shorten(hueText)}'";
+            return false;
+        }
+        return true;
     }
 
     private static bool TryBuild(ViewerVolume volume, PlaneQuery query, out ReslicePlane plane, out string problem)
@@ -90,14 +179,15 @@ internal sealed record PlaneQuery(PlaneSpec Spec, IntensityWindow Window, Reslic
     private static readonly string[] Required = ["plane", "tiltH", "tiltV", "depth", "low", "high"];
     private static readonly string[] Optional = ["sampling"];
 
-    public static bool TryParse(IQueryCollection query, out PlaneQuery result, out string problem)
+    /// <param name="extra">Further parameters the endpoint itself reads (optional here; the endpoint checks them).</param>
+    public static bool TryParse(IQueryCollection query, out PlaneQuery result, out string problem, params string[] extra)
     {
         result = null!;
         foreach (var key in query.Keys)
         {
-            if (!Required.Contains(key, StringComparer.Ordinal) && !Optional.Contains(key, StringComparer.Ordinal))
+            if (!Required.Contains(key, StringComparer.Ordinal) && !Optional.Contains(key, StringComparer.Ordinal) && !extra.Contains(key, StringComparer.Ordinal))
             {
-                problem = $"unknown parameter '{Shorten(key)}'; the parameters are {string.Join(", ", Required.Concat(Optional))}";
+                problem = $"unknown parameter '{Shorten(key)}'; the parameters are {string.Join(", ", Required.Concat(Optional).Concat(extra))}";
                 return false;
             }
             if (query[key].Count != 1)
@@ -150,7 +240,7 @@ internal sealed record PlaneQuery(PlaneSpec Spec, IntensityWindow Window, Reslic
         return true;
     }
 
-    private static bool Number(IQueryCollection query, string key, out double value, out string problem)
+    internal static bool Number(IQueryCollection query, string key, out double value, out string problem)
     {
         var text = query[key].ToString();
         problem = "";
@@ -161,7 +251,7 @@ internal sealed record PlaneQuery(PlaneSpec Spec, IntensityWindow Window, Reslic
         return false;
     }
 
-    private static string Shorten(string text)
+    internal static string Shorten(string text)
     {
         var clean = new string(text.Select(c => char.IsControl(c) ? '?' : c).ToArray());
         return clean.Length <= 40 ? clean : clean[..40] + "…";

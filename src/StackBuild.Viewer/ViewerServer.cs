@@ -36,9 +36,10 @@ public sealed class ViewerServer : IAsyncDisposable
     /// <paramref name="address"/>:<paramref name="port"/> (0 = any free port) and starts serving.
     /// </summary>
     /// <param name="name">Shown on the page (a file name, not a path).</param>
-    public static async Task<ViewerServer> StartAsync(Volume volume, string name, IPAddress address, int port, CancellationToken cancellation = default)
+    /// <param name="options">Overlays and the series' sections, if any.</param>
+    public static async Task<ViewerServer> StartAsync(Volume volume, string name, IPAddress address, int port, ViewerOptions? options = null, CancellationToken cancellation = default)
     {
-        var state = new ViewerVolume(volume, name);
+        var state = new ViewerVolume(volume, name, options);
         // The empty builder reads no configuration files or environment variables and adds no middleware.
         var builder = WebApplication.CreateEmptyBuilder(new WebApplicationOptions { ApplicationName = "StackBuild.Viewer" });
         builder.Logging.ClearProviders();
@@ -69,7 +70,7 @@ public sealed class ViewerServer : IAsyncDisposable
         app.UseRouting();
         MapAssets(app);
         ViewerApi.Map(app, state);
-        app.MapFallback(context => Problem(context, StatusCodes.Status404NotFound, "not found: this viewer serves only its page and /api/volume, /api/plane, /api/plane.png"));
+        app.MapFallback(context => Problem(context, StatusCodes.Status404NotFound, "not found: this viewer serves only its page and /api/volume, /api/plane, /api/plane.png, /api/overlay.png, /api/probe"));
         await app.StartAsync(cancellation);
         var addresses = app.Services.GetRequiredService<IServer>().Features.Get<IServerAddressesFeature>()?.Addresses;
         var bound = addresses?.FirstOrDefault() ?? throw new InvalidOperationException("The viewer did not report the address it listens on.");

@@ -13,10 +13,15 @@ internal sealed class ViewerVolume
     public float Min { get; }
     public float Max { get; }
 
-    public ViewerVolume(Volume volume, string name)
+    public IReadOnlyList<ViewerLayer> Layers { get; }
+    public IReadOnlyList<ViewerSection>? Sections { get; }
+
+    public ViewerVolume(Volume volume, string name, ViewerOptions? options = null)
     {
         Volume = volume;
         Name = name;
+        Layers = (options?.Overlays ?? []).Select(o => new ViewerLayer(o)).ToArray();
+        Sections = options?.Sections;
         Source = ResliceSource.Compact(volume);
         DefaultWindow = IntensityWindow.Robust(volume);
         float min = float.PositiveInfinity, max = float.NegativeInfinity;
@@ -51,6 +56,15 @@ internal sealed class ViewerVolume
             PixelSizeMm = PlaneSpec.SmallestVoxelSize(a),
             MaxTiltDeg = PlaneSpec.MaxTiltDeg,
             Orientations = new[] { "section", "ik", "jk", "axial", "coronal", "sagittal" },
+            // Where each untilted voxel-axis plane lies at depth 0 and which way depth runs, so the page can put a
+            // plane through any voxel: depth = (voxel's world position − centre) · depth direction.
+            AxisPlanes = new[] { "section", "ik", "jk" }.Select(n =>
+            {
+                var spec = new PlaneSpec(PlaneOrientation.Parse(n));
+                return new { Plane = n, CentreMm = spec.CentrePoint(Volume).ToArray(), DepthDirection = spec.Axes(a).Depth.ToArray() };
+            }).ToArray(),
+            Overlays = Layers.Select((l, n) => l.Describe(n)).ToArray(),
+            Sections = Sections?.Select(s => new { k = s.PlaneIndex, s.Number, s.Status }).ToArray(),
         };
     }
 }

@@ -87,7 +87,7 @@ public class ResliceScipyTests
         return volume;
     }
 
-    private static (float[] Plane, JsonElement Result) RunScipy(Volume volume, ReslicePlane plane, float fill, bool nearest)
+    internal static (float[] Plane, JsonElement Result) RunScipy(Volume volume, ReslicePlane plane, float fill, bool nearest)
     {
         var folder = Directory.CreateTempSubdirectory("stackbuild-reslice-scipy-").FullName;
         try

@@ -80,6 +80,27 @@ public sealed class ViewerApiTests : IAsyncLifetime
         }
     }
 
+    [Fact]
+    public async Task OverlayAndProbeRequestsAreCheckedToo()
+    {
+        // This viewer has no overlays: asking for one says how to start it with one.
+        using var none = await _http.GetAsync("api/overlay.png?" + Valid + "&layer=0");
+        Assert.Equal(HttpStatusCode.BadRequest, none.StatusCode);
+        Assert.Contains("--overlay", await none.Content.ReadAsStringAsync());
+        foreach (var bad in new[] { "x=1&y=2", "x=1&y=2&z=abc", "x=1&y=2&z=3&path=%2Fetc%2Fpasswd", "x=1&x=2&y=2&z=3" })
+        {
+            using var response = await _http.GetAsync("api/probe?" + bad);
+            Assert.Equal(HttpStatusCode.BadRequest, response.StatusCode);
+            Assert.Single((await response.Content.ReadAsStringAsync()).TrimEnd().Split('\n'));
+        }
+        // The value at a voxel centre's world position is that voxel's value (Phantom's affine: 20 × 20 × 50 µm, RIP).
+        var phantom = ResliceTestSupport.Phantom(40, 32, 12);
+        var (x, y, z) = phantom.Affine.Apply(7, 11, 5);
+        var probe = JsonDocument.Parse(await _http.GetStringAsync(FormattableString.Invariant($"api/probe?x={x}&y={y}&z={z}"))).RootElement;
+        Assert.Equal(phantom[7, 11, 5], probe.GetProperty("value").GetDouble());
+        Assert.Equal([7.0, 11.0, 5.0], probe.GetProperty("voxel").EnumerateArray().Select(e => Math.Round(e.GetDouble(), 9)));
+    }
+
     [Theory]
     [InlineData("/../../etc/passwd")]
     [InlineData("/%2e%2e/%2e%2e/etc/passwd")]

@@ -34,15 +34,26 @@ public static class ResliceCommand
         var window = new Option<string?>("--window", "-w") { Description = "Intensities shown black to white, LOW,HIGH (default: the volume's 0.5th to 99.5th percentiles)." };
         var fill = new Option<string?>("--fill") { Description = "Value for pixels outside the volume (before windowing; default 0)." };
         var json = new Option<bool>("--json") { Description = "Print the plane definition and its corners (mm and voxels) as JSON." };
+        var overlay = new Option<string[]>("--overlay")
+        {
+            Description = "Another volume to lay over the plane, sampled at the plane's world positions through its own affine (any grid). " +
+                          "Repeat for more. Makes the output a colour figure, as the viewer's \"Save plane as PNG\" does.",
+            Arity = ArgumentArity.OneOrMore,
+        };
+        var labels = new Option<string[]>("--labels") { Description = "Like --overlay, but always shown as labels.", Arity = ArgumentArity.OneOrMore };
+        var labelStyle = new Option<string>("--label-style") { Description = "Labels as outline or fill (flat colours).", DefaultValueFactory = _ => "outline" };
+        var opacity = new Option<string?>("--opacity") { Description = "Opacity of every overlay, 0 to 1 (default 0.6 for intensities, 0.9 for labels)." };
+        var figure = new Option<bool>("--figure") { Description = "Write a colour figure with edge letters and a scale bar (implied by --overlay and --labels)." };
         var bench = new Option<bool>("--bench") { Description = "Time the reslicer on a synthetic 512³ volume (for docs/benchmarks-reslice.md).", Hidden = true };
 
         var command = new Command("reslice",
             "Cut one plane out of a volume, at any angle, and write it as a grey PNG.\n\n" +
             "Examples:\n" +
             "  stackbuild reslice volume.nii.gz -o section.png\n" +
-            "  stackbuild reslice volume.nii.gz --plane jk --tilt 15,-10 --offset 2.5 -o oblique.png --json")
+            "  stackbuild reslice volume.nii.gz --plane jk --tilt 15,-10 --offset 2.5 -o oblique.png --json\n" +
+            "  stackbuild reslice volume.nii.gz --plane ik --overlay template.nii.gz --labels regions.nii.gz -o figure.png")
         {
-            volumeArg, output, plane, tilt, offset, size, pixel, nearest, bits, window, fill, json, bench,
+            volumeArg, output, plane, tilt, offset, size, pixel, nearest, bits, window, fill, json, overlay, labels, labelStyle, opacity, figure, bench,
         };
         command.SetAction(parse => console.Guard(() =>
         {
@@ -59,11 +70,50 @@ public static class ResliceCommand
             var windowText = parse.GetValue(window);
             var interpolation = parse.GetValue(nearest) ? ResliceSampling.Nearest : ResliceSampling.Linear;
 
+            var overlayFiles = (parse.GetValue(overlay) ?? []).Select(f => (File: f, Labels: false))
+                .Concat((parse.GetValue(labels) ?? []).Select(f => (File: f, Labels: true))).ToList();
+            bool asFigure = parse.GetValue(figure) || overlayFiles.Count > 0;
+            if (asFigure && depth != 8)
+                throw new InputProblemException(null, "--bits 16 is for the plain grey plane; a figure (--figure, --overlay, --labels) is 8-bit colour", "leave out --bits, or leave out the overlays");
+            var style = parse.GetValue(labelStyle) ?? "outline";
+            if (style is not ("outline" or "fill"))
+                throw new InputProblemException(null, $"--label-style must be outline or fill, not '{Shorten(style)}'", "use --label-style outline or --label-style fill");
+            double? opacityValue = Number(parse.GetValue(opacity), "--opacity", "number from 0 to 1");
+            if (opacityValue is { } o && !(o >= 0 && o <= 1))
+                throw new InputProblemException(null, $"--opacity must be from 0 to 1, not {o.ToString(CultureInfo.InvariantCulture)}", "give a value such as 0.5");
+
             var volume = VolumeInput.Load(path, console.Error);
+            var overlays = overlayFiles.Select(f =>
+            {
+                var (other, header) = VolumeInput.LoadWithHeader(f.File, console.Error);
+                bool integer = header.DataType is NiftiDataType.UInt8 or NiftiDataType.Int8 or NiftiDataType.Int16 or NiftiDataType.UInt16 or NiftiDataType.Int32;
+                return (f.File, Volume: other, Labels: f.Labels || StackBuild.Viewer.ViewerOverlay.LooksLikeLabels(other, integer, header.IntentCode));
+            }).ToList();
             var built = spec.Build(volume, path);
             var image = Reslicer.Reslice(volume, built, new ResliceOptions(interpolation, fillValue, MaxThreads: 0));
             var shown = windowText is null ? IntensityWindow.Robust(volume) : IntensityWindow.Parse(windowText);
-            PlanePng.WriteFile(outPath, image, shown, depth);
+            var layers = new List<(string File, bool Labels, IntensityWindow Window, double Opacity, FigureLayer Layer)>();
+            int tinted = 0;
+            foreach (var (file, other, isLabels) in overlays)
+            {
+                var sampled = Reslicer.Reslice(other, built, new ResliceOptions(isLabels ? ResliceSampling.Nearest : interpolation, float.NaN, MaxThreads: 0));
+                var otherWindow = IntensityWindow.Robust(other);
+                var pixels = isLabels ? (style == "fill" ? OverlayColours.Fill(sampled) : OverlayColours.Outline(sampled))
+                    : OverlayColours.Tint(sampled, otherWindow, OverlayColours.Hues[tinted++ % OverlayColours.Hues.Count]);
+                double layerOpacity = opacityValue ?? (isLabels ? 0.9 : 0.6);
+                layers.Add((file, isLabels, otherWindow, layerOpacity, new FigureLayer(pixels, layerOpacity)));
+            }
+            FigureLayout? layout = null;
+            if (asFigure)
+            {
+                layout = FigureLayout.For(built.Width, built.Height);
+                using var picture = PlaneFigure.Compose(image, shown, layers.Select(l => l.Layer).ToList(), built, layout);
+                PlaneFigure.WriteFile(outPath, picture);
+            }
+            else
+            {
+                PlanePng.WriteFile(outPath, image, shown, depth);
+            }
             if (parse.GetValue(json))
             {
                 var report = new
@@ -73,12 +123,20 @@ public static class ResliceCommand
                     Bits = depth,
                     Window = new { shown.Low, shown.High },
                     Plane = PlaneDescription.Of(volume, spec, built, interpolation),
+                    Figure = layout is null ? null : new
+                    {
+                        layout.Zoom, layout.Margin, layout.Footer,
+                        Width = layout.FigureWidth(built.Width), Height = layout.FigureHeight(built.Height),
+                        Overlays = layers.Select(l => new { l.File, l.Labels, Window = new { l.Window.Low, l.Window.High }, l.Opacity }).ToArray(),
+                    },
                 };
                 console.Out.WriteLine(JsonSerializer.Serialize(report, PlaneDescription.JsonOptions));
             }
             else
             {
-                console.Out.WriteLine($"wrote {outPath} ({built.Width}×{built.Height} px at {built.PixelSizeMm:0.####} mm, window {shown.Low:G6} to {shown.High:G6})");
+                console.Out.WriteLine(layout is null
+                    ? $"wrote {outPath} ({built.Width}×{built.Height} px at {built.PixelSizeMm:0.####} mm, window {shown.Low:G6} to {shown.High:G6})"
+                    : $"wrote {outPath} (figure {layout.FigureWidth(built.Width)}×{layout.FigureHeight(built.Height)} px: the plane {built.Width}×{built.Height} px at {built.PixelSizeMm:0.####} mm enlarged {layout.Zoom}×, {layers.Count} overlay{(layers.Count == 1 ? "" : "s")}, window {shown.Low:G6} to {shown.High:G6})");
             }
             return CliOutput.ExitOk;
         }));
@@ -177,13 +235,16 @@ public static class ResliceCommand
 /// <summary>Reads the volume a command was given (the first volume of a 4D file, saying so).</summary>
 internal static class VolumeInput
 {
-    public static Volume Load(string path, TextWriter notes)
+    public static Volume Load(string path, TextWriter notes) => LoadWithHeader(path, notes).Volume;
+
+    /// <summary>As <see cref="Load"/>, with the file's header (its datatype and intent).</summary>
+    public static (Volume Volume, NiftiHeader Header) LoadWithHeader(string path, TextWriter notes)
     {
         if (!File.Exists(path))
             throw new InputProblemException(path, "no such file", "check the path to the NIfTI volume (.nii or .nii.gz)");
         var image = NiftiFile.Read(path);
         if (image.VolumeCount > 1)
             notes.WriteLine($"note: {path} holds {image.VolumeCount} volumes; using the first");
-        return image.ToVolume();
+        return (image.ToVolume(), image.Header);
     }
 }

@@ -16,12 +16,24 @@ public static class ViewCommand
             Description = "Address to listen on (default 127.0.0.1, this computer only). Any other address lets other computers see the volume.",
             DefaultValueFactory = _ => "127.0.0.1",
         };
-        var command = new Command("view",
-            "Show a volume in your web browser and reslice it at any angle: tilt, depth, window.\n" +
-            "Stop with Ctrl+C.\n\n" +
-            "Example:\n  stackbuild view volume.nii.gz --port 8080")
+        var overlay = new Option<string[]>("--overlay")
         {
-            volumeArg, port, listen,
+            Description = "Another volume to show over this one, resampled through both affines (any grid): a second channel, a template, " +
+                          "a label volume. Repeat for more. Integer volumes with at most 64 values (or a label intent) are shown as labels.",
+            Arity = ArgumentArity.OneOrMore,
+        };
+        var labels = new Option<string[]>("--labels")
+        {
+            Description = "Like --overlay, but always shown as labels (flat colours or outlines, the label number under the cursor).",
+            Arity = ArgumentArity.OneOrMore,
+        };
+        var command = new Command("view",
+            "Show a volume in your web browser: three planes through a shared cursor and one plane at any angle, with overlays.\n" +
+            "The page's address holds the view, so it can be bookmarked. Stop with Ctrl+C.\n\n" +
+            "Examples:\n  stackbuild view volume.nii.gz --port 8080\n" +
+            "  stackbuild view volume.nii.gz --overlay second-stain.nii.gz --labels regions.nii.gz")
+        {
+            volumeArg, port, listen, overlay, labels,
         };
         command.SetAction((parse, cancellation) => Task.FromResult(console.Guard(() =>
         {
@@ -33,12 +45,21 @@ public static class ViewCommand
             var address = listenText == "localhost" ? IPAddress.Loopback : IPAddress.TryParse(listenText, out var a) ? a
                 : throw new InputProblemException(null, $"--listen '{listenText}' is not an IP address", "give an address such as 127.0.0.1 or 0.0.0.0");
             var volume = VolumeInput.Load(path, console.Error);
+            var overlays = new List<ViewerOverlay>();
+            foreach (var (file, forceLabels) in (parse.GetValue(overlay) ?? []).Select(f => (f, false)).Concat((parse.GetValue(labels) ?? []).Select(f => (f, true))))
+            {
+                var (other, header) = VolumeInput.LoadWithHeader(file, console.Error);
+                bool asLabels = forceLabels || ViewerOverlay.LooksLikeLabels(other, header.DataType is StackBuild.Nifti.NiftiDataType.UInt8 or StackBuild.Nifti.NiftiDataType.Int8 or StackBuild.Nifti.NiftiDataType.Int16 or StackBuild.Nifti.NiftiDataType.UInt16 or StackBuild.Nifti.NiftiDataType.Int32, header.IntentCode);
+                overlays.Add(new ViewerOverlay(other, Path.GetFileName(file), asLabels));
+            }
+            var sections = ViewerSection.FromSidecar(path, volume, console.Error);
             if (!IPAddress.IsLoopback(address))
                 console.Error.WriteLine($"warning: listening on {address}: anyone who can reach this computer can see this volume");
             ViewerServer server;
             try
             {
-                server = ViewerServer.StartAsync(volume, Path.GetFileName(path), address, portNumber, cancellation).GetAwaiter().GetResult();
+                server = ViewerServer.StartAsync(volume, Path.GetFileName(path), address, portNumber,
+                    new ViewerOptions { Overlays = overlays, Sections = sections }, cancellation).GetAwaiter().GetResult();
             }
             catch (IOException e)
             {
@@ -46,7 +67,7 @@ public static class ViewCommand
             }
             try
             {
-                console.Out.WriteLine($"viewing {path} at {server.Url}");
+                console.Out.WriteLine($"viewing {path}{(overlays.Count > 0 ? $" with {overlays.Count} overlay{(overlays.Count > 1 ? "s" : "")}" : "")} at {server.Url}");
                 console.Out.WriteLine("press Ctrl+C to stop");
                 console.Out.Flush();
                 server.WaitForShutdownAsync(cancellation).GetAwaiter().GetResult();

@@ -189,8 +189,8 @@ public static class BuildReport
         Img(o, ReportPlots.Confidence(r, minConfidence, SectionFlags.LowConfidence), "Registration confidence per section", "plot-confidence");
         Img(o, ReportPlots.EstimatedError(r), "Estimated placement error per section", "plot-error");
         Img(o, ReportPlots.Similarity(r), "Similarity (NCC) to the neighbour per section", "plot-ncc");
-        Img(o, ReportPlots.Rotation(r), "Rotation per section", "plot-rotation");
-        Img(o, ReportPlots.Translation(r), "Translation per section", "plot-translation");
+        Img(o, ReportPlots.Rotation(r), "Turn of each section relative to the neighbour it was registered to", "plot-rotation");
+        Img(o, ReportPlots.Translation(r), "Residual per section: its placement against the registrations that did not place it", "plot-translation");
         o.Write("</div></section>");
 
         // Planes through the volume.
@@ -220,7 +220,7 @@ public static class BuildReport
         else
         {
             o.Write("<p class=\"note\">Each row: the section as placed in the volume, the neighbour it was compared with, and both overlaid " +
-                "(section in magenta, neighbour in green; grey where they agree).</p>");
+                "(section in magenta, neighbour in green, each scaled by its own brightness range first; grey where they agree).</p>");
             var byNumber = placed.ToDictionary(s => s.Number);
             foreach (var (s, reasons) in flagged) FlaggedSection(o, volume, window, r, s, reasons, byNumber);
         }
@@ -269,7 +269,7 @@ public static class BuildReport
         {
             var other = ReportImages.SectionPlane(volume, neighbour.ZIndex, ThumbnailSide);
             Thumb(o, ReportImages.Gray(other, window), $"neighbour {neighbour.Number}");
-            if (s.Status != "failed") Thumb(o, ReportImages.Overlay(own, other, window), "overlay");
+            if (s.Status != "failed") Thumb(o, ReportImages.Overlay(own, other), "overlay");
         }
         o.Write("</div>");
     }
@@ -368,7 +368,7 @@ public static class BuildReport
         .plots{display:grid;grid-template-columns:repeat(auto-fill,minmax(600px,1fr));gap:10px}
         .plots img{width:100%;height:auto;border:1px solid #edf2f7}
         .planes{display:flex;flex-wrap:wrap;gap:14px;align-items:flex-start}
-        figure{margin:0}figure img{display:block;background:#000}
+        figure{margin:0}figure img{display:block}
         figcaption{font-size:12px;color:#4a5568;margin-top:3px}
         .thumb figcaption{max-width:200px}
         .note{font-size:12px;color:#718096}

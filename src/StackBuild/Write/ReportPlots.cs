@@ -26,29 +26,66 @@ internal static class ReportPlots
         return Finish(plot, record);
     }
 
-    /// <summary>In-plane rotation of each placed section (degrees), mirrored sections marked apart.</summary>
+    /// <summary>
+    /// What the alignment did between each section and the neighbour it was registered to: the difference of the turns
+    /// applied to the two (degrees, wrapped to ±180). How each slide lay on the scanner cancels out of nothing else, so
+    /// the turns themselves are left to the table; here a steady line near one value is the scans' own habit and a
+    /// jump is a link to look at. Pairs mounted on different sides are marked apart (their difference is not a turn).
+    /// </summary>
     public static byte[] Rotation(BuildRecord record)
     {
-        var plot = NewPlot("Rotation applied to each section", "rotation (°)");
-        var placed = Placed(record).Where(s => s.RotationDegrees is not null).ToList();
-        AddSeries(plot, placed.Where(s => s.Mirrored != true).ToList(), s => s.RotationDegrees!.Value, Blue, "face up");
-        AddSeries(plot, placed.Where(s => s.Mirrored == true).ToList(), s => s.RotationDegrees!.Value, Orange, "mirrored (face down)", lines: false);
-        AddSeries(plot, placed.Where(s => s.ChainRotationDegrees is not null).ToList(), s => s.ChainRotationDegrees!.Value, Before, "before drift correction", lines: false);
+        var plot = NewPlot("Turn relative to the neighbour registered to", "section − neighbour (°)");
+        var turns = RelativeTurns(record);
+        AddPoints(plot, turns.Where(t => t.SameSide).Select(t => (t.Number, t.Degrees)).ToList(), Blue, "same side up");
+        AddPoints(plot, turns.Where(t => !t.SameSide).Select(t => (t.Number, t.Degrees)).ToList(), Orange, "sides differ", lines: false);
         return Finish(plot, record);
     }
 
-    /// <summary>Translation of each section's image origin in the output plane (µm).</summary>
+    /// <summary>One section's turn relative to the neighbour it was registered to.</summary>
+    internal readonly record struct RelativeTurn(int Number, int Neighbour, double Degrees, bool SameSide);
+
+    /// <summary>
+    /// For every placed section registered to a placed neighbour: rotation_deg of the section minus that of the
+    /// neighbour, wrapped to (−180, 180].
+    /// </summary>
+    internal static IReadOnlyList<RelativeTurn> RelativeTurns(BuildRecord record)
+    {
+        var placed = Placed(record).Where(s => s.RotationDegrees is not null).ToDictionary(s => s.Number);
+        var turns = new List<RelativeTurn>();
+        foreach (var s in placed.Values.OrderBy(s => s.Number))
+        {
+            if (s.RegisteredTo is not int n || n == s.Number || !placed.TryGetValue(n, out var neighbour)) continue;
+            double d = s.RotationDegrees!.Value - neighbour.RotationDegrees!.Value;
+            d -= 360 * Math.Ceiling((d - 180) / 360);
+            turns.Add(new RelativeTurn(s.Number, n, d, (s.Mirrored == true) == (neighbour.Mirrored == true)));
+        }
+        return turns;
+    }
+
+    /// <summary>
+    /// Residuals: how far each section's placement disagrees with the registrations that did not place it (µm): the
+    /// route through the second neighbour, the pairs the smoothing prior weighed (root mean square of those used), and
+    /// the section's own template match. Where the placement is right all of these stay small.
+    /// </summary>
     public static byte[] Translation(BuildRecord record)
     {
-        var plot = NewPlot("Translation applied to each section (image origin in the output plane)", "translation (µm)");
-        double um = record.VoxelSizeMm.Length > 0 ? record.VoxelSizeMm[0] * 1000 : 1;
-        var placed = Placed(record).Where(s => s.ShiftPx is { Length: 2 }).ToList();
-        AddSeries(plot, placed, s => s.ShiftPx![0] * um, Blue, "along image x (right)");
-        AddSeries(plot, placed, s => s.ShiftPx![1] * um, Orange, "along image y (down)");
-        var chained = placed.Where(s => s.ChainShiftPx is { Length: 2 }).ToList();
-        AddSeries(plot, chained, s => s.ChainShiftPx![0] * um, Before, "x before drift correction", lines: false);
-        AddSeries(plot, chained, s => s.ChainShiftPx![1] * um, Before, "y before drift correction", lines: false);
+        var plot = NewPlot("Residual: placement against the other registrations", "disagreement (µm)");
+        var sections = record.Sections.OrderBy(s => s.Number).ToList();
+        AddPoints(plot, sections.Where(s => s.RouteDisagreementUm is not null).Select(s => (s.Number, s.RouteDisagreementUm!.Value)).ToList(),
+            Blue, "first vs second neighbour route");
+        AddPoints(plot, sections.Select(s => (s.Number, Rms: PairResidualRms(s))).Where(p => p.Rms is not null).Select(p => (p.Number, p.Rms!.Value)).ToList(),
+            Orange, "pairs in the smoothing solve (rms)");
+        AddPoints(plot, sections.Where(s => s.Template?.MisfitUm is not null).Select(s => (s.Number, s.Template!.MisfitUm!.Value)).ToList(),
+            Grey, "own template match");
+        double top = new[] { 1.0 }.Concat(sections.Select(s => Math.Max(s.RouteDisagreementUm ?? 0, Math.Max(PairResidualRms(s) ?? 0, s.Template?.MisfitUm ?? 0)))).Max();
+        plot.Axes.SetLimitsY(0, top * 1.08);
         return Finish(plot, record);
+    }
+
+    private static double? PairResidualRms(SectionRecord s)
+    {
+        var used = s.Pairs?.Where(p => p.Weight > 0).ToList();
+        return used is { Count: > 0 } ? Math.Sqrt(used.Average(p => p.ResidualUm * p.ResidualUm)) : null;
     }
 
     /// <summary>Normalised cross-correlation with the section registered to.</summary>
@@ -83,14 +120,42 @@ internal static class ReportPlots
         return plot;
     }
 
-    private static void AddSeries(Plot plot, IReadOnlyList<SectionRecord> sections, Func<SectionRecord, double> value, Color color, string legend, bool lines = true)
+    private static void AddSeries(Plot plot, IReadOnlyList<SectionRecord> sections, Func<SectionRecord, double> value, Color color, string legend, bool lines = true) =>
+        AddPoints(plot, sections.Select(s => (s.Number, value(s))).ToList(), color, legend, lines);
+
+    /// <summary>
+    /// Markers at every point and, when <paramref name="lines"/>, lines joining only consecutive section numbers: a
+    /// line never crosses a gap, an excluded section or a section without a value.
+    /// </summary>
+    private static void AddPoints(Plot plot, IReadOnlyList<(int Number, double Value)> points, Color color, string legend, bool lines = true)
     {
-        if (sections.Count == 0) return;
-        var scatter = plot.Add.Scatter(sections.Select(s => (double)s.Number).ToArray(), sections.Select(value).ToArray());
-        scatter.Color = color;
-        scatter.LineWidth = lines ? 1 : 0;
-        scatter.MarkerSize = 5;
-        scatter.LegendText = legend;
+        if (points.Count == 0) return;
+        var markers = plot.Add.Scatter(points.Select(p => (double)p.Number).ToArray(), points.Select(p => p.Value).ToArray());
+        markers.Color = color;
+        markers.LineWidth = 0;
+        markers.MarkerSize = 5;
+        markers.LegendText = legend;
+        if (!lines) return;
+        foreach (var run in Runs(points.Select(p => p.Number).ToList()))
+        {
+            if (run.Count < 2) continue;
+            var line = plot.Add.Scatter(run.Select(i => (double)points[i].Number).ToArray(), run.Select(i => points[i].Value).ToArray());
+            line.Color = color;
+            line.LineWidth = 1;
+            line.MarkerSize = 0;
+        }
+    }
+
+    /// <summary>Indices of <paramref name="numbers"/> (ascending section numbers) split into runs of consecutive numbers.</summary>
+    internal static List<List<int>> Runs(IReadOnlyList<int> numbers)
+    {
+        var runs = new List<List<int>>();
+        for (int i = 0; i < numbers.Count; i++)
+        {
+            if (i == 0 || numbers[i] != numbers[i - 1] + 1) runs.Add([]);
+            runs[^1].Add(i);
+        }
+        return runs;
     }
 
     private static void Limit(Plot plot, double y, Color color, string legend)
