@@ -34,18 +34,45 @@ public sealed class UncertaintyTests(ITestOutputHelper output)
             new SectionRecord { Number = 4, Status = "gap" },
             Link(5, 3, 0.6, 4, null));
         var e = Uncertainty.Estimate(record);
-        Assert.Equal(0, e[1].AccumulatedUm);
+        // Without a template each estimate also carries the chain's slow drift: placed sections 1, 2, 3, 5 are positions
+        // 0..3 of 3 links, 10 µm registration pixels.
+        double Drift(int t) => Uncertainty.DriftError(t, 3) * 10;
+        Assert.Equal(Drift(0), e[1].AccumulatedUm, 9);
         Assert.Equal(10 / 5.0, e[2].LinkUm, 9); // 10 µm pixel / √25
         Assert.Equal(Math.Sqrt(2 * 2 + 30 * 30), e[3].LinkUm, 9);
         double gross = 0.4 * Uncertainty.GrossErrorFraction * 1000; // extent 100 × 10 µm
         Assert.Equal(Math.Sqrt(5 * 5 + gross * gross), e[5].LinkUm, 9);
-        Assert.Equal(Math.Sqrt(e[2].LinkUm * e[2].LinkUm + e[3].LinkUm * e[3].LinkUm + e[5].LinkUm * e[5].LinkUm), e[5].AccumulatedUm, 9);
+        Assert.Equal(Math.Sqrt(e[2].LinkUm * e[2].LinkUm + e[3].LinkUm * e[3].LinkUm + e[5].LinkUm * e[5].LinkUm + Drift(3) * Drift(3)), e[5].AccumulatedUm, 9);
         Assert.False(e.ContainsKey(4));
         var annotated = Uncertainty.Annotate(record);
         Assert.Null(annotated.Sections[3].EstimatedErrorUm);
         Assert.Equal(Math.Round(e[5].AccumulatedUm, 2), annotated.Sections[4].EstimatedErrorUm);
         // Sections placed without aligning have no estimate at all (rather than a misleading 0).
         Assert.Empty(Uncertainty.Estimate(record with { Aligned = false }));
+    }
+
+    [Fact]
+    public void DriftIsARandomWalkSeenAfterOneGlobalFit()
+    {
+        // The drift term's variance N/3 − t + t²/N is the continuous limit of a discrete random walk of unit steps with
+        // its mean over the stack removed. Checked against that walk's exact variance, from Cov(W_s, W_u) = min(s, u):
+        // Var(W_t − mean W) = t − (2/(N+1)) Σ_u min(t, u) + (1/(N+1)²) Σ_s Σ_u min(s, u) (common practice; derived here).
+        const int n = 60;
+        double all = 0;
+        for (int a = 0; a <= n; a++) for (int b = 0; b <= n; b++) all += Math.Min(a, b);
+        all /= (n + 1.0) * (n + 1.0);
+        foreach (int t in new[] { 0, 15, 30, 45, 60 })
+        {
+            double row = 0;
+            for (int u = 0; u <= n; u++) row += Math.Min(t, u);
+            double exact = t - 2 * row / (n + 1) + all;
+            double model = Math.Pow(Uncertainty.DriftError(t, n) / Uncertainty.DriftPxPerLink, 2);
+            Assert.InRange(model / exact, 0.9, 1.1);
+        }
+        // Smallest in the middle, largest at the ends, symmetric; none for a single section.
+        Assert.True(Uncertainty.DriftError(30, 60) < Uncertainty.DriftError(10, 60));
+        Assert.Equal(Uncertainty.DriftError(0, 60), Uncertainty.DriftError(60, 60), 9);
+        Assert.Equal(0, Uncertainty.DriftError(0, 0));
     }
 
     [Theory]

@@ -34,7 +34,7 @@ public static class EvaluateCommand
             o.WriteLine($"Rotation error °    {result.RotationDegrees.Median,-10:0.###} {result.RotationDegrees.P95,-10:0.###} {result.RotationDegrees.Max:0.###}");
             o.WriteLine($"Pairwise error px   {result.PairErrorPx.Median,-10:0.###} {result.PairErrorPx.P95,-10:0.###} {result.PairErrorPx.Max:0.###}   (each section against the previous one)");
             o.WriteLine($"Pairwise rotation ° {result.PairRotationDegrees.Median,-10:0.###} {result.PairRotationDegrees.P95,-10:0.###} {result.PairRotationDegrees.Max:0.###}");
-            o.WriteLine($"Wrong mirror        {result.MirrorWrong}" + (result.MirrorWrong > 0 ? $" ({(result.MirrorWrong == 1 ? "section" : "sections")} {string.Join(", ", result.Sections.Where(s => s.MirrorWrong).Select(s => s.Number))})" : ""));
+            o.WriteLine($"Wrong mirror        {result.MirrorWrong}" + (result.MirrorWrong > 0 ? $" ({(result.MirrorWrong == 1 ? "section" : "sections")} {string.Join(", ", result.Sections.Where(s => s.MirrorWrong).Select(s => s.Number))}; the wrong way up, so not in the error rows above)" : ""));
             o.WriteLine($"Drift px            max {result.DriftMaxPx:0.###}, rms {result.DriftRmsPx:0.###}   (moving average over {TruthEvaluation.DriftWindow} sections)");
             return CliOutput.ExitOk;
         }));

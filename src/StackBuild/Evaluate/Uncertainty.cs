@@ -47,6 +47,10 @@ public static class Uncertainty
         var placed = record.Sections.Where(s => s.Status is "aligned" or "placed").ToDictionary(s => s.Number);
         var link = placed.Values.ToDictionary(s => s.Number, s => LinkError(s, pixelUm, extentUm));
         var result = new Dictionary<int, SectionUncertainty>();
+        // The slow drift of a chain with no template, by stack position among the placed sections (see DriftError).
+        bool guided = record.Sections.Any(s => s.Template is not null);
+        var order = guided ? [] : placed.Values.Where(s => s.Part is null).OrderBy(s => s.ZIndex).Select(s => s.Number).ToList();
+        var position = order.Select((number, t) => (number, t)).ToDictionary(x => x.number, x => x.t);
         foreach (var s in placed.Values)
         {
             double variance = 0;
@@ -65,11 +69,40 @@ public static class Uncertainty
                 variance = ownUm * ownUm; // placed by one template match alone: no chain link, no averaging over neighbours
             else if (s.Template is not null && TemplateError(s, record.Sections) is double templateUm)
                 variance = link[s.Number] * link[s.Number] + templateUm * templateUm;
+            if (position.TryGetValue(s.Number, out int at0))
+            {
+                double drift = DriftError(at0, order.Count - 1) * pixelUm;
+                variance += drift * drift;
+            }
             // A part the chain could not link to the reference has no known place without a template: no estimate.
             if (s.Part is not null && s.Template is null) continue;
             result[s.Number] = new SectionUncertainty(s.Number, link[s.Number], Math.Sqrt(variance));
         }
         return result;
+    }
+
+    /// <summary>
+    /// The slow drift of a chain with no template to check its course, per link, in registration pixels: the links' errors
+    /// are not independent noise but follow the tissue (neighbouring links err alike; DriftCorrectionTests), so the stack
+    /// bends slowly by far more than the links' own errors add up to. Measured on the development series of
+    /// docs/accuracy.md (public MRI volumes cut whole, seed 1: drift rms 2–5 px over 59–86 sections) and the demo
+    /// (2.4 px over 60): about one pixel per link in the model of <see cref="DriftError"/>. A rule of this project,
+    /// checked on the held-out series, not a published value.
+    /// </summary>
+    public const double DriftPxPerLink = 1.0;
+
+    /// <summary>
+    /// The drift part of a section's error (registration pixels) in a build with no template, at position
+    /// <paramref name="t"/> of <paramref name="links"/> + 1 placed sections: a random walk of <see cref="DriftPxPerLink"/>
+    /// per link seen after the one global fit that compares a build with anything outside it, which pins the stack's mean.
+    /// For a random walk W over [0, N], Var(W(t) − mean W) = N/3 − t + t²/N: N/12 in the middle, N/3 at either end (a
+    /// property of Brownian motion; derived here, common practice in error propagation). Zero for a single section.
+    /// </summary>
+    public static double DriftError(int t, int links)
+    {
+        if (links <= 0) return 0;
+        double variance = links / 3.0 - t + (double)t * t / links;
+        return DriftPxPerLink * Math.Sqrt(Math.Max(0, variance));
     }
 
     /// <summary>Sections on either side whose template matches set the course at a section (the fusion's window, 11 sections).</summary>

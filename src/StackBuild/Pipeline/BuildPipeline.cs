@@ -500,7 +500,7 @@ public static class BuildPipeline
             Unanchored: chain[n].Route != LinkRoute.Failed && chain[n].Part != 0,
             SideUncertain: sideMargin is not null && sideMargin[n] < MirrorParity.UncertainMargin,
             // The link's error from its two routes' disagreement (each route errs; the difference has √2 times their spread).
-            LinkErrorPx: chain[n].RouteDisagreement is double d ? d / Math.Sqrt(2) : null)).ToList()));
+            LinkErrorPx: chain[n].AnyRouteDisagreement is double d ? d / Math.Sqrt(2) : null)).ToList()));
         var planeToWork = Transform2D.Scale(template.PixelWidthMm * 1000 / workUm, template.PixelHeightMm * 1000 / workUm);
         // A section the chain could not place takes its own template match when the guide accepted it (route 'template').
         var fused = chain.Select((c, n) => c.Route == LinkRoute.Failed

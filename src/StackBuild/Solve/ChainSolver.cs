@@ -31,12 +31,15 @@ public enum LinkRoute
 /// <param name="Pair">The pairwise result used (moving = this section), or null.</param>
 /// <param name="RouteDisagreement">
 /// Mean distance in registration pixels, over the section's corners, between its placement through the
-/// nearest neighbour and through the second-nearest; null when only one route exists.
+/// nearest neighbour and through the second-nearest; null unless both routes are trusted (confidence at least
+/// <see cref="ChainOptions.MinConfidence"/>).
 /// </param>
 /// <param name="PathConfidence">The weakest pair confidence on the way to the reference (1 for the reference).</param>
+/// <param name="AnyRouteDisagreement">The same distance between the two nearest routes whether trusted or not (null with fewer
+/// than two): the template course loosens a link wherever a second route disagrees, trusted or not.</param>
 /// <param name="Part">0 for sections chained to the reference; k for the k-th part of the stack chained to its own part reference.</param>
 public sealed record ChainPlacement(Transform2D ToReference, LinkRoute Route, int LinkedTo, PairResult? Pair, double? RouteDisagreement,
-    double PathConfidence = 1, int Part = 0);
+    double PathConfidence = 1, int Part = 0, double? AnyRouteDisagreement = null);
 
 public sealed record ChainOptions
 {
@@ -159,25 +162,27 @@ public static class ChainSolver
                 Path: Math.Min(r.Result.Confidence, through.PathConfidence));
         }).ToList();
 
-        double? disagreement = null;
-        if (routes.Count == 2)
-        {
-            var pts = corners(i);
-            disagreement = pts.Average(p =>
-            {
-                var a = routes[0].ToReference.Apply(p.X, p.Y);
-                var b = routes[1].ToReference.Apply(p.X, p.Y);
-                return Math.Sqrt((a.X - b.X) * (a.X - b.X) + (a.Y - b.Y) * (a.Y - b.Y));
-            });
-        }
         // The nearest neighbour is preferred; the second one is taken when the route through it is clearly more
         // trustworthy (a weak pair, or a neighbour that was itself placed with little confidence).
         var usable = routes.Where(r => r.Result.Confidence >= options.MinConfidence).ToList();
+        // Route disagreement only between two routes that are both trusted: a route through a pair that did not match (a
+        // speck of an end section, a torn neighbour) says nothing about this section's error, and counting it put estimates
+        // of centimetres on well-placed sections.
+        double Disagreement(Transform2D first, Transform2D second) => corners(i).Average(p =>
+        {
+            var a = first.Apply(p.X, p.Y);
+            var b = second.Apply(p.X, p.Y);
+            return Math.Sqrt((a.X - b.X) * (a.X - b.X) + (a.Y - b.Y) * (a.Y - b.Y));
+        });
+        double? disagreement = usable.Count == 2 ? Disagreement(usable[0].ToReference, usable[1].ToReference) : null;
+        double? anyDisagreement = routes.Count == 2 ? Disagreement(routes[0].ToReference, routes[1].ToReference) : null;
         if (usable.Count == 0)
-            return new ChainPlacement(Transform2D.Identity, LinkRoute.Failed, -1, routes.Count > 0 ? routes.MaxBy(r => r.Result.Confidence).Result : null, disagreement, 0);
+            return new ChainPlacement(Transform2D.Identity, LinkRoute.Failed, -1, routes.Count > 0 ? routes.MaxBy(r => r.Result.Confidence).Result : null, disagreement, 0,
+                AnyRouteDisagreement: anyDisagreement);
         var chosen = usable[0];
         if (usable.Count > 1 && usable[1].Path > chosen.Path + options.PreferNearestMargin) chosen = usable[1];
-        return new ChainPlacement(chosen.ToReference, chosen.Route, chosen.Index, chosen.Result, disagreement, chosen.Path);
+        return new ChainPlacement(chosen.ToReference, chosen.Route, chosen.Index, chosen.Result, disagreement, chosen.Path,
+            AnyRouteDisagreement: anyDisagreement);
     }
 
     /// <summary>The map from section <paramref name="moving"/> to <paramref name="target"/>; registered later-onto-earlier and inverted when needed, so each pair is computed once.</summary>

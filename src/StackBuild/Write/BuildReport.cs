@@ -91,7 +91,7 @@ public static class SectionFlags
                 : $"in part {part} of the stack, which nothing linked to the rest: where the part lies relative to the rest is unknown — a template would place it");
         if (voxelUm is double v && s.EstimatedErrorUm is double estimate && estimate > EstimatedErrorVoxels * v && s.Status == "aligned")
             reasons.Add(string.Create(CultureInfo.InvariantCulture, $"estimated placement error {estimate:0} µm, more than {EstimatedErrorVoxels} voxels")
-                + (s.Template is null ? " (the chain's errors add up with distance from the reference section; a template would measure and remove them)" : ""));
+                + (s.Template is null ? " (without a template the chain's course is unchecked: its links' errors add up to a slow drift of the stack; a template would measure and remove it)" : ""));
         if (s.Damaged) reasons.Add("marked damaged in the manifest" + (string.IsNullOrEmpty(s.Note) ? "" : $" ({s.Note})"));
         if (s.Template?.Outlier is { } why) reasons.Add($"its template match was set aside ({why})");
         if (s.Template is { PlacedByTemplate: true } t) reasons.Add(t.Note ?? "placed by its own template match");
