@@ -167,7 +167,7 @@ public static class SectionImageReader
 
     /// <summary>
     /// Refuses a JPEG without its end-of-image marker (FF D9) after its last scan (FF DA): a copy cut short. ImageSharp
-    /// decodes such a file without complaint, with the missing part grey. Inside a scan FF is always followed by 00
+    /// decodes such a file without complaint (the corpus test of a JPEG cut in half built with exit 0). Inside a scan FF is always followed by 00
     /// or a restart marker (ITU-T T.81 §B.1.1.5), so FF D9 there can only be the end; thumbnails sit before the main scan.
     /// Only the last MiB is searched, which allows for data appended after the image.
     /// </summary>

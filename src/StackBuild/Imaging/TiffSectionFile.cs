@@ -180,8 +180,8 @@ internal static class TiffSectionFile
     }
 
     /// <summary>
-    /// Refuses a file whose strips or tiles, as its tags place them, run past its end: a copy cut short. (ImageSharp
-    /// decodes such a file without complaint, with the missing rows left black.)
+    /// Refuses a file whose strips or tiles, as its tags place them, run past its end: a copy cut short. (A TIFF cut
+    /// inside its strip was built without complaint before this check.)
     /// </summary>
     private static void CheckDataInsideFile(string path, Tiff tiff, bool tiled, long fileLength)
     {
