@@ -368,6 +368,22 @@ public sealed class BadInputCorpusTests : IDisposable
     }
 
     [Fact]
+    public void BadInput_TwelveBitTiff()
+    {
+        var series = Series();
+        var path = WriteInput("series/s_004.tif", Tiff(64, 64, 12, 1, new byte[64 * 64 * 12 / 8]));
+        Refused(Build(series), 1, path, "12 bits per sample, which is not read");
+    }
+
+    [Fact]
+    public void BadInput_SignedSixteenBitTiff()
+    {
+        var series = Series();
+        var path = WriteInput("series/s_004.tif", Tiff(64, 64, 16, 2, new byte[64 * 64 * 2])); // SampleFormat 2: signed integer
+        Refused(Build(series), 1, path, "signed samples, which is not read");
+    }
+
+    [Fact]
     public void BadInput_MixedBitDepths()
     {
         var series = Series();
@@ -560,6 +576,34 @@ public sealed class BadInputCorpusTests : IDisposable
         Manifest(series, "");
         var (_, nibabel) = Accepted(Build(series, "--no-align"));
         Assert.Equal(3, Shape(nibabel)[2]);
+    }
+
+    [Fact]
+    public void BadInput_ManifestPositionsGoingBackwards()
+    {
+        var series = Series();
+        var manifest = Manifest(series, "section,file,position_um\n1,s_001.png,0\n2,s_002.png,100\n3,s_003.png,60\n");
+        Refused(Build(series), 1, manifest + ":4", "position_um 60 does not increase from 100");
+    }
+
+    [Fact]
+    public void BadInput_ManifestGivenAsTheSeriesNamingAMissingFile()
+    {
+        var series = Series();
+        var manifest = Manifest(series, "section,file\n1,s_001.png\n2,s_002.png\n3,s_03.png\n");
+        Refused(Build(manifest), 1, manifest + ":4", "the file 's_03.png' does not exist");
+    }
+
+    [Fact]
+    public void BadInput_DamagedFileOfAnExcludedSection_IsSkippedWithAWarning()
+    {
+        // Accepted: a section the manifest excludes is not needed, so its unreadable file only gives a warning.
+        var series = Series(count: 4);
+        File.WriteAllBytes(Path.Combine(series, "s_003.png"), "not an image"u8.ToArray());
+        Manifest(series, "section,file,exclude\n1,s_001.png,\n2,s_002.png,\n3,s_003.png,yes\n4,s_004.png,\n");
+        var (stdout, nibabel) = Accepted(Build(series, "--no-align"));
+        Assert.Equal(4, Shape(nibabel)[2]);
+        Assert.Contains("s_003.png: is not a readable PNG, TIFF or JPEG image (its header is not recognised) (the section is excluded, so the run goes on)", stdout);
     }
 
     // ---- paths and series shapes ----
