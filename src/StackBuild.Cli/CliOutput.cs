@@ -11,8 +11,10 @@ public sealed class CliOutput(TextWriter stdout, TextWriter stderr)
     /// <summary>True when progress lines should be shown (a terminal on stderr, and not under a test writer).</summary>
     public bool ShowProgress => ReferenceEquals(Error, Console.Error) && !Console.IsErrorRedirected;
 
+    // The exit codes, as README.md's table lists them.
     public const int ExitOk = 0;
     public const int ExitInputProblem = 1;
+    public const int ExitCommandLine = 2;
     public const int ExitFailure = 3;
 
     /// <summary>Runs a command body, mapping known problems to one clear line each and a non-zero exit.</summary>
@@ -26,6 +28,11 @@ public sealed class CliOutput(TextWriter stdout, TextWriter stderr)
         {
             foreach (var p in many.Problems) Error.WriteLine($"error: {p.Message}");
             return ExitInputProblem;
+        }
+        catch (CommandLineProblemException commandLine)
+        {
+            Error.WriteLine($"error: {commandLine.Message}");
+            return ExitCommandLine;
         }
         catch (InputProblemException one)
         {

@@ -23,8 +23,9 @@ public static class Program
         {
             // One line per problem and a pointer to the help, instead of the whole help text.
             var commandName = parsed.CommandResult.Command == root ? "stackbuild" : $"stackbuild {parsed.CommandResult.Command.Name}";
-            foreach (var error in parsed.Errors) stderr.WriteLine($"error: {error.Message} — see '{commandName} --help'");
-            return 2;
+            foreach (var message in ParseErrors.Lines(parsed))
+                stderr.WriteLine($"error: {message} — see '{commandName} --help'");
+            return CliOutput.ExitCommandLine;
         }
         return parsed.Invoke(config);
     }
@@ -49,6 +50,7 @@ public static class Program
         yield return BuildCommand.Create(console);
         yield return EvaluateCommand.Create(console);
         yield return ResliceCommand.Create(console);
+        yield return ResliceCommand.CreateBenchmark(console);
         yield return ViewCommand.Create(console);
     }
 }

@@ -36,7 +36,7 @@ public class DemoCommandTests
     }
 
     [Fact]
-    public void ReplacesAnEarlierDemoAndRemovesItsExtraImages()
+    public void ReplacesAnEarlierDemoOnlyWithForceAndRemovesItsExtraImages()
     {
         var dir = DemoSpecimenTests.TempFolder();
         try
@@ -44,7 +44,14 @@ public class DemoCommandTests
             Assert.Equal(0, Run("demo", dir, "--sections", "14", "--size", "48").Code);
             Assert.Contains(Directory.GetFiles(dir), f => Path.GetFileName(f) == "section_014.png");
             File.WriteAllText(Path.Combine(dir, "my-notes.txt"), "kept");
-            var (code, output, error) = Run("demo", dir, "--sections", "5", "--size", "48");
+            var before = Directory.GetFiles(dir).Order().Select(f => (f, File.ReadAllBytes(f))).ToList();
+            var (refused, _, refusal) = Run("demo", dir, "--sections", "5", "--size", "48");
+            Assert.Equal(CliOutput.ExitInputProblem, refused); // never replaced without being asked
+            Assert.Contains("already holds a demo series", refusal);
+            Assert.Contains("--force", refusal);
+            Assert.Equal(before.Select(b => b.f), Directory.GetFiles(dir).Order());
+            Assert.All(before, b => Assert.Equal(b.Item2, File.ReadAllBytes(b.f)));
+            var (code, output, error) = Run("demo", dir, "--sections", "5", "--size", "48", "--force");
             Assert.True(code == 0, error);
             Assert.Contains("Replaced", output);
             Assert.DoesNotContain(Directory.GetFiles(dir, "section_*.png"), f => string.CompareOrdinal(Path.GetFileName(f), "section_005.png") > 0);
@@ -69,6 +76,12 @@ public class DemoCommandTests
             Assert.Contains("not made by `stackbuild demo`", error);
             Assert.Contains("choose a new or empty folder", error);
             Assert.Equal(["scan.png"], Directory.GetFiles(dir).Select(Path.GetFileName));
+
+            // With --force the demo goes beside the file, which is not touched.
+            var (forced, _, forcedError) = Run("demo", dir, "--sections", "5", "--size", "48", "--force");
+            Assert.True(forced == 0, forcedError);
+            Assert.Equal("not ours", File.ReadAllText(Path.Combine(dir, "scan.png")));
+            Assert.True(File.Exists(Path.Combine(dir, "truth.json")));
         }
         finally
         {
@@ -108,6 +121,27 @@ public class DemoCommandTests
         finally
         {
             File.Delete(file);
+        }
+    }
+
+    [Fact]
+    public void ForceNeverReplacesAFileTheDemoDidNotWrite()
+    {
+        var dir = DemoSpecimenTests.TempFolder();
+        Directory.CreateDirectory(dir);
+        try
+        {
+            File.WriteAllText(Path.Combine(dir, "manifest.csv"), "section,file\n1,mine.png\n");
+            var (code, _, error) = Run("demo", dir, "--sections", "5", "--size", "48", "--force");
+            Assert.Equal(CliOutput.ExitInputProblem, code);
+            Assert.Contains("manifest.csv", error);
+            Assert.Contains("would replace this file", error);
+            Assert.Equal(["manifest.csv"], Directory.GetFiles(dir).Select(Path.GetFileName));
+            Assert.Equal("section,file\n1,mine.png\n", File.ReadAllText(Path.Combine(dir, "manifest.csv")));
+        }
+        finally
+        {
+            Directory.Delete(dir, true);
         }
     }
 }

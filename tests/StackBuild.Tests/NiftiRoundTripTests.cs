@@ -232,10 +232,20 @@ public sealed class NiftiRoundTripTests : IDisposable
         NiftiFile.Write(_temp.File("ok.nii.gz"), Ramp((i, _, _) => i));
         Assert.Equal(["ok.nii.gz"], Directory.GetFiles(_temp.Path).Select(Path.GetFileName));
 
-        // A folder in the way makes the final rename fail after the data was written.
+        // A folder at the output path is refused before anything is written.
         var blocked = _temp.File("blocked.nii");
         Directory.CreateDirectory(blocked);
-        Assert.ThrowsAny<IOException>(() => NiftiFile.Write(blocked, Ramp((i, _, _) => i)));
+        Assert.Contains("is a folder", Assert.Throws<InputProblemException>(() => NiftiFile.Write(blocked, Ramp((i, _, _) => i))).Problem);
+        Assert.Empty(_temp.LeftoverTempFiles());
+
+        // A folder that appears while the data is written makes the final rename fail: the temporary file goes too.
+        var late = _temp.File("late.nii");
+        var failed = Assert.ThrowsAny<IOException>(() => AtomicFile.Write(late, s =>
+        {
+            s.Write(new byte[1000]);
+            Directory.CreateDirectory(late);
+        }));
+        Assert.Contains(late, failed.Message);
         Assert.Empty(_temp.LeftoverTempFiles());
 
         var missingFolder = Path.Combine(_temp.Path, "no-such-folder", "x.nii");

@@ -55,8 +55,8 @@ public sealed class ResliceCommandTests : IDisposable
         var json = JsonDocument.Parse(stdout).RootElement;
         var plane = json.GetProperty("plane");
         Assert.Equal("jk", plane.GetProperty("orientation").GetString());
-        Assert.Equal(20, plane.GetProperty("tiltAboutHorizontalDeg").GetDouble());
-        Assert.Equal(-15, plane.GetProperty("tiltAboutVerticalDeg").GetDouble());
+        Assert.Equal(20, plane.GetProperty("tilt_about_horizontal_deg").GetDouble());
+        Assert.Equal(-15, plane.GetProperty("tilt_about_vertical_deg").GetDouble());
         Assert.Equal((64, 48), (plane.GetProperty("width").GetInt32(), plane.GetProperty("height").GetInt32()));
         var corners = plane.GetProperty("corners").EnumerateArray().ToArray();
         Assert.Equal(4, corners.Length);
@@ -82,25 +82,25 @@ public sealed class ResliceCommandTests : IDisposable
     }
 
     [Theory]
-    [InlineData("--tilt", "abc", "--tilt")]
-    [InlineData("--tilt", "95,0", "between")]
-    [InlineData("--tilt", "10", "--tilt")]
-    [InlineData("--plane", "diagonal", "not a plane orientation")]
-    [InlineData("--bits", "12", "--bits")]
-    [InlineData("--window", "200,100", "above its lower limit")]
-    [InlineData("--window", "5", "LOW,HIGH")]
-    [InlineData("--size", "0", "output size")]
-    [InlineData("--size", "12x", "--size")]
-    [InlineData("--pixel", "-1", "pixel size")]
-    [InlineData("--size", "9000", "output size")]
-    [InlineData("--offset", "abc", "--offset 'abc' is not a number")]
-    [InlineData("--pixel", "1mm", "--pixel")]
-    [InlineData("--fill", "none", "--fill")]
-    public void BadOptionsAreOneLineErrorsWithExitCode1(string option, string value, string expected)
+    [InlineData("--tilt", "abc", "--tilt", 2)]
+    [InlineData("--tilt", "95,0", "between", 1)]
+    [InlineData("--tilt", "10", "--tilt", 2)]
+    [InlineData("--plane", "diagonal", "not a plane orientation", 1)]
+    [InlineData("--bits", "12", "--bits", 1)]
+    [InlineData("--window", "200,100", "above its lower limit", 1)]
+    [InlineData("--window", "5", "LOW,HIGH", 1)]
+    [InlineData("--size", "0", "output size", 1)]
+    [InlineData("--size", "12x", "--size", 2)]
+    [InlineData("--pixel", "-1", "pixel size", 1)]
+    [InlineData("--size", "9000", "output size", 1)]
+    [InlineData("--offset", "abc", "--offset 'abc' is not a number", 2)]
+    [InlineData("--pixel", "1mm", "--pixel", 2)]
+    [InlineData("--fill", "none", "--fill", 2)]
+    public void BadOptionsAreOneLineErrors(string option, string value, string expected, int code)
     {
         var png = Path.Combine(_folder, "bad.png");
         var (exit, _, stderr) = ResliceTestSupport.Cli("reslice", _volumePath, option, value, "-o", png);
-        Assert.Equal(1, exit);
+        Assert.Equal(code, exit); // README's exit codes: 2 a value that cannot be read (text for a number), 1 a value refused
         Assert.Contains(expected, stderr);
         Assert.Single(stderr.TrimEnd().Split('\n'));
         Assert.False(File.Exists(png));
@@ -113,8 +113,8 @@ public sealed class ResliceCommandTests : IDisposable
         Assert.Equal(1, exit);
         Assert.Contains("no such file", stderr);
         (exit, _, stderr) = ResliceTestSupport.Cli("reslice", _volumePath);
-        Assert.Equal(1, exit);
-        Assert.Contains("-o", stderr);
+        Assert.Equal(2, exit); // a required option left out: a bad command line
+        Assert.Contains("--output", stderr);
         (exit, _, stderr) = ResliceTestSupport.Cli("reslice", _volumePath, "-o", Path.Combine(_folder, "no-such-folder", "x.png"));
         Assert.Equal(1, exit);
         Assert.Contains("folder", stderr);

@@ -37,7 +37,7 @@ public sealed class ResliceFigureTests(NiftiTempFolder temp) : IClassFixture<Nif
         var json = JsonDocument.Parse(stdout).RootElement;
         var g = json.GetProperty("plane");
         Vector3D V(string name) { var a = g.GetProperty(name).EnumerateArray().Select(e => e.GetDouble()).ToArray(); return new Vector3D(a[0], a[1], a[2]); }
-        var plane = new ReslicePlane(V("centreMm"), V("rightDirection"), V("downDirection"), g.GetProperty("width").GetInt32(), g.GetProperty("height").GetInt32(), g.GetProperty("pixelSizeMm").GetDouble());
+        var plane = new ReslicePlane(V("centre_mm"), V("right_direction"), V("down_direction"), g.GetProperty("width").GetInt32(), g.GetProperty("height").GetInt32(), g.GetProperty("pixel_size_mm").GetDouble());
         var figure = json.GetProperty("figure");
         int zoom = figure.GetProperty("zoom").GetInt32(), margin = figure.GetProperty("margin").GetInt32();
         var window = json.GetProperty("window");

@@ -149,7 +149,7 @@ public class SeriesManifestTests
             $"{m}:1: the header has no 'section' column — the header needs at least: section,file (file empty for a lost section)");
 
         File.WriteAllBytes(m, [.. "section,file,note\n1,s1.png,"u8, 0xE9, .. "t\u00e9\n"u8]); // Latin-1 é, not UTF-8
-        AssertProblems(() => SeriesReader.Open(dir.Path, Known), $"{m}: is not UTF-8 text — save it again as CSV with UTF-8 encoding");
+        AssertProblems(() => SeriesReader.Open(dir.Path, Known), $"{m}: is not UTF-8 text (another encoding, such as Latin-1) — save it again as CSV with UTF-8 encoding");
     }
 
     [Fact]

@@ -81,6 +81,7 @@ public static class BuildCommand
                 throw new InputProblemException(null, $"--axes: {axisProblem}", "see README, 'Geometry'");
             var paths = BuildOutputPaths.For(parse.GetValue(output)!);
             paths.CheckWritable();
+            if (parse.GetValue(template) is { } templateToCheck) CheckTemplateHeader(console, templateToCheck);
             var options = new BuildOptions
             {
                 Input = parse.GetValue(series)!,
@@ -126,6 +127,25 @@ public static class BuildCommand
             return CliOutput.ExitOk;
         }));
         return command;
+    }
+
+    /// <summary>
+    /// Reads the template's header before any work, so a damaged header is refused at once, and says when its qform and
+    /// sform disagree: the sform is used (nifti1.h: method 3 when sform_code &gt; 0), but the other may be what was meant.
+    /// </summary>
+    private static void CheckTemplateHeader(CliOutput console, string path)
+    {
+        if (!File.Exists(path) || StackBuild.Template.TemplateVolume.ImageKind(path) is not null) return; // the template loader names these
+        var header = StackBuild.Nifti.NiftiFile.ReadHeader(path);
+        if (header.QformCode <= 0 || header.SformCode <= 0) return;
+        var (q, s) = (header.QformAffine, header.SformAffine);
+        double difference = 0;
+        for (int r = 0; r < 3; r++) for (int c = 0; c < 4; c++) difference = Math.Max(difference, Math.Abs(q[r, c] - s[r, c]));
+        const double toleranceMm = 1e-3; // the qform's quaternion is stored in single precision
+        if (difference > toleranceMm)
+            console.Out.WriteLine("warning: " + InputProblemException.Format(path,
+                $"its qform and sform disagree by up to {difference.ToString("0.###", System.Globalization.CultureInfo.InvariantCulture)} mm; the sform is used, as NIfTI-1 says",
+                $"if the qform is the right one, write the template again with matching sform (stackbuild info {path} shows both)"));
     }
 
     private sealed class SyncProgress(CliOutput console) : IProgress<string>

@@ -14,7 +14,11 @@ public static class DemoCommand
     {
         var outDir = new Argument<string>("OUT_DIR")
         {
-            Description = "Folder to write the demo series into (created if missing; must be empty or an earlier demo)",
+            Description = "Folder to write the demo series into (created if missing; must be empty unless --force)",
+        };
+        var force = new Option<bool>("--force")
+        {
+            Description = "Write into a folder that is not empty: replaces an earlier demo there; never replaces a file the demo did not write",
         };
         var seed = new Option<int>("--seed")
         {
@@ -35,23 +39,25 @@ public static class DemoCommand
             "Write a synthetic demo series: a procedural tissue block cut into sections, each mounted at a random angle " +
             "(some face down) and scanned as a brightfield PNG, with a few sections lost, one torn and one excluded. " +
             "Also writes manifest.csv and truth.json (the true placement of every section).\n\n" +
-            "Example:\n  stackbuild demo my-demo --sections 40\n  stackbuild build my-demo -o my-demo-volume.nii.gz")
+            "Example:\n  stackbuild demo my-demo --sections 40\n  stackbuild build my-demo -o my-demo-volume.nii.gz\n" +
+            "  stackbuild demo my-demo --seed 2 --force   (replace the demo in my-demo)")
         {
-            outDir, seed, sections, size,
+            outDir, seed, sections, size, force,
         };
         command.SetAction(parse => console.Guard(() => Run(console,
-            parse.GetValue(outDir) ?? "", parse.GetValue(seed), parse.GetValue(sections), parse.GetValue(size))));
+            parse.GetValue(outDir) ?? "", parse.GetValue(seed), parse.GetValue(sections), parse.GetValue(size), parse.GetValue(force))));
         return command;
     }
 
-    private static int Run(CliOutput console, string outDir, int seed, int sections, int size)
+    private static int Run(CliOutput console, string outDir, int seed, int sections, int size, bool force)
     {
         var options = CheckedOptions(seed, sections, size);
-        bool replacing = CheckOutputFolder(outDir);
+        bool replacing = CheckOutputFolder(outDir, force);
 
         var clock = Stopwatch.StartNew();
         console.Progress($"making {options.Sections} sections at {options.Width}×{options.Height} px…");
         var specimen = DemoSpecimenMaker.Make(options);
+        if (!replacing) CheckNothingReplaced(outDir, specimen);
         console.Progress($"writing {outDir}…");
         DemoSpecimenMaker.WriteFiles(specimen, outDir);
         WriteTruthVolume(specimen, outDir);
@@ -96,19 +102,35 @@ public static class DemoCommand
     }
 
     /// <summary>
-    /// Refuses a folder that holds anything but an earlier demo, so a typo cannot scatter files into (or later
-    /// delete from) someone's data. Returns true when an earlier demo will be replaced.
+    /// Refuses a folder that is not empty unless <paramref name="force"/> is given, so a typo or a repeated command cannot
+    /// replace (or later delete) files without being asked. Returns true when an earlier demo will be replaced.
     /// </summary>
-    private static bool CheckOutputFolder(string outDir)
+    private static bool CheckOutputFolder(string outDir, bool force)
     {
         if (string.IsNullOrWhiteSpace(outDir))
             throw new InputProblemException(null, "no output folder given", "name a folder, for example: stackbuild demo my-demo");
         if (File.Exists(outDir))
             throw new InputProblemException(outDir, "this is a file, not a folder", "choose a new folder name for the demo");
         if (!Directory.Exists(outDir) || !Directory.EnumerateFileSystemEntries(outDir).Any()) return false;
-        if (DemoSpecimenMaker.IsDemoFolder(outDir)) return true;
-        throw new InputProblemException(outDir, "the folder is not empty and was not made by `stackbuild demo`",
-            "choose a new or empty folder, or move its contents elsewhere first");
+        bool earlierDemo = DemoSpecimenMaker.IsDemoFolder(outDir);
+        if (force) return earlierDemo;
+        throw earlierDemo
+            ? new InputProblemException(outDir, "the folder already holds a demo series",
+                "add --force to replace it (files the demo did not write are kept), or choose a new folder")
+            : new InputProblemException(outDir, "the folder is not empty and was not made by `stackbuild demo`",
+                "choose a new or empty folder, or add --force to add the demo beside what is there (no file is replaced)");
+    }
+
+    /// <summary>With --force in a folder that holds no earlier demo: refuses before writing when a demo file would replace one already there.</summary>
+    private static void CheckNothingReplaced(string outDir, DemoSpecimen specimen)
+    {
+        if (!Directory.Exists(outDir)) return;
+        var names = specimen.Sections.Select(s => s.FileName).OfType<string>()
+            .Concat([DemoSpecimenMaker.ManifestFileName, DemoSpecimenMaker.TruthFileName, DemoSpecimenMaker.TruthVolumeFileName]);
+        foreach (var name in names)
+            if (Path.Exists(Path.Combine(outDir, name)))
+                throw new InputProblemException(Path.Combine(outDir, name), "the demo would replace this file, which an earlier demo did not write",
+                    "choose a new or empty folder for the demo, or move this file elsewhere first");
     }
 
     /// <summary>Writes truth.nii.gz next to the series: the truth volume as NIfTI-1: stain density stored in 8 bits with scl_slope (steps of 1/255 of the range).</summary>

@@ -14,8 +14,8 @@ public static class ResliceCommand
 {
     public static Command Create(CliOutput console)
     {
-        var volumeArg = new Argument<string?>("VOL") { Description = "The volume to reslice (NIfTI-1, .nii or .nii.gz).", Arity = ArgumentArity.ZeroOrOne };
-        var output = new Option<string?>("--output", "-o") { Description = "The PNG to write (written whole or not at all)." };
+        var volumeArg = new Argument<string>("VOL") { Description = "The volume to reslice (NIfTI-1, .nii or .nii.gz)." };
+        var output = new Option<string>("--output", "-o") { Description = "The PNG to write (written whole or not at all).", Required = true };
         var plane = new Option<string>("--plane", "-p")
         {
             Description = $"Starting orientation before any tilt: {PlaneOrientation.Accepted}.",
@@ -44,7 +44,6 @@ public static class ResliceCommand
         var labelStyle = new Option<string>("--label-style") { Description = "Labels as outline or fill (flat colours).", DefaultValueFactory = _ => "outline" };
         var opacity = new Option<string?>("--opacity") { Description = "Opacity of every overlay, 0 to 1 (default 0.6 for intensities, 0.9 for labels)." };
         var figure = new Option<bool>("--figure") { Description = "Write a colour figure with edge letters and a scale bar (implied by --overlay and --labels)." };
-        var bench = new Option<bool>("--bench") { Description = "Time the reslicer on a synthetic 512³ volume (for docs/benchmarks-reslice.md).", Hidden = true };
 
         var command = new Command("reslice",
             "Cut one plane out of a volume, at any angle, and write it as a grey PNG.\n\n" +
@@ -53,15 +52,12 @@ public static class ResliceCommand
             "  stackbuild reslice volume.nii.gz --plane jk --tilt 15,-10 --offset 2.5 -o oblique.png --json\n" +
             "  stackbuild reslice volume.nii.gz --plane ik --overlay template.nii.gz --labels regions.nii.gz -o figure.png")
         {
-            volumeArg, output, plane, tilt, offset, size, pixel, nearest, bits, window, fill, json, overlay, labels, labelStyle, opacity, figure, bench,
+            volumeArg, output, plane, tilt, offset, size, pixel, nearest, bits, window, fill, json, overlay, labels, labelStyle, opacity, figure,
         };
         command.SetAction(parse => console.Guard(() =>
         {
-            if (parse.GetValue(bench)) return Benchmark(console.Out, int.TryParse(parse.GetValue(size), out var edge) ? edge : 512);
-            var path = parse.GetValue(volumeArg)
-                ?? throw new InputProblemException(null, "no volume given", "name a NIfTI file: stackbuild reslice VOL -o PLANE.png");
-            var outPath = parse.GetValue(output)
-                ?? throw new InputProblemException(path, "no output PNG given", "add -o PLANE.png");
+            var path = parse.GetValue(volumeArg)!;
+            var outPath = parse.GetValue(output)!;
             var bitsText = parse.GetValue(bits) ?? "8";
             int depth = bitsText switch { "8" => 8, "16" => 16, _ => throw new InputProblemException(null, $"--bits must be 8 or 16, not '{Shorten(bitsText)}'", "use --bits 8 or --bits 16") };
             var spec = Spec(parse.GetValue(plane) ?? "section", parse.GetValue(tilt), Number(parse.GetValue(offset), "--offset", "mm") ?? 0,
@@ -130,7 +126,8 @@ public static class ResliceCommand
                         Overlays = layers.Select(l => new { l.File, l.Labels, Window = new { l.Window.Low, l.Window.High }, l.Opacity }).ToArray(),
                     },
                 };
-                console.Out.WriteLine(JsonSerializer.Serialize(report, PlaneDescription.JsonOptions));
+                // snake_case keys, as the sidecar uses (the viewer's API keeps camelCase for its page script).
+                console.Out.WriteLine(JsonSerializer.Serialize(report, SnakeCaseJson));
             }
             else
             {
@@ -140,6 +137,21 @@ public static class ResliceCommand
             }
             return CliOutput.ExitOk;
         }));
+        return command;
+    }
+
+    private static readonly JsonSerializerOptions SnakeCaseJson = new(PlaneDescription.JsonOptions) { PropertyNamingPolicy = JsonNamingPolicy.SnakeCaseLower };
+
+    /// <summary>
+    /// <c>stackbuild reslice-bench [--size N]</c> (hidden): times the reslicer on a synthetic N³ volume, for
+    /// docs/benchmarks-reslice.md. A command of its own, so that <c>reslice</c> itself can require its volume and output.
+    /// </summary>
+    public static Command CreateBenchmark(CliOutput console)
+    {
+        var size = new Option<int>("--size") { Description = "Edge of the synthetic volume in voxels", DefaultValueFactory = _ => 512 };
+        var command = new Command("reslice-bench", "Time the reslicer on a synthetic 512³ volume (for docs/benchmarks-reslice.md).") { size };
+        command.Hidden = true;
+        command.SetAction(parse => console.Guard(() => Benchmark(console.Out, parse.GetValue(size))));
         return command;
     }
 
@@ -153,14 +165,14 @@ public static class ResliceCommand
         {
             var parts = tiltText.Split(',');
             if (parts.Length != 2 || !TryNumber(parts[0], out h) || !TryNumber(parts[1], out v))
-                throw new InputProblemException(null, $"--tilt '{Shorten(tiltText)}' is not two angles H,V in degrees", "give it as for example --tilt 10,-5");
+                throw new CommandLineProblemException($"--tilt '{Shorten(tiltText)}' is not two angles H,V in degrees", "give it as for example --tilt 10,-5");
         }
         int? width = null, height = null;
         if (sizeText is not null)
         {
             var parts = sizeText.ToLowerInvariant().Split('x');
             if (parts.Length is < 1 or > 2 || !parts.All(p => int.TryParse(p, NumberStyles.None, CultureInfo.InvariantCulture, out _)))
-                throw new InputProblemException(null, $"--size '{Shorten(sizeText)}' is not N or WxH in pixels", "give it as for example --size 512 or --size 640x480");
+                throw new CommandLineProblemException($"--size '{Shorten(sizeText)}' is not N or WxH in pixels", "give it as for example --size 512 or --size 640x480");
             width = int.Parse(parts[0], CultureInfo.InvariantCulture);
             height = parts.Length == 2 ? int.Parse(parts[1], CultureInfo.InvariantCulture) : width;
         }
@@ -172,7 +184,7 @@ public static class ResliceCommand
     {
         if (text is null) return null;
         if (TryNumber(text, out var value)) return value;
-        throw new InputProblemException(null, $"{option} '{Shorten(text)}' is not a number", $"give a {what} such as 0.5");
+        throw new CommandLineProblemException($"{option} '{Shorten(text)}' is not a number", $"give a {what} such as 0.5");
     }
 
     private static bool TryNumber(string text, out double value) =>

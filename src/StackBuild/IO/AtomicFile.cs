@@ -12,21 +12,66 @@ public static class AtomicFile
         var dir = Path.GetDirectoryName(full) ?? ".";
         if (!Directory.Exists(dir))
             throw new InputProblemException(path, "the folder for this output does not exist", "create the folder first or choose another output path");
+        if (Directory.Exists(full))
+            throw new InputProblemException(path, "this output path is a folder", "give a file name inside it, or another name");
         var temp = Path.Combine(dir, $".{Path.GetFileName(full)}.{Environment.ProcessId}.{Guid.NewGuid():N}.part");
+        FileStream stream;
         try
         {
-            using (var stream = new FileStream(temp, FileMode.CreateNew, FileAccess.Write, FileShare.None, 1 << 16))
+            stream = new FileStream(temp, FileMode.CreateNew, FileAccess.Write, FileShare.None, 1 << 16);
+        }
+        catch (Exception e) when (e is UnauthorizedAccessException or IOException)
+        {
+            throw CannotWriteIn(path, dir, e);
+        }
+        try
+        {
+            using (stream)
             {
                 write(stream);
                 stream.Flush(flushToDisk: true);
             }
             File.Move(temp, full, overwrite: true);
         }
+        catch (IOException e) when (e is not FileNotFoundException and not DirectoryNotFoundException)
+        {
+            Discard(temp);
+            // Disk full or a failing device: not the user's input, but say which output it was (exit code 3, README).
+            var reason = e.Message.Replace($" : '{temp}'", "", StringComparison.Ordinal).Replace(temp, "the temporary file", StringComparison.Ordinal).TrimEnd('.');
+            throw new IOException($"{path}: could not be written ({reason}); nothing was left at this path", e);
+        }
         catch
         {
-            try { File.Delete(temp); } catch (IOException) { } catch (UnauthorizedAccessException) { }
+            Discard(temp);
             throw;
         }
+    }
+
+    /// <summary>
+    /// Checks that a file can be created in <paramref name="folder"/> (by creating and removing an empty one), so that a
+    /// long run is refused at the start rather than at its end.
+    /// </summary>
+    public static void CheckFolderWritable(string path, string folder)
+    {
+        var probe = Path.Combine(folder, $".stackbuild-write-check.{Environment.ProcessId}.{Guid.NewGuid():N}");
+        try
+        {
+            using (new FileStream(probe, FileMode.CreateNew, FileAccess.Write, FileShare.None, 1, FileOptions.DeleteOnClose)) { }
+        }
+        catch (Exception e) when (e is UnauthorizedAccessException or IOException)
+        {
+            Discard(probe);
+            throw CannotWriteIn(path, folder, e);
+        }
+    }
+
+    private static InputProblemException CannotWriteIn(string path, string folder, Exception e) =>
+        new(path, $"cannot write in the folder {folder} ({(e is UnauthorizedAccessException ? "permission denied" : e.Message.TrimEnd('.'))})",
+            "choose an output folder you may write to", e);
+
+    private static void Discard(string temp)
+    {
+        try { File.Delete(temp); } catch (IOException) { } catch (UnauthorizedAccessException) { }
     }
 
     public static void WriteAllText(string path, string text) =>

@@ -33,3 +33,9 @@ public sealed class InputProblemsException : Exception
     public InputProblemsException(IReadOnlyList<InputProblemException> problems)
         : base(string.Join(Environment.NewLine, problems.Select(p => p.Message))) => Problems = problems;
 }
+
+/// <summary>
+/// A command-line value that cannot be read as what the option takes (text where a number goes), found by a command
+/// that reads its option text itself. The CLI treats it like the parser's own errors (exit code 2, README).
+/// </summary>
+public sealed class CommandLineProblemException(string problem, string remedy) : InputProblemException(null, problem, remedy);

@@ -68,6 +68,9 @@ public static class SectionImageReader
     {
         if (!File.Exists(path))
             throw new InputProblemException(path, "the file does not exist", "check the file name and folder");
+        if (new FileInfo(path).Length == 0)
+            throw new InputProblemException(path, "the file is empty (0 bytes)",
+                "copy the image again from where it was scanned or exported, or move it out of the series folder");
         try
         {
             using var stream = OpenRead(path);
@@ -153,12 +156,39 @@ public static class SectionImageReader
     private static ImageFacts IdentifyJpeg(string path, Stream stream)
     {
         var info = Image.Identify(Configuration.Default, stream) ?? throw NotReadable(path, "JPEG");
+        CheckJpegEnd(path, stream);
         var colour = info.Metadata.GetJpegMetadata().ColorType;
         if (colour == JpegColorType.Cmyk || colour is null && info.PixelType?.BitsPerPixel == 32)
             throw new InputProblemException(path, "is a CMYK JPEG (print colours), which is not read as a section image",
                 "convert it to RGB or gray (PNG or TIFF)");
         int channels = colour == JpegColorType.Luminance || colour is null && info.PixelType?.BitsPerPixel == 8 ? 1 : 3;
         return new ImageFacts(info.Width, info.Height, 8, channels, "JPEG");
+    }
+
+    /// <summary>
+    /// Refuses a JPEG without its end-of-image marker (FF D9) after its last scan (FF DA): a copy cut short. ImageSharp
+    /// decodes such a file without complaint (the corpus test of a JPEG cut in half built with exit 0). Inside a scan FF is always followed by 00
+    /// or a restart marker (ITU-T T.81 §B.1.1.5), so FF D9 there can only be the end; thumbnails sit before the main scan.
+    /// Only the last MiB is searched, which allows for data appended after the image.
+    /// </summary>
+    private static void CheckJpegEnd(string path, Stream stream)
+    {
+        const int window = 1 << 20;
+        long start = Math.Max(0, stream.Length - window);
+        var tail = new byte[stream.Length - start];
+        stream.Position = start;
+        stream.ReadExactly(tail);
+        stream.Position = 0;
+        int lastScan = -1, end = -1;
+        for (int i = 0; i + 1 < tail.Length; i++)
+        {
+            if (tail[i] != 0xFF) continue;
+            if (tail[i + 1] == 0xDA) lastScan = i;
+            else if (tail[i + 1] == 0xD9) end = i;
+        }
+        if (end < 0 || end < lastScan)
+            throw new InputProblemException(path, "the file is truncated: the JPEG data stops before its end marker",
+                "copy the file again from its source (the copy was cut short) or export it again");
     }
 
     private static InputProblemException NotReadable(string path, string format) =>

@@ -24,6 +24,7 @@ internal static class TiffSectionFile
     {
         using var tiff = Open(path, stream);
         var layout = ReadLayout(path, tiff);
+        CheckDataInsideFile(path, tiff, layout.Tiled, stream.Length);
         int channels = layout.Colour is Colour.Gray or Colour.GrayInverted ? 1 : 3;
         return new ImageFacts(layout.Width, layout.Height, layout.Bits, channels, layout.Tiled ? TiledFormat : "TIFF");
     }
@@ -177,6 +178,36 @@ internal static class TiffSectionFile
                 "save it again uncompressed or with LZW, Deflate or JPEG compression");
         return new Layout(width, height, bits, samples, planar, colour, tiled, jpegYCbCr);
     }
+
+    /// <summary>
+    /// Refuses a file whose strips or tiles, as its tags place them, run past its end: a copy cut short. (A TIFF cut
+    /// inside its strip was built without complaint before this check.)
+    /// </summary>
+    private static void CheckDataInsideFile(string path, Tiff tiff, bool tiled, long fileLength)
+    {
+        var offsets = tiff.GetField(tiled ? TiffTag.TILEOFFSETS : TiffTag.STRIPOFFSETS);
+        var counts = tiff.GetField(tiled ? TiffTag.TILEBYTECOUNTS : TiffTag.STRIPBYTECOUNTS);
+        if (offsets is null || counts is null) return; // LibTiff reports these when decoding
+        var start = Longs(offsets[0]);
+        var size = Longs(counts[0]);
+        long end = 0;
+        for (int i = 0; i < Math.Min(start.Length, size.Length); i++) end = Math.Max(end, start[i] + size[i]);
+        if (end > fileLength)
+            throw new InputProblemException(path,
+                $"the file is truncated: it is {fileLength:N0} bytes but its image data runs to byte {end:N0}",
+                "copy the file again from its source (the copy was cut short) or export it again");
+    }
+
+    private static long[] Longs(FieldValue value) =>
+        value.Value switch
+        {
+            long[] l => l,
+            ulong[] u => [.. u.Select(v => (long)Math.Min(v, long.MaxValue))],
+            uint[] u => [.. u.Select(v => (long)v)],
+            int[] i => [.. i.Select(v => (long)(uint)v)],
+            ushort[] u => [.. u.Select(v => (long)v)],
+            _ => value.ToUIntArray()?.Select(v => (long)v).ToArray() ?? [],
+        };
 
     private static InputProblemException Failed(string path, string what)
     {

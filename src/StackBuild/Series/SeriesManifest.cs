@@ -29,6 +29,9 @@ internal sealed record SeriesManifest(string Display, bool HasTable, double? Pix
 {
     public const string DefaultName = "manifest.csv";
 
+    /// <summary>Setting lines that were present but refused (a problem was reported for each), so no second problem says the value is missing.</summary>
+    public IReadOnlySet<string> RefusedSettings { get; init; } = new HashSet<string>();
+
     private static readonly string[] Columns = ["section", "file", "position_um", "pixel_size_um", "mirrored", "exclude", "damaged", "note"];
     private static readonly string[] Settings = ["pixel_size_um", "spacing_um"];
 
@@ -36,18 +39,26 @@ internal sealed record SeriesManifest(string Display, bool HasTable, double? Pix
     public static SeriesManifest Read(string path, string display, List<InputProblemException> problems)
     {
         string text;
+        var bytes = File.ReadAllBytes(path);
+        if (bytes.Length >= 2 && (bytes[0], bytes[1]) is (0xFF, 0xFE) or (0xFE, 0xFF))
+        {
+            // What spreadsheets save as "Unicode text": name it, since "not UTF-8" alone does not say what to change.
+            problems.Add(new InputProblemException(display, "is UTF-16 text, not UTF-8", "save it again as 'CSV UTF-8 (comma-separated)'"));
+            return new SeriesManifest(display, true, null, null, []);
+        }
         try
         {
-            text = new UTF8Encoding(false, throwOnInvalidBytes: true).GetString(File.ReadAllBytes(path));
+            text = new UTF8Encoding(false, throwOnInvalidBytes: true).GetString(bytes);
         }
         catch (DecoderFallbackException)
         {
-            problems.Add(new InputProblemException(display, "is not UTF-8 text", "save it again as CSV with UTF-8 encoding"));
+            problems.Add(new InputProblemException(display, "is not UTF-8 text (another encoding, such as Latin-1)", "save it again as CSV with UTF-8 encoding"));
             return new SeriesManifest(display, true, null, null, []);
         }
         if (text.Length > 0 && text[0] == '\uFEFF') text = text[1..];
 
         var settings = new Dictionary<string, (double Value, int Line)>();
+        var refused = new HashSet<string>();
         var rows = new List<ManifestRow>();
         string[]? header = null;
         bool headerUsable = false;
@@ -61,7 +72,7 @@ internal sealed record SeriesManifest(string Display, bool HasTable, double? Pix
             if (trimmed.Length == 0) continue;
             if (trimmed.StartsWith("#!", StringComparison.Ordinal))
             {
-                ReadSetting(trimmed[2..], where, lineNumber, settings, problems);
+                ReadSetting(trimmed[2..], where, lineNumber, settings, refused, problems);
                 continue;
             }
             if (trimmed[0] == '#') continue;
@@ -85,10 +96,11 @@ internal sealed record SeriesManifest(string Display, bool HasTable, double? Pix
         return new SeriesManifest(display, header is not null,
             settings.TryGetValue("pixel_size_um", out var px) ? px.Value : null,
             settings.TryGetValue("spacing_um", out var sp) ? sp.Value : null,
-            rows);
+            rows) { RefusedSettings = refused };
     }
 
-    private static void ReadSetting(string body, string where, int line, Dictionary<string, (double, int)> settings, List<InputProblemException> problems)
+    private static void ReadSetting(string body, string where, int line, Dictionary<string, (double, int)> settings, HashSet<string> refused,
+        List<InputProblemException> problems)
     {
         int eq = body.IndexOf('=');
         string key = (eq < 0 ? body : body[..eq]).Trim().ToLowerInvariant();
@@ -101,6 +113,7 @@ internal sealed record SeriesManifest(string Display, bool HasTable, double? Pix
         }
         if (eq < 0 || !TryPositive(value, out double number))
         {
+            refused.Add(key);
             problems.Add(new InputProblemException(where, $"{key} needs a positive number in micrometres, not '{value}'",
                 $"write it as '#! {key} = 4.0' (a dot for decimals)"));
             return;

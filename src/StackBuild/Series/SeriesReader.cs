@@ -306,6 +306,7 @@ public static class SeriesReader
                 steps.Add((positioned[i].Row!.PositionUm!.Value - positioned[i - 1].Row!.PositionUm!.Value) / (positioned[i].Number - positioned[i - 1].Number));
             return Quantiles.Median(steps);
         }
+        if (manifest?.RefusedSettings.Contains("spacing_um") == true) return null; // its setting line was refused already
         problems.Add(new InputProblemException(where, "the section spacing is unknown",
             $"give it with --spacing (micrometres between consecutive section numbers, for example --spacing 50) or a line '#! spacing_um = 50' in {manifestName}"));
         return null;
@@ -326,7 +327,7 @@ public static class SeriesReader
             if ((options.PixelSizeUm ?? c.Row?.PixelSizeUm ?? manifest?.PixelSizeUm) is { } size) sizes[c.Number] = size;
             else if (c.Display is not null) unknown = true;
         }
-        if (unknown)
+        if (unknown && manifest?.RefusedSettings.Contains("pixel_size_um") != true) // a refused setting line was reported already
             problems.Add(new InputProblemException(where, "the pixel size is unknown",
                 $"give it with --pixel-size (micrometres per image pixel, for example --pixel-size 4.0) or a line '#! pixel_size_um = 4.0' in {manifestName}"));
         return sizes;

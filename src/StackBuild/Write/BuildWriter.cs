@@ -25,8 +25,8 @@ public sealed record BuildOutputPaths(string Volume, string Sidecar)
     }
 
     /// <summary>
-    /// Checks, before any work is done, that the outputs can be written: the folder exists and none of the
-    /// three paths is a folder.
+    /// Checks, before any work is done, that the outputs can be written: the folder exists, a file can be created
+    /// in it, and none of the three paths is a folder.
     /// </summary>
     public void CheckWritable()
     {
@@ -36,6 +36,7 @@ public sealed record BuildOutputPaths(string Volume, string Sidecar)
         foreach (var path in new[] { Volume, Sidecar, Report })
             if (Directory.Exists(path))
                 throw new InputProblemException(path, "an output would replace a folder of that name", "choose another output name");
+        AtomicFile.CheckFolderWritable(Volume, folder);
     }
 }
 
