@@ -92,18 +92,26 @@ public sealed class BuildCommandTests : IDisposable
         var output = Path.Combine(_dir, "solved.nii.gz");
         var (code, stdout, stderr) = Run("build", RepositoryPaths.DemoSeries, "-o", output, "--smoothing", "0", "--fill", "none");
         Assert.True(code == 0, stderr);
-        Assert.Contains("Solve    all pairs at once (--smoothing 0). Drift is not reduced", stdout);
-        Assert.Contains("--template removes drift", stdout);
+        Assert.Contains("Solve    all pairs at once (--smoothing 0).", stdout);
+        Assert.Contains("--template removes", stdout);
         Assert.Contains("Sections 54 aligned, 1 excluded, 5 gaps", stdout);
         // The torn section 4 is mounted wrong side up by the chain (truth.json); the build cannot know that, but says
         // its side is uncertain because the turned-over hypothesis scored close.
         Assert.Matches(@"section 4: low registration confidence \(0\.[0-4]\d\); which side is up is uncertain", stdout);
+        // Without a template every section carries the chain's slow drift in its estimate (docs/uncertainty.md); those
+        // flagged for nothing else are listed in one line as runs of numbers, after the sections with a trouble of their own.
+        Assert.Matches(@"\nCheck    sections 1–3, 5–[\d–, ]+: estimated placement error above 2 voxels \(without a template", stdout);
+        Assert.True(stdout.IndexOf("Check    section 4:", StringComparison.Ordinal) < stdout.IndexOf("Check    sections 1–3", StringComparison.Ordinal));
         var parameters = JsonDocument.Parse(File.ReadAllText(Path.Combine(_dir, "solved.json"))).RootElement.GetProperty("parameters");
         string closure = parameters.GetProperty("route_closure_slow_share").GetString()!;
         Assert.Matches(@"^0\.\d+, limit 0\.\d+$", closure);
         var parts = closure.Split(", limit ").Select(v => double.Parse(v, System.Globalization.CultureInfo.InvariantCulture)).ToArray();
         Assert.Equal(parts[0] > parts[1] ? "0.01" : "1", parameters.GetProperty("second_neighbour_weight").GetString());
-        Assert.Contains("route closure slow share", File.ReadAllText(Path.Combine(_dir, "solved.report.html")));
+        string report = File.ReadAllText(Path.Combine(_dir, "solved.report.html"));
+        Assert.Contains("route closure slow share", report);
+        // The report shows thumbnails for the sections with a trouble of their own (section 4) and lists the drift-only ones.
+        Assert.Matches(@"class=""estimate-only"">Flagged only for an estimated placement error above 2 voxels \(without a template[^<]*: sections 1–3, 5–", report);
+        Assert.InRange(System.Text.RegularExpressions.Regex.Matches(report, @"class=""flag""").Count, 1, 5);
     }
 
     [Fact]

@@ -190,10 +190,17 @@ public static class BuildCommand
         // The same sections the report flags (failed ones are in the warnings below).
         var all = SectionFlags.For(r);
         var flagged = r.Sections.Where(s => s.Status != "failed").Select(s => (s.Number, Reasons: all[s.Number])).Where(t => t.Reasons.Count > 0).ToList();
+        // Sections flagged for nothing but an estimated error above 2 voxels are, in a build without a template, the chain's
+        // slow drift: one line for all of them, so the sections with a trouble of their own stand out.
+        var specific = flagged.Where(t => !SectionFlags.EstimateOnly(t.Reasons)).ToList();
+        var estimateOnly = flagged.Where(t => SectionFlags.EstimateOnly(t.Reasons)).Select(t => t.Number).ToList();
         const int shown = 6;
-        foreach (var (number, reasons) in flagged.Take(shown))
+        foreach (var (number, reasons) in specific.Take(shown))
             o.WriteLine($"Check    section {number}: {string.Join("; ", reasons)}");
-        if (flagged.Count > shown) o.WriteLine($"Check    {flagged.Count - shown} more section(s): see the report");
+        if (specific.Count > shown) o.WriteLine($"Check    {specific.Count - shown} more section(s): see the report");
+        if (estimateOnly.Count > 0)
+            o.WriteLine($"Check    {(estimateOnly.Count == 1 ? "section" : "sections")} {SectionFlags.Runs(estimateOnly)}: estimated placement error above {SectionFlags.EstimatedErrorVoxels} voxels" +
+                (r.Sections.Any(x => x.Template is not null) ? "" : " (without a template the chain's course is unchecked and drifts slowly; a template would measure and remove it)"));
         foreach (var w in r.Warnings) o.WriteLine($"warning: {w}");
         if (!alignRequested)
             o.WriteLine("Note: sections were placed centred and NOT aligned (--no-align); this volume shows the series as scanned.");

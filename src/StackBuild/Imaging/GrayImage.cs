@@ -29,6 +29,16 @@ public sealed class GrayImage
 
     public GrayImage Clone() => new(Width, Height, (float[])Pixels.Clone());
 
+    /// <summary>A copy of the <paramref name="width"/> × <paramref name="height"/> block whose top-left pixel is (<paramref name="x"/>, <paramref name="y"/>); the block must lie inside the image.</summary>
+    public GrayImage Crop(int x, int y, int width, int height)
+    {
+        if (x < 0 || y < 0 || width <= 0 || height <= 0 || x + width > Width || y + height > Height)
+            throw new ArgumentOutOfRangeException(nameof(x), "The block must lie inside the image.");
+        var crop = new GrayImage(width, height);
+        for (int r = 0; r < height; r++) Row(y + r).Slice(x, width).CopyTo(crop.Row(r));
+        return crop;
+    }
+
     /// <summary>
     /// The median of the outermost band of pixels, <paramref name="band"/> wide (each pixel counted once; the upper of
     /// the two middle values for an even count): the slide's background level.

@@ -55,6 +55,49 @@ public static class TemplateRegistration
     /// </summary>
     public static TemplateMatch Register(GrayImage section, GrayImage slice, Transform2D? start, TemplateRegistrationOptions? options = null)
     {
+        // Registered on the tissue, not on the canvas: a small end section on a wide slide image is cropped to its tissue
+        // (plus a margin), so the coarsest pyramid level, where the global search turns it, still sees its shape rather than
+        // a few pixels. The match is carried back to the whole image's pixels.
+        if (TissueBox(section) is { } box)
+        {
+            var crop = section.Crop(box.X, box.Y, box.Width, box.Height);
+            var toCrop = Transform2D.Translation(-box.X, -box.Y);
+            var inner = RegisterWhole(crop, slice, start is { } s0 ? toCrop.Inverse().Then(s0) : null, options);
+            return inner with { SectionToSlice = toCrop.Then(inner.SectionToSlice) };
+        }
+        return RegisterWhole(section, slice, start, options);
+    }
+
+    /// <summary>
+    /// The tissue's bounding box (2nd to 98th percentile of the tissue pixels' x and y, as <see cref="TissueCentre"/> finds
+    /// them) widened by a quarter of its larger side and at least 8 pixels, when that box covers at most half of the image;
+    /// null otherwise (nothing gained by cropping) or when there is no tissue.
+    /// </summary>
+    internal static (int X, int Y, int Width, int Height)? TissueBox(GrayImage image)
+    {
+        var range = HistogramMutualInformation.RobustRange(image);
+        double background = image.BorderMedian(), threshold = 0.2 * (range.High - range.Low);
+        var xs = new List<int>();
+        var ys = new List<int>();
+        for (int y = 0; y < image.Height; y++)
+        {
+            var row = image.Row(y);
+            for (int x = 0; x < image.Width; x++)
+                if (Math.Abs(row[x] - background) > threshold) { xs.Add(x); ys.Add(y); }
+        }
+        if (xs.Count < 16) return null;
+        xs.Sort(); ys.Sort();
+        int Q(List<int> v, double q) => v[(int)Math.Round(q * (v.Count - 1))];
+        int x0 = Q(xs, 0.02), x1 = Q(xs, 0.98), y0 = Q(ys, 0.02), y1 = Q(ys, 0.98);
+        int margin = Math.Max(8, (int)Math.Ceiling(0.25 * Math.Max(x1 - x0 + 1, y1 - y0 + 1)));
+        x0 = Math.Max(0, x0 - margin); y0 = Math.Max(0, y0 - margin);
+        x1 = Math.Min(image.Width - 1, x1 + margin); y1 = Math.Min(image.Height - 1, y1 + margin);
+        int w = x1 - x0 + 1, h = y1 - y0 + 1;
+        return (long)w * h <= (long)image.Width * image.Height / 2 ? (x0, y0, w, h) : null;
+    }
+
+    private static TemplateMatch RegisterWhole(GrayImage section, GrayImage slice, Transform2D? start, TemplateRegistrationOptions? options)
+    {
         options ??= new TemplateRegistrationOptions();
         var problem = new Problem(section, slice, options);
         int evaluations = 0;

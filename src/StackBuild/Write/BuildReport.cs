@@ -42,6 +42,29 @@ public static class SectionFlags
         return record with { Sections = record.Sections.Select(s => s with { Flags = [.. flags[s.Number]] }).ToList() };
     }
 
+    /// <summary>
+    /// True when every reason is the estimated error above <see cref="EstimatedErrorVoxels"/> voxels: in a build without a
+    /// template, the chain's slow drift. The CLI and the report list such sections in one line, after the sections that have
+    /// a trouble of their own.
+    /// </summary>
+    public static bool EstimateOnly(IReadOnlyList<string> reasons) =>
+        reasons.Count > 0 && reasons.All(x => x.StartsWith("estimated placement error", StringComparison.Ordinal));
+
+    /// <summary>Section numbers in order as runs: "1–3, 5, 7–60".</summary>
+    public static string Runs(IEnumerable<int> numbers)
+    {
+        var sorted = numbers.Order().ToList();
+        var parts = new List<string>();
+        for (int i = 0; i < sorted.Count; i++)
+        {
+            int j = i;
+            while (j + 1 < sorted.Count && sorted[j + 1] == sorted[j] + 1) j++;
+            parts.Add(j == i ? $"{sorted[i]}" : $"{sorted[i]}–{sorted[j]}");
+            i = j;
+        }
+        return string.Join(", ", parts);
+    }
+
     /// <summary>A template match weaker than this share of its neighbours' median similarity is flagged.</summary>
     public const double WeakTemplateShare = 0.5;
 
@@ -222,7 +245,13 @@ public static class BuildReport
             o.Write("<p class=\"note\">Each row: the section as placed in the volume, the neighbour it was compared with, and both overlaid " +
                 "(section in magenta, neighbour in green, each scaled by its own brightness range first; grey where they agree).</p>");
             var byNumber = placed.ToDictionary(s => s.Number);
-            foreach (var (s, reasons) in flagged) FlaggedSection(o, volume, window, r, s, reasons, byNumber);
+            foreach (var (s, reasons) in flagged.Where(f => !SectionFlags.EstimateOnly(f.Reasons)))
+                FlaggedSection(o, volume, window, r, s, reasons, byNumber);
+            var estimateOnly = flagged.Where(f => SectionFlags.EstimateOnly(f.Reasons)).Select(f => f.Section.Number).ToList();
+            if (estimateOnly.Count > 0)
+                o.Write($"<p class=\"estimate-only\">Flagged only for an estimated placement error above {SectionFlags.EstimatedErrorVoxels} voxels " +
+                    (r.Sections.Any(x => x.Template is not null) ? "" : "(without a template the chain's course is unchecked and drifts slowly; a template would measure and remove it)") +
+                    $": {(estimateOnly.Count == 1 ? "section" : "sections")} {SectionFlags.Runs(estimateOnly)}. Their estimates are in the table below.</p>");
         }
         o.Write("</section>");
 
