@@ -327,8 +327,8 @@ public static class BuildReport
                 (template ? $"<td class=\"template\">{E(TemplateMatch(s.Template))}</td>" : "") + "</tr>");
         }
         o.Write("</tbody></table><p class=\"note\">Translation: where the image's top-left pixel centre lands in the output plane. " +
-            "Estimated error: one standard error relative to the reference section, from peak sharpness, route disagreement " +
-            "and confidence, accumulated along the chain (see docs/uncertainty.md)" +
+            "Estimated error: one standard error, from peak sharpness, route disagreement and confidence accumulated along the " +
+            "chain, and without a template the chain's slow drift as one global fit would see it (see docs/uncertainty.md)" +
             (template ? "; with a template, relative to the template, from how well the template matches nearby agree with the placements. " +
                 "Template match: similarity (normalised mutual information − 1) and how far the section's own match lies from its placement" : "") +
             ".</p></section>");

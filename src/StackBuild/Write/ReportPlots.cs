@@ -98,10 +98,10 @@ internal static class ReportPlots
         return Finish(plot, record);
     }
 
-    /// <summary>The estimated placement error relative to the reference section (µm).</summary>
+    /// <summary>The estimated placement error (µm): without a template the chain's link errors and its slow drift, with one relative to the template.</summary>
     public static byte[] EstimatedError(BuildRecord record)
     {
-        var plot = NewPlot(record.Frame?.Template is null ? "Estimated placement error (relative to the reference section)"
+        var plot = NewPlot(record.Frame?.Template is null ? "Estimated placement error (chain links and slow drift)"
             : "Estimated placement error (relative to the template)", "error (µm)");
         AddSeries(plot, record.Sections.Where(s => s.EstimatedErrorUm is not null).ToList(), s => s.EstimatedErrorUm!.Value, Blue, "estimate (1 standard error)");
         plot.Axes.SetLimitsY(0, Math.Max(1, record.Sections.Max(s => s.EstimatedErrorUm ?? 0)) * 1.08);
