@@ -14,6 +14,7 @@ public static class Program
     public static void Main(string[] args)
     {
         if (args.Length > 0 && args[0] == "accuracy") { AccuracyTable.Run(args[1..]); return; }
+        if (args.Length > 0 && args[0] == "pairs") { PairDiagnosis.Run(args[1..]); return; }
         BenchmarkSwitcher.FromAssembly(typeof(Program).Assembly).Run(args);
     }
 }
