@@ -83,6 +83,9 @@ internal sealed class PairEngine : IDisposable
         }
     }
 
+    /// <summary>Bound on the NCC evaluations of one <see cref="Polish"/>: a guard against a long walk, not a target (the demo builds the same with and without it).</summary>
+    public const int MaxPolishEvaluations = 600;
+
     /// <summary>
     /// Polishes a hypothesis by maximising its NCC directly over angle and translation together, starting where phase
     /// correlation and the angle search left it. Phase correlation's translation is the peak of the whitened cross-power,
@@ -105,7 +108,9 @@ internal sealed class PairEngine : IDisposable
         double best = Ncc(Map(p[0], p[1], p[2]));
         double radius = Math.Max(4, Math.Max(_fixed.TissueRadius, _moving.TissueRadius));
         double step = 1, angleStep = 180 / Math.PI / radius;
-        while (step >= 1.0 / 32)
+        // At most MaxPolishEvaluations NCC evaluations: each move must raise the NCC, but a long walk on a nearly flat slope
+        // is cut off rather than left to run.
+        for (int evaluations = 0; step >= 1.0 / 32 && evaluations < MaxPolishEvaluations; evaluations += 6)
         {
             bool moved = false;
             for (int axis = 0; axis < 3; axis++)
