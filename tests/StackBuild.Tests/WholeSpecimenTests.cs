@@ -51,14 +51,16 @@ public sealed class WholeSpecimenTests(WholeSpecimenBuilds builds, ITestOutputHe
     [Fact]
     public void NoSectionIsMisplacedSilently()
     {
-        // Issue target: every section more than 2 px off (or turned over wrongly) carries a flag in the sidecar. Held with the
-        // template; without one the chain's slow drift puts most sections several voxels off the specimen's true shape, and
-        // the estimated error (a random walk of the link errors) sees only part of it: measured, not asserted (docs/accuracy.md).
+        // Issue target: every section more than 2 px off (or turned over wrongly) carries a flag in the sidecar, with and
+        // without a template. Without one the chain's slow drift puts most sections several voxels off the specimen's true
+        // shape; since the estimated error carries that drift (Uncertainty.DriftError, its constant set on the development
+        // cuts and the demo, not on this one) they are flagged: measured 2026-12-03, 49 off, all flagged.
         var guided = builds.Rows.Single(r => r.Build == "template");
         Show(guided);
         Assert.Empty(guided.Unflagged);
         var plain = builds.Rows.Single(r => r.Build == "plain");
         output.WriteLine($"plain: {plain.OffSections} sections more than 2 px off, {plain.Unflagged.Count} of them without a flag");
+        Assert.Empty(plain.Unflagged);
         // Sections that are not placed at all are reported as failed and flagged, never written as if placed.
         foreach (var row in builds.Rows)
             foreach (var s in row.Record.Sections.Where(s => s.Status == "failed"))
