@@ -116,10 +116,11 @@ internal sealed class PairEngine : IDisposable
             for (int axis = 0; axis < 3; axis++)
             for (int sign = -1; sign <= 1; sign += 2)
             {
-                var q = (double[])p.Clone();
-                q[axis] += sign * (axis == 0 ? angleStep : step);
-                double v = Ncc(Map(q[0], q[1], q[2]));
-                if (v > best) { best = v; p = q; moved = true; }
+                double kept = p[axis];
+                p[axis] = kept + sign * (axis == 0 ? angleStep : step);
+                double v = Ncc(Map(p[0], p[1], p[2]));
+                if (v > best) { best = v; moved = true; }
+                else p[axis] = kept;
             }
             if (!moved) { step /= 2; angleStep /= 2; }
         }

@@ -175,7 +175,8 @@ public static class ChainSolver
             return Math.Sqrt((a.X - b.X) * (a.X - b.X) + (a.Y - b.Y) * (a.Y - b.Y));
         });
         double? disagreement = usable.Count == 2 ? Disagreement(usable[0].ToReference, usable[1].ToReference) : null;
-        double? anyDisagreement = routes.Count == 2 ? Disagreement(routes[0].ToReference, routes[1].ToReference) : null;
+        // With both routes trusted they are the same two routes: measured once.
+        double? anyDisagreement = disagreement ?? (routes.Count == 2 ? Disagreement(routes[0].ToReference, routes[1].ToReference) : null);
         if (usable.Count == 0)
             return new ChainPlacement(Transform2D.Identity, LinkRoute.Failed, -1, routes.Count > 0 ? routes.MaxBy(r => r.Result.Confidence).Result : null, disagreement, 0,
                 AnyRouteDisagreement: anyDisagreement);

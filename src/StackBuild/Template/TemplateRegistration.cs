@@ -75,16 +75,9 @@ public static class TemplateRegistration
     /// </summary>
     internal static (int X, int Y, int Width, int Height)? TissueBox(GrayImage image)
     {
-        var range = HistogramMutualInformation.RobustRange(image);
-        double background = image.BorderMedian(), threshold = 0.2 * (range.High - range.Low);
         var xs = new List<int>();
         var ys = new List<int>();
-        for (int y = 0; y < image.Height; y++)
-        {
-            var row = image.Row(y);
-            for (int x = 0; x < image.Width; x++)
-                if (Math.Abs(row[x] - background) > threshold) { xs.Add(x); ys.Add(y); }
-        }
+        foreach (var (x, y) in TissuePixels(image, HistogramMutualInformation.RobustRange(image))) { xs.Add(x); ys.Add(y); }
         if (xs.Count < 16) return null;
         xs.Sort(); ys.Sort();
         int Q(List<int> v, double q) => v[(int)Math.Round(q * (v.Count - 1))];
@@ -316,20 +309,23 @@ public static class TemplateRegistration
         return result;
     }
 
+    /// <summary>The tissue pixels: those that differ from the background (the median of the border pixels) by more than a fifth of the robust range, whichever way the contrast runs.</summary>
+    private static IEnumerable<(int X, int Y)> TissuePixels(GrayImage image, (double Low, double High) range)
+    {
+        double background = image.BorderMedian(), threshold = 0.2 * (range.High - range.Low);
+        for (int y = 0; y < image.Height; y++)
+            for (int x = 0; x < image.Width; x++)
+                if (Math.Abs(image[x, y] - background) > threshold) yield return (x, y);
+    }
+
     /// <summary>
     /// Centre and radius (root mean square distance) of the tissue: pixels that differ from the background (the median of
     /// the border pixels) by more than a fifth of the robust range, whichever way the contrast runs. The image centre when none.
     /// </summary>
     internal static (double X, double Y) TissueCentre(GrayImage image, (double Low, double High) range, out double radius)
     {
-        double background = image.BorderMedian(), threshold = 0.2 * (range.High - range.Low);
         double sx = 0, sy = 0, sxx = 0, n = 0;
-        for (int y = 0; y < image.Height; y++)
-        {
-            var row = image.Row(y);
-            for (int x = 0; x < image.Width; x++)
-                if (Math.Abs(row[x] - background) > threshold) { sx += x; sy += y; sxx += (double)x * x + (double)y * y; n++; }
-        }
+        foreach (var (x, y) in TissuePixels(image, range)) { sx += x; sy += y; sxx += (double)x * x + (double)y * y; n++; }
         if (n < 4)
         {
             radius = Math.Min(image.Width, image.Height) / 4.0;

@@ -48,7 +48,10 @@ public static class SectionFlags
     /// a trouble of their own.
     /// </summary>
     public static bool EstimateOnly(IReadOnlyList<string> reasons) =>
-        reasons.Count > 0 && reasons.All(x => x.StartsWith("estimated placement error", StringComparison.Ordinal));
+        reasons.Count > 0 && reasons.All(x => x.StartsWith(EstimateReason, StringComparison.Ordinal));
+
+    /// <summary>How the reason for a large estimated error begins (<see cref="Reasons"/>, <see cref="EstimateOnly"/>).</summary>
+    private const string EstimateReason = "estimated placement error";
 
     /// <summary>Section numbers in order as runs: "1–3, 5, 7–60".</summary>
     public static string Runs(IEnumerable<int> numbers)
@@ -113,7 +116,7 @@ public static class SectionFlags
                 ? $"nothing matched across the sections before or after this stretch, so it was chained to this section as a part of its own (part {part}): where the part lies relative to the rest is unknown — a template would place it"
                 : $"in part {part} of the stack, which nothing linked to the rest: where the part lies relative to the rest is unknown — a template would place it");
         if (voxelUm is double v && s.EstimatedErrorUm is double estimate && estimate > EstimatedErrorVoxels * v && s.Status == "aligned")
-            reasons.Add(string.Create(CultureInfo.InvariantCulture, $"estimated placement error {estimate:0} µm, more than {EstimatedErrorVoxels} voxels")
+            reasons.Add(string.Create(CultureInfo.InvariantCulture, $"{EstimateReason} {estimate:0} µm, more than {EstimatedErrorVoxels} voxels")
                 + (s.Template is null ? " (without a template the chain's course is unchecked: its links' errors add up to a slow drift of the stack; a template would measure and remove it)" : ""));
         if (s.Damaged) reasons.Add("marked damaged in the manifest" + (string.IsNullOrEmpty(s.Note) ? "" : $" ({s.Note})"));
         if (s.Template?.Outlier is { } why) reasons.Add($"its template match was set aside ({why})");
