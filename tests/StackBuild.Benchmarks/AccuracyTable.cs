@@ -16,14 +16,16 @@ public static class AccuracyTable
     {
         string? only = null, work = null;
         int? seed = null;
-        bool heldOut = false;
+        bool heldOut = false, plainToo = true, templateToo = true;
         for (int i = 0; i < args.Length; i++)
         {
             if (args[i] == "--only" && i + 1 < args.Length) only = args[++i];
             else if (args[i] == "--work" && i + 1 < args.Length) work = args[++i];
             else if (args[i] == "--seed" && i + 1 < args.Length) seed = int.Parse(args[++i], System.Globalization.CultureInfo.InvariantCulture);
             else if (args[i] == "--held-out") heldOut = true;
-            else throw new ArgumentException($"unknown option {args[i]}: use --only NAME, --work DIR, --seed N, --held-out");
+            else if (args[i] == "--template-only") plainToo = false;
+            else if (args[i] == "--plain-only") templateToo = false;
+            else throw new ArgumentException($"unknown option {args[i]}: use --only NAME, --work DIR, --seed N, --held-out, --template-only, --plain-only");
         }
         bool keep = work is not null;
         work ??= Directory.CreateTempSubdirectory("sb-accuracy-").FullName;
@@ -35,7 +37,7 @@ public static class AccuracyTable
             var cases = AccuracyRun.PublicCases.Concat(heldOut ? AccuracyRun.HeldOutCases : []).Select(c => seed is int s ? c with { Seed = s } : c);
             foreach (var c in cases.Where(c => only is null || c.Name.Contains(only, StringComparison.OrdinalIgnoreCase)))
             {
-                var these = AccuracyRun.Run(c, work, progress);
+                var these = AccuracyRun.Run(c, work, progress, plainToo, templateToo);
                 rows.AddRange(these);
                 foreach (var r in these)
                 {

@@ -108,4 +108,47 @@ public sealed class MirrorParityTests
         var result = MirrorParity.Decide(8, pairs);
         Assert.NotEqual(result.Flipped[5], result.Flipped[6]);
     }
+
+    [Fact]
+    public void APairAcrossALostSectionWeighsAsASecondNeighbour()
+    {
+        // Ten sections, section 5 of the numbering lost: stack positions 0–4 are numbers 0–4, positions 5–9 numbers 6–10.
+        // The pair across the gap, (5, 4), prefers the wrong relative mirror (NCC 0.866 against 0.8, Fisher z 0.22); the other
+        // pairs across the gap prefer the right one by 0.03 NCC. Counted as a nearest pair it turns one side over (gain 0.22
+        // against 0.09 of the pairs and 0.1 of the prior); counted as the two-section pair it is (half weight, and the
+        // position pairs 3 apart across the gap are 4 sections apart and left out), the prior keeps every section face up.
+        var truth = Sides(10);
+        var pairs = Pairs(truth, 0.03, (m, f) => (m, f) == (5, 4) ? -0.066 : 0.03);
+        var steps = Enumerable.Range(0, 10).Select(i => (double)(i < 5 ? i : i + 1)).ToList();
+        var byPosition = MirrorParity.Decide(10, pairs);
+        Assert.True(byPosition.Flipped[5] != byPosition.Flipped[4], "counted as a nearest pair, the wrong pair should turn one side over (else this test shows nothing)");
+        var bySteps = MirrorParity.Decide(10, pairs, steps);
+        Assert.Equal(truth, bySteps.Flipped);
+        // Positions 3 apart across the gap are 4 sections apart: left out, so the decision cannot depend on them.
+        var withFarWrong = new Dictionary<(int, int), PairResult>(pairs) { [(7, 4)] = Pair(0.1, 0.9) };
+        Assert.Equal(bySteps.Flipped, MirrorParity.Decide(10, withFarWrong, steps).Flipped);
+    }
+
+    [Fact]
+    public void TemplateVotesDecideWhereThePairsCannotAndTheirHandednessIsFound()
+    {
+        // Sections 10–13 are tied to the rest by pairs that say nothing (equal scores): the prior would keep them face up,
+        // but 11–12 lie face down. Votes from the template for every section (lead 0.05, as on the macaque template, where
+        // every such vote was right) settle them, whether face up looks unmirrored on the template or mirrored (the series
+        // scanned from the other side): only the relation between the votes matters.
+        var truth = Sides(20, 3, 11, 12);
+        var pairs = Pairs(truth, 0.05, (m, f) => m >= 10 && m <= 13 || f >= 10 && f <= 13 ? 0 : 0.05);
+        Assert.NotEqual(truth, MirrorParity.Decide(20, pairs).Flipped);
+        foreach (bool handedness in new[] { false, true })
+        {
+            var votes = truth.Select(down => (down != handedness) ? new SideVote(0, 0.05) : new SideVote(0.05, 0)).Select(v => (SideVote?)v).ToList();
+            var result = MirrorParity.Decide(20, pairs, null, votes);
+            Assert.Equal(truth, result.Flipped);
+            Assert.All(new[] { 11, 12 }, i => Assert.True(result.Margin[i] > 0.02, $"section {i}: margin {result.Margin[i]} should include its vote"));
+        }
+        // A single wrong vote against clear pairs changes nothing.
+        var one = Enumerable.Repeat((SideVote?)null, 20).ToList();
+        one[5] = new SideVote(0, 0.05);
+        Assert.Equal(Sides(20, 3), MirrorParity.Decide(20, Pairs(Sides(20, 3), 0.05), null, one).Flipped);
+    }
 }

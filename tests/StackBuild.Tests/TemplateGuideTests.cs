@@ -212,7 +212,9 @@ public class TemplateGuideTests(ITestOutputHelper output)
         // The link 25 → 24 is wrong by 12° and (6, −4) px, and sections 25–39 all inherit it (they are chained through
         // it). The template's corrections step there; smoothed across the step they would blur it over 11 sections
         // (measured without step detection, 2026-12-02: median error 0.63 px, 2.3–2.8 px at sections 24–26). Found as a
-        // break, each side is corrected on its own (measured: median 0.14 px, at most 0.39 px beside the link).
+        // break, each side is smoothed on its own (measured 2026-12-03: median 0.54 px, at most 1.66 px beside the link; the
+        // 0.14 / 0.39 px measured before came from a renumbering slip that, after the first step, left every section its
+        // own segment, so each followed its own template match unsmoothed).
         var (sim, planes) = MriSimulation();
         var sections = sim.Input.Sections.ToList();
         const int link = 25;
@@ -225,8 +227,8 @@ public class TemplateGuideTests(ITestOutputHelper output)
         double nearStep = Enumerable.Range(link - 2, 5).Max(s => guided.Errors[s]);
         output.WriteLine($"  largest error at sections {link - 2}–{link + 2}: {nearStep:0.###} px");
         Assert.True(chain.MedianErrorPx > 2, "the broken chain must be wrong for the test to mean anything");
-        Assert.True(guided.MedianErrorPx <= 0.5, $"median error {guided.MedianErrorPx} px");
-        Assert.True(nearStep < 1, $"sections beside the wrong link are {nearStep} px off");
+        Assert.True(guided.MedianErrorPx <= 0.6, $"median error {guided.MedianErrorPx} px");
+        Assert.True(nearStep < 2, $"sections beside the wrong link are {nearStep} px off");
     }
 
     [Fact]

@@ -61,7 +61,7 @@ public static class AccuracyRun
         new($"{PublicTemplates}/jhu189.nii.gz", 'k', BrightField: true, Bits: 16),
     ];
 
-    public static IReadOnlyList<AccuracyRow> Run(AccuracyCase c, string workFolder, IProgress<string>? progress = null)
+    public static IReadOnlyList<AccuracyRow> Run(AccuracyCase c, string workFolder, IProgress<string>? progress = null, bool plain = true, bool guided = true)
     {
         var volume = NiftiFile.Read(c.VolumePath).ToVolume();
         var series = VolumeCutter.Cut(volume, new CutOptions { Axis = c.Axis, Every = c.Every, Seed = c.Seed, BrightField = c.BrightField, Bits = c.Bits }, c.VolumePath);
@@ -72,19 +72,19 @@ public static class AccuracyRun
         NiftiFile.Write(templatePath, CoarseTemplate(volume, c.Seed));
         var truth = SeriesTruth.Read(Path.Combine(folder, VolumeCutter.TruthFileName));
         var rows = new List<AccuracyRow>();
-        foreach (bool guided in new[] { false, true })
+        foreach (bool withTemplate in new[] { false, true }.Where(t => t ? guided : plain))
         {
-            progress?.Report($"{c.Name}: building {(guided ? "with the template" : "plain")}");
+            progress?.Report($"{c.Name}: building {(withTemplate ? "with the template" : "plain")}");
             var watch = System.Diagnostics.Stopwatch.StartNew();
             var options = new BuildOptions
             {
                 Input = folder,
                 // Template plane of the first section: the template's planes are 2-voxel blocks, so volume plane k lies at (k − 0.5)/2.
-                Template = guided ? new TemplateOptions { Path = templatePath, CutAxis = c.Axis, FirstPlane = (series.Sections[0].Plane - 0.5) / 2 } : null,
+                Template = withTemplate ? new TemplateOptions { Path = templatePath, CutAxis = c.Axis, FirstPlane = (series.Sections[0].Plane - 0.5) / 2 } : null,
             };
             var result = BuildPipeline.Run(options);
             double seconds = watch.Elapsed.TotalSeconds;
-            rows.Add(Row(c.Name, guided ? "template" : "plain", series, SectionFlags.Annotate(Uncertainty.Annotate(result.Record)), truth, seconds));
+            rows.Add(Row(c.Name, withTemplate ? "template" : "plain", series, SectionFlags.Annotate(Uncertainty.Annotate(result.Record)), truth, seconds));
         }
         return rows;
     }

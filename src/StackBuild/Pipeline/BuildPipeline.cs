@@ -111,13 +111,24 @@ public static class BuildPipeline
         IReadOnlyList<ChainPlacement>? chainBefore = null; // the neighbour chain, kept when the global solve replaces it
         bool faceFlipped = false;
         ParityResult? parity = null;
+        TemplateSlices? templateSlices = null;
+        TemplateMatch?[]? scratch = null; // template matches from scratch made for the side votes, reused by the guide
         var warnings = new List<string>(series.Warnings);
         if (options.Align && working.Count > 1)
         {
             var registered = RegisterNeighbours(working, options, progress);
             // Which side of every section is up, decided from every pair within MirrorParity.MaxReach sections at once; each
             // pair then keeps its best hypothesis with that mirror, so one weak pair cannot turn over the sections after it.
-            parity = MirrorParity.Decide(working.Count, registered);
+            var steps = working.Select(w => w.Entry.PositionUm / series.SpacingUm).ToList();
+            parity = MirrorParity.Decide(working.Count, registered, steps);
+            if (template is not null)
+            {
+                // Where the pairs can hardly tell a section's side, its template match from scratch votes (and a spread of
+                // confident sections says whether face up looks mirrored on the template).
+                templateSlices = SliceTemplate(template, options.Template!, series, working, workUm, progress);
+                scratch = TemplateSideMatches(working, templateSlices, parity, progress);
+                parity = MirrorParity.Decide(working.Count, registered, steps, scratch.Select(m => m is null ? null : SideVoteOf(m)).ToList());
+            }
             var decided = parity;
             var pairs = new ConcurrentDictionary<(int, int), PairResult>(registered.Select(kv =>
                 KeyValuePair.Create(kv.Key, kv.Value.WithMirror(decided.Flipped[kv.Key.Item1] != decided.Flipped[kv.Key.Item2]))));
@@ -159,7 +170,7 @@ public static class BuildPipeline
             if (!aligned)
                 throw new InputProblemException(options.Template!.Path, "--template needs aligned sections (it cannot be combined with --no-align or used on one section)",
                     "leave out --no-align, or build without --template");
-            onTemplate = PlaceOnTemplate(template, options.Template!, series, working, chain, parity?.Margin, workUm, progress);
+            onTemplate = PlaceOnTemplate(template, options.Template!, series, working, chain, parity?.Margin, workUm, templateSlices, scratch, progress);
             chainBefore = onTemplate.ChainBefore;
             chain = onTemplate.Chain;
             if (onTemplate.Guide.MeasuredCount == 0)
@@ -476,8 +487,12 @@ public static class BuildPipeline
     /// Every section matched to the template slice at its depth and the stack's course fused with the template's
     /// (<see cref="TemplateGuide"/>). Section depth: template plane = first plane ± (position − first position) / plane spacing.
     /// </summary>
-    private static TemplatePlacement PlaceOnTemplate(TemplateVolume template, TemplateOptions o, SectionSeries series, List<Working> working,
-        IReadOnlyList<ChainPlacement> chain, double[]? sideMargin, double workUm, IProgress<string>? progress)
+    /// <summary>The template slice at each section's depth (null where the template does not reach), all in one pixel frame.</summary>
+    private sealed record TemplateSlices(double[] Z, GrayImage?[] Slices, Transform2D SliceToPlane, double FirstPlane, double Direction);
+
+    /// <summary>Section depth: template plane = first plane ± (position − first position) / plane spacing.</summary>
+    private static TemplateSlices SliceTemplate(TemplateVolume template, TemplateOptions o, SectionSeries series, List<Working> working, double workUm,
+        IProgress<string>? progress)
     {
         var (firstPlane, direction) = TemplateDepths(template, o, series);
         double first = series.Sections[0].PositionUm, perUm = 1 / 1000.0 / template.PlaneSpacingMm;
@@ -494,13 +509,57 @@ public static class BuildPipeline
             lock (gate) sliceToPlane = map;
             progress?.Report($"template: slice {Interlocked.Increment(ref done)}/{inside}");
         });
+        return new TemplateSlices(z, slices, sliceToPlane, firstPlane, direction);
+    }
+
+    /// <summary>Sections spread over the stack whose template matches say how the series' face up looks on the template.</summary>
+    public const int SideVoteSample = 12;
+
+    /// <summary>A section whose side margin from the pairs is below this also has its side put to the template's vote.</summary>
+    public const double SideVoteMargin = 0.25;
+
+    /// <summary>
+    /// Weight of the template's side vote against the pairs' evidence (weighted Fisher z): the vote is this times the
+    /// relative lead of the better mirror's similarity, (s_better − s_other) / s_better.
+    /// </summary>
+    public const double SideVoteWeight = 1.0;
+
+    /// <summary>Template matches from scratch, with both mirrors measured, of the sections whose side is uncertain and of a spread sample.</summary>
+    private static TemplateMatch?[] TemplateSideMatches(List<Working> working, TemplateSlices slices, ParityResult parity, IProgress<string>? progress)
+    {
+        var with = Enumerable.Range(0, working.Count).Where(n => slices.Slices[n] is not null).ToList();
+        var chosen = new SortedSet<int>(with.Where(n => parity.Margin[n] < SideVoteMargin));
+        int count = Math.Min(SideVoteSample, with.Count);
+        for (int t = 0; t < count; t++) chosen.Add(with[(int)Math.Round((t + 0.5) * with.Count / count - 0.5)]);
+        progress?.Report($"template: {chosen.Count} sections matched from scratch for which side is up");
+        var options = new TemplateRegistrationOptions { MeasureOtherMirror = true };
+        var matches = new TemplateMatch?[working.Count];
+        Parallel.ForEach(chosen, new ParallelOptions { MaxDegreeOfParallelism = Environment.ProcessorCount },
+            n => matches[n] = TemplateRegistration.Register(working[n].Image, slices.Slices[n]!, null, options));
+        return matches;
+    }
+
+    /// <summary>A template match's vote on its section's side; null when neither mirror matches (similarity below the guide's floor).</summary>
+    private static SideVote? SideVoteOf(TemplateMatch m)
+    {
+        double best = m.Similarity, other = m.OtherMirrorSimilarity ?? best;
+        if (Math.Max(best, other) < new TemplateGuideOptions().MinSimilarity) return null;
+        double lead = SideVoteWeight * (best - other) / Math.Max(best, other);
+        return m.Mirrored ? new SideVote(0, lead) : new SideVote(lead, 0);
+    }
+
+    private static TemplatePlacement PlaceOnTemplate(TemplateVolume template, TemplateOptions o, SectionSeries series, List<Working> working,
+        IReadOnlyList<ChainPlacement> chain, double[]? sideMargin, double workUm, TemplateSlices? sliced, TemplateMatch?[]? scratch, IProgress<string>? progress)
+    {
+        sliced ??= SliceTemplate(template, o, series, working, workUm, progress);
+        var (z, slices, sliceToPlane, firstPlane, direction) = (sliced.Z, sliced.Slices, sliced.SliceToPlane, sliced.FirstPlane, sliced.Direction);
         progress?.Report("template: matching sections to their slices");
         var guide = TemplateGuide.Place(new TemplateGuideInput(working.Select((w, n) => new TemplateGuideSection(
             z[n], w.Image, chain[n].ToReference, slices[n], PartEdge(chain, n) ? 0 : chain[n].Pair?.Confidence ?? 1, ChainFailed: chain[n].Route == LinkRoute.Failed,
             Unanchored: chain[n].Route != LinkRoute.Failed && chain[n].Part != 0,
             SideUncertain: sideMargin is not null && sideMargin[n] < MirrorParity.UncertainMargin,
             // The link's error from its two routes' disagreement (each route errs; the difference has √2 times their spread).
-            LinkErrorPx: chain[n].AnyRouteDisagreement is double d ? d / Math.Sqrt(2) : null)).ToList()));
+            LinkErrorPx: chain[n].AnyRouteDisagreement is double d ? d / Math.Sqrt(2) : null, Scratch: scratch?[n])).ToList()));
         var planeToWork = Transform2D.Scale(template.PixelWidthMm * 1000 / workUm, template.PixelHeightMm * 1000 / workUm);
         // A section the chain could not place takes its own template match when the guide accepted it (route 'template').
         var fused = chain.Select((c, n) => c.Route == LinkRoute.Failed

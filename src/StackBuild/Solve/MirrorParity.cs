@@ -10,6 +10,12 @@ namespace StackBuild.Solve;
 /// (≥ 0); near 0 means the evidence cannot tell which side of this section is up.
 /// </param>
 /// <param name="Overruled">Pairs whose own best hypothesis had the other mirror than the stack decided.</param>
+/// <summary>
+/// A template's evidence on one section's side, in the pairs' units (weighted Fisher z): what the decision gains when the
+/// section looks unmirrored, or mirrored, on the template.
+/// </summary>
+public sealed record SideVote(double Unmirrored, double Mirrored);
+
 public sealed record ParityResult(bool[] Flipped, double[] Margin, IReadOnlyList<(int Moving, int Fixed)> Overruled);
 
 /// <summary>
@@ -56,63 +62,40 @@ public static class MirrorParity
     /// <summary>
     /// <paramref name="pairs"/>: (moving, fixed) → result, moving &gt; fixed, stack positions. A pair whose other mirror
     /// was not tried (the manifest said how both were mounted) forces its relative mirror. A pair whose both sides
-    /// score below 0.1 NCC says nothing.
+    /// score below 0.1 NCC says nothing. <paramref name="steps"/>: each position's place along the stack in section
+    /// numbers (the spacing's units); a pair is weighted by how many sections apart the two really lie, so a pair across a
+    /// lost section counts as a second-neighbour pair and one beyond <see cref="MaxReach"/> sections is left out (the whole
+    /// head cut coronally, seed 1: the pair across a lost section preferred the wrong side 0.57 to 0.34 NCC, as pairs two
+    /// sections apart often do, and turned four sections over). Null: the positions are consecutive numbers.
     /// </summary>
-    public static ParityResult Decide(int count, IReadOnlyDictionary<(int Moving, int Fixed), PairResult> pairs)
+    public static ParityResult Decide(int count, IReadOnlyDictionary<(int Moving, int Fixed), PairResult> pairs, IReadOnlyList<double>? steps = null,
+        IReadOnlyList<SideVote?>? votes = null)
     {
         if (count == 0) return new ParityResult([], [], []);
         // score[(i, j)] = (NCC if same side, NCC if other side), weighted; −∞ where a side was not tried.
         var scores = new Dictionary<(int, int), (double Same, double Other)>();
         foreach (var ((m, f), r) in pairs)
         {
-            int d = m - f;
-            if (d < 1 || d > MaxReach) continue;
+            if (m - f < 1 || m - f > MaxReach) continue;
+            int d = steps is null ? m - f : Math.Max(1, (int)Math.Round(steps[m] - steps[f]));
+            if (d > MaxReach) continue;
             double same = r.NccFor(false) ?? double.NegativeInfinity, other = r.NccFor(true) ?? double.NegativeInfinity;
             if (Math.Max(same, other) < 0.1) continue;
             scores[(m, f)] = (Weight(d) * Score(same), Weight(d) * Score(other));
         }
-        int k = Math.Min(MaxReach, count - 1); // sides remembered: the last k sections
-        int states = 1 << Math.Max(k, 0);
-        // State after position i: bits b = side of sections i, i−1, …, i−k+1 (bit 0 = section i; 1 = face down).
-        var best = new double[states];
-        Array.Fill(best, double.NegativeInfinity);
-        best[0] = 0;
-        best[1] = -FaceDownCost;
-        var back = new int[count][];
-        for (int i = 1; i < count; i++)
+        // The template's side votes hold up to one unknown: whether face-up sections look mirrored on it (the series' and
+        // the template's handedness). Both answers are decided and the better total kept.
+        var (flipped, total) = Viterbi(count, scores, Unary(count, votes, false));
+        bool templateMirrored = false;
+        if (votes is not null && votes.Any(v => v is not null))
         {
-            var next = new double[states];
-            Array.Fill(next, double.NegativeInfinity);
-            back[i] = new int[states];
-            for (int s = 0; s < states; s++)
-            {
-                if (double.IsNegativeInfinity(best[s])) continue;
-                for (int side = 0; side < 2; side++)
-                {
-                    double gain = side == 1 ? -FaceDownCost : 0;
-                    for (int d = 1; d <= Math.Min(MaxReach, i); d++)
-                    {
-                        if (!scores.TryGetValue((i, i - d), out var sc)) continue;
-                        int previous = (s >> (d - 1)) & 1;
-                        gain += side == previous ? sc.Same : sc.Other;
-                    }
-                    int t = ((s << 1) | side) & (states - 1);
-                    if (best[s] + gain > next[t]) { next[t] = best[s] + gain; back[i][t] = s; }
-                }
-            }
-            best = next;
+            var (flippedOther, totalOther) = Viterbi(count, scores, Unary(count, votes, true));
+            if (totalOther > total) { flipped = flippedOther; templateMirrored = true; }
         }
-        int state = Array.IndexOf(best, best.Max());
-        var flipped = new bool[count];
-        for (int i = count - 1; i >= 1; i--)
-        {
-            flipped[i] = (state & 1) == 1;
-            state = back[i][state];
-        }
-        flipped[0] = (state & 1) == 1;
+        var unary = Unary(count, votes, templateMirrored);
 
         // Margins: what turning the section over alone, or with every section on its side of any one link, would cost.
-        double Unary(int i) => flipped[i] ? -FaceDownCost : FaceDownCost; // the prior's change when section i turns over
+        double Turn(int i) => unary[i, flipped[i] ? 1 : 0] - unary[i, flipped[i] ? 0 : 1]; // the prior's and votes' change when section i turns over
         var single = new double[count];
         var crossing = new double[count + 1]; // crossing[b]: change of the pairs that span the link b−1 | b, by a difference array
         foreach (var ((m, f), sc) in scores)
@@ -125,24 +108,84 @@ public static class MirrorParity
         }
         for (int b = 1; b <= count; b++) crossing[b] += crossing[b - 1];
         var after = new double[count + 1];
-        for (int i = count - 1; i >= 0; i--) after[i] = after[i + 1] + Unary(i);
+        for (int i = count - 1; i >= 0; i--) after[i] = after[i + 1] + Turn(i);
         double before = 0;
         var blockBefore = new double[count]; // best block ending at or after i (sections 0..b−1 turned, b > i)
         var blockAfter = new double[count];  // best block starting at or before i (sections b..n−1 turned, b ≤ i)
-        for (int b = 1; b < count; b++) { before += Unary(b - 1); blockBefore[b - 1] = crossing[b] + before; }
-        if (count > 0) blockBefore[count - 1] = before + Unary(count - 1); // the whole stack turned over: the prior alone
+        for (int b = 1; b < count; b++) { before += Turn(b - 1); blockBefore[b - 1] = crossing[b] + before; }
+        if (count > 0) blockBefore[count - 1] = before + Turn(count - 1); // the whole stack turned over: the prior alone
         for (int i = count - 2; i >= 0; i--) blockBefore[i] = Math.Min(blockBefore[i], blockBefore[i + 1]);
         for (int i = 0; i < count; i++)
             blockAfter[i] = i == 0 ? after[0] : Math.Min(blockAfter[i - 1], crossing[i] + after[i]);
         var margin = new double[count];
         for (int i = 0; i < count; i++)
         {
-            double m = Math.Min(single[i] + Unary(i), Math.Min(blockBefore[i], blockAfter[i]));
+            double m = Math.Min(single[i] + Turn(i), Math.Min(blockBefore[i], blockAfter[i]));
             margin[i] = Math.Max(0, m);
         }
         var overruled = pairs.Where(kv => kv.Key.Moving - kv.Key.Fixed <= MaxReach && kv.Value.OtherMirror is not null
                                           && kv.Value.Best.Mirrored != (flipped[kv.Key.Moving] != flipped[kv.Key.Fixed]))
             .Select(kv => kv.Key).OrderBy(k2 => k2.Moving).ThenBy(k2 => k2.Fixed).ToList();
         return new ParityResult(flipped, margin, overruled);
+    }
+    /// <summary>Per section and side (0 face up, 1 face down): the face-up prior plus the template's vote for that side.</summary>
+    private static double[,] Unary(int count, IReadOnlyList<SideVote?>? votes, bool templateMirrored)
+    {
+        var u = new double[count, 2];
+        for (int i = 0; i < count; i++)
+        {
+            u[i, 1] = -FaceDownCost;
+            if (votes?[i] is not { } v) continue;
+            // Face up looks unmirrored on the template unless the whole series is mirrored on it.
+            u[i, 0] += templateMirrored ? v.Mirrored : v.Unmirrored;
+            u[i, 1] += templateMirrored ? v.Unmirrored : v.Mirrored;
+        }
+        return u;
+    }
+
+    /// <summary>The best sides and their total score, by dynamic programming over the sides of the last <see cref="MaxReach"/> sections.</summary>
+    private static (bool[] Flipped, double Total) Viterbi(int count, Dictionary<(int, int), (double Same, double Other)> scores, double[,] unary)
+    {
+        int k = Math.Min(MaxReach, count - 1); // sides remembered: the last k sections
+        int states = 1 << Math.Max(k, 1);
+        // State after position i: bits b = side of sections i, i−1, …, i−k+1 (bit 0 = section i; 1 = face down).
+        var best = new double[states];
+        Array.Fill(best, double.NegativeInfinity);
+        best[0] = unary[0, 0];
+        best[1] = unary[0, 1];
+        var back = new int[count][];
+        for (int i = 1; i < count; i++)
+        {
+            var next = new double[states];
+            Array.Fill(next, double.NegativeInfinity);
+            back[i] = new int[states];
+            for (int s = 0; s < states; s++)
+            {
+                if (double.IsNegativeInfinity(best[s])) continue;
+                for (int side = 0; side < 2; side++)
+                {
+                    double gain = unary[i, side];
+                    for (int d = 1; d <= Math.Min(MaxReach, i); d++)
+                    {
+                        if (!scores.TryGetValue((i, i - d), out var sc)) continue;
+                        int previous = (s >> (d - 1)) & 1;
+                        gain += side == previous ? sc.Same : sc.Other;
+                    }
+                    int t = ((s << 1) | side) & (states - 1);
+                    if (best[s] + gain > next[t]) { next[t] = best[s] + gain; back[i][t] = s; }
+                }
+            }
+            best = next;
+        }
+        double total = best.Max();
+        int state = Array.IndexOf(best, total);
+        var flipped = new bool[count];
+        for (int i = count - 1; i >= 1; i--)
+        {
+            flipped[i] = (state & 1) == 1;
+            state = back[i][state];
+        }
+        flipped[0] = (state & 1) == 1;
+        return (flipped, total);
     }
 }

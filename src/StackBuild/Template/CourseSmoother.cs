@@ -54,15 +54,33 @@ public static class CourseSmoother
     }
 
     /// <summary>
-    /// Variance of one measurement: the robust spread (1.4826 × median absolute deviation) of the measurements about a
-    /// smooth course through them, squared; at least <paramref name="floor"/>².
+    /// Variance of one measurement, told apart from the walk's own steps: consecutive measurements (no fresh start between)
+    /// differ by the steps between them plus two measurement errors, so the measurement variance is half of what the
+    /// differences' robust variance (1.4826 × median absolute deviation, squared) exceeds the typical summed step variance
+    /// by; at least <paramref name="floor"/>². (The spread about a window-smoothed course, used before, counted the walk's
+    /// section-to-section steps as measurement noise, so the course followed the template less than the links deserved:
+    /// template rows of docs/accuracy.md's development table, median error 0.12–0.31 px against 0.16–0.39 px.)
     /// </summary>
-    public static double NoiseVariance(IReadOnlyList<double> values, IReadOnlyList<double> smooth, IReadOnlyList<double> weights, double floor)
+    public static double NoiseVarianceFromSteps(IReadOnlyList<double> values, IReadOnlyList<double> weights, IReadOnlyList<double> stepSd, double minStepSd, double floor)
     {
-        var residuals = Enumerable.Range(0, values.Count).Where(i => weights[i] > 0).Select(i => Math.Abs(values[i] - smooth[i])).OrderBy(v => v).ToList();
-        if (residuals.Count == 0) return floor * floor;
-        double mad = residuals[residuals.Count / 2];
-        double sd = Math.Max(floor, 1.4826 * mad);
-        return sd * sd;
+        var differences = new List<double>();
+        var stepVariances = new List<double>();
+        int previous = -1;
+        double summed = 0;
+        for (int i = 0; i < values.Count; i++)
+        {
+            double sd = Math.Max(minStepSd, stepSd[i]);
+            if (i == 0 || double.IsPositiveInfinity(sd)) { previous = -1; summed = 0; }
+            else summed += sd * sd;
+            if (weights[i] <= 0) continue;
+            if (previous >= 0) { differences.Add(values[i] - values[previous]); stepVariances.Add(summed); }
+            previous = i;
+            summed = 0;
+        }
+        if (differences.Count < 3) return floor * floor;
+        double centre = Numerics.Quantiles.Median(differences);
+        double spread = 1.4826 * Numerics.Quantiles.Median(differences.Select(d => Math.Abs(d - centre)).ToList());
+        double variance = (spread * spread - Numerics.Quantiles.Median(stepVariances)) / 2;
+        return Math.Max(floor * floor, variance);
     }
 }

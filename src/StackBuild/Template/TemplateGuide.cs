@@ -22,8 +22,10 @@ namespace StackBuild.Template;
 /// <param name="SideUncertain">The pairs could hardly tell which side of the section is up (a nearly symmetric end of the
 /// specimen): its template match searched from scratch decides the side when it is as good as its neighbours' and better
 /// than the match with the chain's side.</param>
+/// <param name="Scratch">The section's match to its slice searched from scratch, when one was already made (for the side
+/// decision); used instead of searching again.</param>
 public sealed record TemplateGuideSection(double Z, GrayImage? Image, Transform2D ToReference, GrayImage? Slice, double ChainConfidence = 1,
-    bool ChainFailed = false, double? LinkErrorPx = null, bool Unanchored = false, bool SideUncertain = false);
+    bool ChainFailed = false, double? LinkErrorPx = null, bool Unanchored = false, bool SideUncertain = false, TemplateMatch? Scratch = null);
 
 public sealed record TemplateGuideOptions
 {
@@ -144,17 +146,29 @@ public static class TemplateGuide
         var angle = new double[n]; var dx = new double[n]; var dy = new double[n];
         var reason = new string?[n];
         var candidate = new bool[n];
-        foreach (int i in usable)
+        Corrections();
+        // (b2) A stretch of the chain turned far from where the template puts it (a part the chain could not link to the
+        // reference, or everything beyond a wrong link at an end): its common correction is applied to its chain placements
+        // first, so that the tests below, which compare shifts at each section's own centre, see small corrections (turned
+        // by 52°, the whole head's first sections looked 12–38 px apart from each other there although one rigid turn
+        // placed them all; seed 1, sagittal).
+        if (TurnSegments(sections, chain, measured, usable, centres, options)) Corrections();
+
+        void Corrections()
         {
-            var m = measured[i]!;
-            var (qx, qy) = chain[i].Apply(centres[i].Item1, centres[i].Item2);
-            var (mx, my) = m.SectionToSlice.Apply(centres[i].Item1, centres[i].Item2);
-            angle[i] = AngleDifference(m.SectionToSlice.RotationDegrees, chain[i].RotationDegrees);
-            dx[i] = mx - qx; dy[i] = my - qy;
-            if (m.Mirrored != chain[i].IsMirrored) reason[i] = "the template match is mirrored against the chain";
-            else if (m.Similarity < options.MinSimilarity) reason[i] = $"similarity {m.Similarity:0.###} below {options.MinSimilarity:0.###}";
-            else if (options.MinConfidence > 0 && m.Confidence < options.MinConfidence) reason[i] = $"confidence {m.Confidence:0.###} below {options.MinConfidence:0.###}";
-            else candidate[i] = true;
+            foreach (int i in usable)
+            {
+                var m = measured[i]!;
+                var (qx, qy) = chain[i].Apply(centres[i].Item1, centres[i].Item2);
+                var (mx, my) = m.SectionToSlice.Apply(centres[i].Item1, centres[i].Item2);
+                angle[i] = AngleDifference(m.SectionToSlice.RotationDegrees, chain[i].RotationDegrees);
+                dx[i] = mx - qx; dy[i] = my - qy;
+                reason[i] = null; candidate[i] = false;
+                if (m.Mirrored != chain[i].IsMirrored) reason[i] = "the template match is mirrored against the chain";
+                else if (m.Similarity < options.MinSimilarity) reason[i] = $"similarity {m.Similarity:0.###} below {options.MinSimilarity:0.###}";
+                else if (options.MinConfidence > 0 && m.Confidence < options.MinConfidence) reason[i] = $"confidence {m.Confidence:0.###} below {options.MinConfidence:0.###}";
+                else candidate[i] = true;
+            }
         }
 
         // (c) Outliers: deviation from the running median of the corrections, judged against the MAD over the stack.
@@ -162,7 +176,10 @@ public static class TemplateGuide
         int half = Math.Max(1, options.SmoothingSections / 2);
         var segment = Segments(sections, options.ChainBreakConfidence);
         var steps = Steps(usable.Where(i => candidate[i]).ToList(), dx, dy, angle, segment, sections.Select(s => s.ChainConfidence).ToArray(), half, options);
-        for (int i = 1; i < n; i++) segment[i] = segment[i - 1] + (segment[i] != segment[i - 1] || steps.Contains(i) ? 1 : 0);
+        // Renumbered from the chain's own breaks (read from a copy: comparing with the renumbered entry before would start a
+        // new segment at every section after the first step, so that each section followed its own match alone).
+        var breaks = (int[])segment.Clone();
+        for (int i = 1; i < n; i++) segment[i] = segment[i - 1] + (breaks[i] != breaks[i - 1] || steps.Contains(i) ? 1 : 0);
         foreach (int i in usable.Where(i => candidate[i]))
         {
             var near = usable.Where(j => candidate[j] && segment[j] == segment[i] && Math.Abs(j - i) <= half).ToList();
@@ -196,14 +213,17 @@ public static class TemplateGuide
         // places it alone (a wrong mirror or turn from a torn section's weak pair registration is undone this way).
         var rescue = new TemplateMatch?[n];
         var retry = usable.Where(i => !candidate[i] || sections[i].ChainConfidence < options.RescueChainConfidence || sections[i].SideUncertain).Concat(orphans).ToList();
-        Parallel.ForEach(retry, i => rescue[i] = TemplateRegistration.Register(sections[i].Image!, sections[i].Slice!, null, options.Registration));
+        Parallel.ForEach(retry, i => rescue[i] = sections[i].Scratch ?? TemplateRegistration.Register(sections[i].Image!, sections[i].Slice!, null, options.Registration));
         // An unplaced section is judged against its neighbours' matches whichever way they were found: where the chain
         // failed over a whole stretch, the other unplaced sections' matches from scratch are its neighbours' matches.
         var scratch = orphans.ToDictionary(i => i, i => rescue[i]!.Similarity);
         foreach (int i in retry)
         {
-            var near = usable.Where(j => j != i && candidate[j] && Math.Abs(j - i) <= half && (sections[i].ChainFailed || segment[j] == segment[i]))
-                .Select(j => measured[j]!.Similarity).ToList();
+            // The yardstick is how well the template matches sections here, whatever the chain did with them: the accepted
+            // matches within the window, or the nearest three at an end of the stack cut off by a wrong link (the whole head,
+            // seed 1: its first four sections, chained 90 px off, had no accepted match on their side of the step).
+            var accepted = usable.Where(j => j != i && candidate[j]).OrderBy(j => Math.Abs(j - i)).ThenBy(j => j).ToList();
+            var near = accepted.Where((j, rank) => Math.Abs(j - i) <= half || rank < 3).Select(j => measured[j]!.Similarity).ToList();
             if (sections[i].ChainFailed)
                 near.AddRange(scratch.Where(o => o.Key != i && Math.Abs(o.Key - i) <= half).Select(o => o.Value));
             if (near.Count < 3) { rescue[i] = null; continue; }
@@ -243,13 +263,15 @@ public static class TemplateGuide
         if (linkPx is not null && linkDeg is not null)
         {
             // Each link's error as a random step of the correction (shift at the section centre, turn about it), each template
-            // match as a noisy look at it: the optimal course for that model (Rauch, Tung & Striebel 1965). The window smooth
-            // above serves to measure the matches' noise; a new segment starts afresh.
+            // match as a noisy look at it: the optimal course for that model (Rauch, Tung & Striebel 1965); a new segment
+            // starts afresh. (Without link errors the window smooth above is the course.)
             var stepPx = (double[])linkPx.Clone(); var stepDeg = (double[])linkDeg.Clone();
             for (int i = 1; i < n; i++) if (segment[i] != segment[i - 1]) stepPx[i] = stepDeg[i] = double.PositiveInfinity;
-            sa = CourseSmoother.Smooth(angle, weight, stepDeg, CourseSmoother.NoiseVariance(angle, sa, weight, MinDegrees), MinDegrees);
-            sx = CourseSmoother.Smooth(dx, weight, stepPx, CourseSmoother.NoiseVariance(dx, sx, weight, MinPx), MinPx);
-            sy = CourseSmoother.Smooth(dy, weight, stepPx, CourseSmoother.NoiseVariance(dy, sy, weight, MinPx), MinPx);
+            // The matches' noise told apart from the links' steps (consecutive corrections differ by both).
+            double Noise(double[] v, double[] steps, double floor) => CourseSmoother.NoiseVarianceFromSteps(v, weight, steps, floor, floor);
+            sa = CourseSmoother.Smooth(angle, weight, stepDeg, Noise(angle, stepDeg, MinDegrees), MinDegrees);
+            sx = CourseSmoother.Smooth(dx, weight, stepPx, Noise(dx, stepPx, MinPx), MinPx);
+            sy = CourseSmoother.Smooth(dy, weight, stepPx, Noise(dy, stepPx, MinPx), MinPx);
         }
         var result = new TemplateSectionPlacement[n];
         for (int i = 0; i < n; i++)
@@ -278,6 +300,37 @@ public static class TemplateGuide
             usable.Count + orphans.Count(i => rescue[i] is not null), result.Count(r => r.Outlier), [.. steps.Order()]);
     }
 
+    /// <summary>
+    /// For each stretch of the chain between links below <see cref="TemplateGuideOptions.ChainBreakConfidence"/>, the median
+    /// turn its sections' template matches ask for; where that exceeds <see cref="TemplateGuideOptions.StepDegrees"/> (at
+    /// least 3 matches with the chain's mirror and enough similarity), the stretch's chain placements are moved by one rigid
+    /// map: that turn about the median of their centres, then the median shift there. True when any stretch moved.
+    /// </summary>
+    private static bool TurnSegments(IReadOnlyList<TemplateGuideSection> sections, Transform2D[] chain, TemplateMatch?[] measured,
+        List<int> usable, (double, double)[] centres, TemplateGuideOptions options)
+    {
+        var segment = Segments(sections, options.ChainBreakConfidence);
+        bool moved = false;
+        foreach (var stretch in usable.Where(i => measured[i] is { } m && m.Mirrored == chain[i].IsMirrored && m.Similarity >= options.MinSimilarity)
+                     .GroupBy(i => segment[i]))
+        {
+            var members = stretch.ToList();
+            if (members.Count < 3) continue;
+            double turn = Median(members.Select(i => AngleDifference(measured[i]!.SectionToSlice.RotationDegrees, chain[i].RotationDegrees)));
+            if (Math.Abs(turn) <= options.StepDegrees) continue;
+            var at = members.Select(i => chain[i].Apply(centres[i].Item1, centres[i].Item2)).ToList();
+            double px = Median(at.Select(p => p.X)), py = Median(at.Select(p => p.Y));
+            // Each match's correction (chain⁻¹ then match) carried to the pivot; the median of where the pivot lands.
+            var landed = members.Select(i => chain[i].Inverse().Then(measured[i]!.SectionToSlice).Apply(px, py)).ToList();
+            var (tx, ty) = Transform2D.Rotation(turn, px, py).Apply(px, py);
+            var move = Transform2D.Rotation(turn, px, py).Then(Transform2D.Translation(Median(landed.Select(p => p.X)) - tx, Median(landed.Select(p => p.Y)) - ty));
+            for (int i = 0; i < sections.Count; i++)
+                if (segment[i] == stretch.Key) chain[i] = chain[i].Then(move);
+            moved = true;
+        }
+        return moved;
+    }
+
     private static (double, double) CentreOf(IReadOnlyList<TemplateGuideSection> sections, TemplateGuideSection s)
     {
         var any = sections.FirstOrDefault(o => o.Image != null)?.Image;
@@ -291,7 +344,8 @@ public static class TemplateGuide
         int count = Math.Min(options.GlobalSampleSections, usable.Count);
         var sample = Enumerable.Range(0, count).Select(t => usable[(int)Math.Round((t + 0.5) * usable.Count / count - 0.5)]).Distinct().ToList();
         var matches = new TemplateMatch[sample.Count];
-        Parallel.For(0, sample.Count, t => matches[t] = TemplateRegistration.Register(sections[sample[t]].Image!, sections[sample[t]].Slice!, null, options.Registration));
+        Parallel.For(0, sample.Count, t => matches[t] = sections[sample[t]].Scratch
+            ?? TemplateRegistration.Register(sections[sample[t]].Image!, sections[sample[t]].Slice!, null, options.Registration));
         var candidates = sample.Select((i, t) => (Index: i, Map: sections[i].ToReference.Inverse().Then(matches[t].SectionToSlice), Match: matches[t])).ToList();
 
         var slice = sections[usable[0]].Slice!;

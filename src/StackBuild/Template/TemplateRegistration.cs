@@ -21,6 +21,11 @@ public sealed record TemplateRegistrationOptions
     public double FinalStepPx { get; init; } = 0.05;
     /// <summary>Most samples per measurement at full size (a coarser sampling grid beyond).</summary>
     public int MaxSamples { get; init; } = 1 << 14;
+    /// <summary>
+    /// A global search also refines the best placement with the other mirror to full size and reports its similarity
+    /// (<see cref="TemplateMatch.OtherMirrorSimilarity"/>): the template's evidence for which side of the section is up.
+    /// </summary>
+    public bool MeasureOtherMirror { get; init; }
 }
 
 /// <summary>A section placed on a template slice.</summary>
@@ -33,8 +38,10 @@ public sealed record TemplateRegistrationOptions
 /// </param>
 /// <param name="RunnerUpSimilarity">The best distinct candidate of the global search (another angle or the other mirror), measured at half size, or null after a local search.</param>
 /// <param name="Evaluations">Measurements made (for profiling).</param>
+/// <param name="OtherMirrorSimilarity">The best placement with the other mirror, refined to full size (global search with
+/// <see cref="TemplateRegistrationOptions.MeasureOtherMirror"/>), or null.</param>
 public sealed record TemplateMatch(Transform2D SectionToSlice, double Similarity, double MutualInformation, double Confidence,
-    bool Mirrored, double? RunnerUpSimilarity, int Samples, int Evaluations);
+    bool Mirrored, double? RunnerUpSimilarity, int Samples, int Evaluations, double? OtherMirrorSimilarity = null);
 
 /// <summary>
 /// Rigid registration of a histology section to a template slice by maximising normalised mutual information
@@ -134,7 +141,16 @@ public static class TemplateRegistration
         double? runnerUp = refined.Skip(1).Where(r => r.Pose.Mirrored != best.Pose.Mirrored || AngleGap(r.Pose.Degrees, best.Pose.Degrees) > 5
                                                       || double.Hypot(r.Pose.Dx - best.Pose.Dx, r.Pose.Dy - best.Pose.Dy) > 5)
             .Select(r => (double?)(r.Score - 1)).FirstOrDefault(); // at the comparison level
-        return problem.Finish(best.Pose, runnerUp, ref evaluations);
+        double? otherMirror = null;
+        if (options.TryMirror && options.MeasureOtherMirror)
+        {
+            // The other mirror's best: its refined candidate when one was carried, else its best coarse candidate refined.
+            var other = refined.Where(r => r.Pose.Mirrored != best.Pose.Mirrored).Select(r => (Pose?)r.Pose).FirstOrDefault()
+                        ?? problem.Refine(candidates.First(c => c.Pose.Mirrored != best.Pose.Mirrored).Pose, top, compare, ref evaluations);
+            var full = compare > 0 ? problem.Refine(other, compare - 1, 0, ref evaluations) : other;
+            otherMirror = problem.Score(full, 0, ref evaluations) - 1;
+        }
+        return problem.Finish(best.Pose, runnerUp, ref evaluations) with { OtherMirrorSimilarity = otherMirror };
     }
 
     internal static double AngleGap(double a, double b)
