@@ -169,7 +169,7 @@ public class BuildBenchmarks
     [Benchmark]
     public object SmoothingBuild() => StackBuild.Pipeline.BuildPipeline.Run(new StackBuild.Pipeline.BuildOptions
     {
-        Input = _series, Smoothing = new StackBuild.Solve.SmoothingOptions { Strength = 0 },
+        Input = _series, Solver = StackBuild.Solve.PlacementSolver.Smoothing, Smoothing = new StackBuild.Solve.SmoothingOptions { Strength = 0 },
     });
 
     [Benchmark]

@@ -33,10 +33,10 @@ public sealed class DriftBuilds : IDisposable
 
     public BuildResult Chain { get; } = BuildPipeline.Run(new BuildOptions
     {
-        Input = RepositoryPaths.DemoSeries, Smoothing = new SmoothingOptions { Strength = -1 }, Fill = GapFill.None,
+        Input = RepositoryPaths.DemoSeries, Solver = PlacementSolver.Chain, Fill = GapFill.None,
     });
 
-    public BuildResult Solved { get; } = BuildPipeline.Run(new BuildOptions { Input = RepositoryPaths.DemoSeries, Smoothing = new SmoothingOptions { Strength = 0 } });
+    public BuildResult Solved { get; } = BuildPipeline.Run(new BuildOptions { Input = RepositoryPaths.DemoSeries, Solver = PlacementSolver.Smoothing, Smoothing = new SmoothingOptions { Strength = 0 } });
 
     public SeriesTruth Truth { get; } = SeriesTruth.Read(Path.Combine(RepositoryPaths.DemoSeries, DemoSpecimenMaker.TruthFileName));
 }

@@ -38,9 +38,9 @@ public sealed class MriSeriesBuilds : IDisposable
         MirroredSections = WriteSeries(Folder, TruthPath);
         NiftiPython.Run("template_world_check.py", "make", RegisterMriTests.TemplatePath, TemplatePath, "5");
         Seconds[0] = watch.Elapsed.TotalSeconds; watch.Restart();
-        Chain = BuildPipeline.Run(new BuildOptions { Input = Folder, Smoothing = new SmoothingOptions { Strength = -1 } });
+        Chain = BuildPipeline.Run(new BuildOptions { Input = Folder, Solver = PlacementSolver.Chain });
         Seconds[1] = watch.Elapsed.TotalSeconds; watch.Restart();
-        Smoothed = BuildPipeline.Run(new BuildOptions { Input = Folder, Smoothing = new SmoothingOptions { Strength = 0 } });
+        Smoothed = BuildPipeline.Run(new BuildOptions { Input = Folder, Solver = PlacementSolver.Smoothing, Smoothing = new SmoothingOptions { Strength = 0 } });
         Seconds[2] = watch.Elapsed.TotalSeconds; watch.Restart();
         // The template's planes are 2×2 blocks of ch2 planes with the affine moved to the block centres (template_world_check.py
         // make): ch2 plane k lies at template plane (k − 0.5) / 2, and the 2 mm section spacing is one template plane.

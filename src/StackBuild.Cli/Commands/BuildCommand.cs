@@ -27,7 +27,7 @@ public static class BuildCommand
         var voxelSize = new Option<double?>("--voxel-size") { Description = "Voxel size of the volume in µm: the plane spacing (planes between sections interpolated like the gaps) and, unless --output-pixel-size is given, the in-plane size" };
         var channel = new Option<string>("--channel") { Description = "How colour images become gray: luminance, red, green or blue", DefaultValueFactory = _ => "luminance" };
         var interpolation = new Option<string>("--interpolation") { Description = "Resampling: bilinear or bicubic", DefaultValueFactory = _ => "bilinear" };
-        var smoothing = new Option<double>("--smoothing") { Description = "Solve all placements at once from every first- and second-neighbour pair, with outliers set aside: the smoothness strength (0 = pairs only; negative, the default, = plain neighbour chain). It does not remove slow drift (--template does); where pairs two sections apart disagree systematically it stays close to the plain chain", DefaultValueFactory = _ => new SmoothingOptions().Strength };
+        var smoothing = new Option<double?>("--smoothing") { Description = "Solve all placements at once from every first- and second-neighbour pair, with outliers set aside, instead of the plain neighbour chain (the default): the smoothness strength (0 = pairs only; a negative value keeps the plain chain). It does not remove slow drift (--template does); where pairs two sections apart disagree systematically it stays close to the plain chain" };
         var fill = new Option<string>("--fill") { Description = "Fill gap, excluded and failed planes of an aligned build from their neighbours: flow (optical-flow interpolation), linear or none", DefaultValueFactory = _ => "flow" };
         var reference = new Option<int?>("--reference") { Description = "Section number whose frame, as it lay on its slide, the volume takes (default: the confident section nearest the middle of the stack)" };
         var rotate = new Option<double>("--rotate") { Description = "Turn the whole volume in the section plane by this many degrees, clockwise as displayed", DefaultValueFactory = _ => 0 };
@@ -82,6 +82,7 @@ public static class BuildCommand
             var paths = BuildOutputPaths.For(parse.GetValue(output)!);
             paths.CheckWritable();
             if (parse.GetValue(template) is { } templateToCheck) CheckTemplateHeader(console, templateToCheck);
+            double? smoothingStrength = FiniteOrNull(parse.GetValue(smoothing), "--smoothing");
             var options = new BuildOptions
             {
                 Input = parse.GetValue(series)!,
@@ -99,7 +100,9 @@ public static class BuildCommand
                 Align = !parse.GetValue(noAlign),
                 Registration = new RegistrationOptions { WorkSize = WorkSize(parse.GetValue(workSize)) },
                 Chain = new ChainOptions { MinConfidence = Fraction(parse.GetValue(minConfidence), "--min-confidence") },
-                Smoothing = new SmoothingOptions { Strength = Finite(parse.GetValue(smoothing), "--smoothing") },
+                // A negative strength keeps the plain chain (how the chain was chosen before it was a solver of its own).
+                Solver = smoothingStrength is >= 0 ? PlacementSolver.Smoothing : PlacementSolver.Chain,
+                Smoothing = new SmoothingOptions { Strength = smoothingStrength is double strength && strength >= 0 ? strength : 0 },
                 Fill = ParseFill(parse.GetValue(fill)!),
                 Template = parse.GetValue(template) is { } templatePath ? new TemplateOptions
                 {

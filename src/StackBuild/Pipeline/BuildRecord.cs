@@ -2,6 +2,21 @@ using System.Text.Json.Serialization;
 
 namespace StackBuild.Pipeline;
 
+/// <summary>What became of a section in the volume (the sidecar's <c>status</c>).</summary>
+public enum SectionOutcome
+{
+    /// <summary>Rendered as scanned, centred, not aligned (<c>placed</c>).</summary>
+    Placed,
+    /// <summary>Rendered where the alignment put it (<c>aligned</c>).</summary>
+    Aligned,
+    /// <summary>No image: a lost section (<c>gap</c>).</summary>
+    Gap,
+    /// <summary>Left out by the manifest (<c>excluded</c>).</summary>
+    Excluded,
+    /// <summary>No confident match with a neighbour: its plane holds no image of its own (<c>failed</c>).</summary>
+    Failed,
+}
+
 /// <summary>What happened to one section, as written to the sidecar.</summary>
 /// <remarks>
 /// <see cref="Matrix"/> is the 3×3 row-major matrix that maps pixel coordinates of the input image (x right,

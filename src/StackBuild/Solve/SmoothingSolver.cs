@@ -7,14 +7,15 @@ public sealed record SmoothingOptions
 {
     /// <summary>
     /// Strength λ of the smoothness term (dimensionless, relative to one full-confidence pair); 0 solves with the
-    /// robust consistency of all pairs only; negative (the default) keeps the plain neighbour chain.
-    /// Why off by default: on the demo and on a public MRI series (docs/drift-and-frame.md) the solve does not beat the
+    /// robust consistency of all pairs only (the default). The solve runs only when a build chooses it
+    /// (<c>PlacementSolver.Smoothing</c>); the plain neighbour chain is the default.
+    /// Why the chain is the default: on the demo and on a public MRI series (docs/drift-and-frame.md) the solve does not beat the
     /// chain: the chain's drift is slow or biased link error, not noise that more pairs average out, and the solve, once it has weighted the biased
     /// second-neighbour pairs down, keeps the chain's course (drift rms 2.67 vs 2.66 px and 3.59 vs 3.58 px, measured
     /// 2026-12-02). λ &gt; 0 penalises the curvature of the correction; a chain error from one bad pair is a step, which
     /// that term resists (synthetic wild-pair case: λ = 0.05 left a 15 px step at 3–9 px instead of &lt; 1 px).
     /// </summary>
-    public double Strength { get; init; } = -1;
+    public double Strength { get; init; }
     /// <summary>Gauss–Newton iterations (each one also updates the robust weights).</summary>
     public int Iterations { get; init; } = 6;
     /// <summary>Tukey biweight cut-off in robust standard deviations of the pair residuals (4.685 is the usual 95 %-efficiency value).</summary>

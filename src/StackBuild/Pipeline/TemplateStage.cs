@@ -1,0 +1,106 @@
+using StackBuild.Geometry;
+using StackBuild.Imaging;
+using StackBuild.IO;
+using StackBuild.Series;
+using StackBuild.Solve;
+using StackBuild.Template;
+
+namespace StackBuild.Pipeline;
+
+/// <summary>The sections placed on a template: the fused placements (template plane pixels at working scale) and the record of how.</summary>
+/// <param name="Z">Each prepared section's template plane (fractional index along the cut axis).</param>
+/// <param name="FirstPlane">Template plane of the series' first section.</param>
+/// <param name="Direction">+1 when section numbers run towards higher template planes, −1 reversed.</param>
+/// <param name="PlaneToWork">Template plane pixels → working pixels (a scale).</param>
+public sealed record TemplatePlacement(TemplateGuideResult Guide, double[] Z, double FirstPlane, double Direction, Transform2D PlaneToWork);
+
+public static class TemplateStage
+{
+    /// <summary>Below this share of agreeing sections in the global search, the build warns that the template may be set up wrongly.</summary>
+    private const double MinTemplateAgreement = 0.5;
+
+    /// <summary>
+    /// With a template: every section matched to the template slice at its depth and the stack's course fused with the
+    /// template's (<see cref="TemplateGuide"/>); the placements become template plane pixels at working scale. Without
+    /// one, the placements are returned as they are.
+    /// </summary>
+    public static Placements PlaceOnTemplate(SeriesPlan plan, PreparedSections sections, Placements placements, IProgress<string>? progress)
+    {
+        if (plan.Template is not { } template) return placements;
+        var o = plan.Options.Template!;
+        if (!placements.Aligned)
+            throw new InputProblemException(o.Path, "--template needs aligned sections (it cannot be combined with --no-align or used on one section)",
+                "leave out --no-align, or build without --template");
+        var chain = placements.Chain;
+        double workUm = sections.WorkPixelUm;
+        double[]? sideMargin = placements.Parity?.Margin;
+        // Section depth: template plane = first plane ± (position − first position) / plane spacing.
+        var (firstPlane, direction) = TemplateDepths(template, o, plan.Series);
+        double first = plan.Series.Sections[0].PositionUm, perUm = 1 / 1000.0 / template.PlaneSpacingMm;
+        var z = sections.Sections.Select(w => firstPlane + direction * (w.Entry.PositionUm - first) * perUm).ToArray();
+        int inside = z.Count(template.ContainsPlane);
+        var slices = new GrayImage?[sections.Count];
+        var sliceToPlane = Transform2D.Identity;
+        object gate = new();
+        int done = 0;
+        Parallel.For(0, sections.Count, new ParallelOptions { MaxDegreeOfParallelism = Environment.ProcessorCount }, n =>
+        {
+            if (!template.ContainsPlane(z[n])) return;
+            slices[n] = template.Slice(z[n], workUm / 1000, out var map);
+            lock (gate) sliceToPlane = map;
+            progress?.Report($"template: slice {Interlocked.Increment(ref done)}/{inside}");
+        });
+        progress?.Report("template: matching sections to their slices");
+        var guide = TemplateGuide.Place(new TemplateGuideInput(sections.Sections.Select((w, n) => new TemplateGuideSection(
+            z[n], w.Image, chain[n].ToReference, slices[n], PartEdge(chain, n) ? 0 : chain[n].Pair?.Confidence ?? 1, ChainFailed: chain[n].Route == LinkRoute.Failed,
+            Unanchored: chain[n].Route != LinkRoute.Failed && chain[n].Part != 0,
+            SideUncertain: sideMargin is not null && sideMargin[n] < MirrorParity.UncertainMargin,
+            // The link's error from its two routes' disagreement (each route errs; the difference has √2 times their spread).
+            LinkErrorPx: chain[n].AnyRouteDisagreement is double d ? d / Math.Sqrt(2) : null)).ToList()));
+        var planeToWork = Transform2D.Scale(template.PixelWidthMm * 1000 / workUm, template.PixelHeightMm * 1000 / workUm);
+        // A section the chain could not place takes its own template match when the guide accepted it (route 'template').
+        var fused = chain.Select((c, n) => c.Route == LinkRoute.Failed
+            ? guide.Sections[n].PlacedByTemplate
+                ? new ChainPlacement(guide.Sections[n].SectionToSlice.Then(sliceToPlane).Then(planeToWork), LinkRoute.Template, -1, null, null, 0)
+                : c
+            : c with { ToReference = guide.Sections[n].SectionToSlice.Then(sliceToPlane).Then(planeToWork) }).ToList();
+        var before = chain.Select((c, n) => c.Route == LinkRoute.Failed ? c
+            : c with { ToReference = guide.Sections[n].ChainToSlice.Then(sliceToPlane).Then(planeToWork) }).ToList();
+
+        var warnings = placements.Warnings.ToList();
+        if (guide.MeasuredCount == 0)
+            warnings.Add("no section could be matched to its template slice; the sections follow the neighbour chain only — check --template-axis and --template-first-plane");
+        else if (guide.GlobalAgreement < MinTemplateAgreement)
+            warnings.Add($"the sections agree poorly on where the stack lies on the template (global agreement {guide.GlobalAgreement:0.00}, " +
+                $"expected above {MinTemplateAgreement:0.0}): the cut axis, first plane or direction may be wrong — check --template-axis, --template-first-plane and --template-reverse, and the template-match column of the report");
+        return placements with
+        {
+            Chain = fused,
+            ChainBefore = before,
+            Warnings = warnings,
+            OnTemplate = new TemplatePlacement(guide, z, firstPlane, direction, planeToWork),
+        };
+    }
+
+    /// <summary>True where section <paramref name="n"/> belongs to another part of the chain than the placed section before it.</summary>
+    private static bool PartEdge(IReadOnlyList<ChainPlacement> chain, int n)
+    {
+        if (chain[n].Route == LinkRoute.Failed) return false;
+        for (int j = n - 1; j >= 0; j--)
+            if (chain[j].Route != LinkRoute.Failed) return chain[j].Part != chain[n].Part;
+        return false;
+    }
+
+    /// <summary>
+    /// The template plane of the first section and the direction of increasing section numbers. Default first plane:
+    /// the series centred on the template along the cut axis (rounded to a whole plane with --template-grid, so the
+    /// volume's planes fall on the template's).
+    /// </summary>
+    internal static (double FirstPlane, double Direction) TemplateDepths(TemplateVolume template, TemplateOptions o, SectionSeries series)
+    {
+        double first = series.Sections[0].PositionUm, last = series.Sections.Max(s => s.PositionUm);
+        double direction = o.Reverse ? -1 : 1;
+        double centred = (template.Planes - 1) / 2.0 - direction * (last - first) / 1000 / template.PlaneSpacingMm / 2;
+        return (o.FirstPlane ?? (o.TemplateGrid ? Math.Round(centred) : centred), direction);
+    }
+}
