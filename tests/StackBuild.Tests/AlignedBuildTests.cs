@@ -26,7 +26,7 @@ public sealed class AlignedBuildTests(ITestOutputHelper output)
             $"pair rotation median {a.PairRotationDegrees.Median:0.###}°; wrong mirror {a.MirrorWrong}; unaligned median error {u.ErrorPx.Median:0.#} px");
 
         Assert.True(aligned.Record.Aligned);
-        Assert.Equal(54, a.Evaluated + aligned.Record.Sections.Count(s => s.Status == "failed"));
+        Assert.Equal(54, a.Evaluated + aligned.Record.Sections.Count(s => s.Status == SectionOutcome.Failed));
         // Sanity of the measure: the series as scanned is far off (the demo maker's random moves).
         Assert.True(u.ErrorPx.Median > 20, $"unaligned median error {u.ErrorPx.Median}");
         // Pairwise accuracy on the phantom. Neighbouring sections differ (50 µm apart), so the reachable value

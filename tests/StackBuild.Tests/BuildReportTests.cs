@@ -83,10 +83,10 @@ public sealed class BuildReportTests(BuildReportFixture fixture, ITestOutputHelp
 
         // Summary counts against the sidecar.
         async Task<int> Count(string name) => int.Parse(await page.Locator($"#count-{name} .value").TextContentAsync() ?? "", CultureInfo.InvariantCulture);
-        Assert.Equal(sidecar.Sections.Count(s => s.Status == "aligned"), await Count("aligned"));
-        Assert.Equal(sidecar.Sections.Count(s => s.Status == "gap"), await Count("gaps"));
+        Assert.Equal(sidecar.Sections.Count(s => s.Status == SectionOutcome.Aligned), await Count("aligned"));
+        Assert.Equal(sidecar.Sections.Count(s => s.Status == SectionOutcome.Gap), await Count("gaps"));
         Assert.Equal(sidecar.Sections.Count(s => s.File is not null), await Count("found"));
-        Assert.Equal(sidecar.Sections.Count(s => s.Status is "aligned" && s.Mirrored == true), await Count("mirrored"));
+        Assert.Equal(sidecar.Sections.Count(s => s.Status is SectionOutcome.Aligned && s.Mirrored == true), await Count("mirrored"));
         double limit = SectionFlags.DisagreementLimitUm(sidecar);
         var flagged = sidecar.Sections.Where(s => SectionFlags.Reasons(s, limit).Count > 0).Select(s => s.Number).ToList();
         Assert.Contains(fixture.DamagedSection, flagged); // marked damaged by the fixture
@@ -97,7 +97,7 @@ public sealed class BuildReportTests(BuildReportFixture fixture, ITestOutputHelp
         Assert.Equal(voxel, await page.Locator("#voxel-size td").TextContentAsync());
 
         // Table cells of three aligned sections against the sidecar (shown rounded).
-        var checkedSections = sidecar.Sections.Where(s => s.Status == "aligned" && s.Confidence is not null).Take(3).ToList();
+        var checkedSections = sidecar.Sections.Where(s => s.Status == SectionOutcome.Aligned && s.Confidence is not null).Take(3).ToList();
         Assert.Equal(3, checkedSections.Count);
         foreach (var s in checkedSections)
         {
@@ -133,7 +133,7 @@ public sealed class BuildReportTests(BuildReportFixture fixture, ITestOutputHelp
         Assert.All(links, l => Assert.StartsWith("data:image/png;base64,", l));
         Assert.DoesNotMatch(@"(?i)https?://|<script|<link|@import|url\(", html);
         // The sidecar carries the estimate for every placed section, and the report is written beside it.
-        Assert.All(fixture.Sidecar.Sections.Where(s => s.Status == "aligned"), s => Assert.NotNull(s.EstimatedErrorUm));
+        Assert.All(fixture.Sidecar.Sections.Where(s => s.Status == SectionOutcome.Aligned), s => Assert.NotNull(s.EstimatedErrorUm));
         Assert.Equal(Path.Combine(fixture.Folder, "small.report.html"), fixture.Paths.Report);
     }
 

@@ -60,13 +60,11 @@ public sealed class DriftCorrectionTests(DriftBuilds builds, ITestOutputHelper o
         output.WriteLine($"chain:  drift rms {chain.DriftRmsPx:0.###} px, max {chain.DriftMaxPx:0.###}; error median {chain.ErrorPx.Median:0.###}; pair median {chain.PairErrorPx.Median:0.###}");
         output.WriteLine($"solved: drift rms {solved.DriftRmsPx:0.###} px, max {solved.DriftMaxPx:0.###}; error median {solved.ErrorPx.Median:0.###}; pair median {solved.PairErrorPx.Median:0.###}");
         Assert.Equal(chain.Evaluated, solved.Evaluated);
-        output.WriteLine($"route closures: slow share {builds.Solved.Record.Parameters["route_closure_slow_share"]}, second-neighbour weight {builds.Solved.Record.Parameters["second_neighbour_weight"]}");
+        var closure = builds.Solved.Record.Parameters.RouteClosure!;
+        output.WriteLine($"route closures: slow share {closure.SlowShare:0.###}, limit {closure.Limit:0.###}, second-neighbour weight {closure.SecondNeighbourWeight}");
         // The second-neighbour pairs are weighted down exactly when the closures say they are biased. Since pairs are
         // polished by NCC (2026-12-03) they are not on the demo (slow share 0.09 against the limit 0.32): full weight.
-        var closure = builds.Solved.Record.Parameters["route_closure_slow_share"].Split(", limit ");
-        double share = double.Parse(closure[0], System.Globalization.CultureInfo.InvariantCulture);
-        double limit = double.Parse(closure[1], System.Globalization.CultureInfo.InvariantCulture);
-        Assert.Equal(share > limit ? "0.01" : "1", builds.Solved.Record.Parameters["second_neighbour_weight"]);
+        Assert.Equal(closure.SlowShare > closure.Limit ? 0.01 : 1, closure.SecondNeighbourWeight);
         Assert.True(solved.DriftRmsPx <= 1.05 * chain.DriftRmsPx, $"solved drift {solved.DriftRmsPx} px, chain {chain.DriftRmsPx} px");
         // The largest drift gets 10 %: since the chain's reference moved from the first section to the middle of the stack
         // (2026-12-03) the chain drifts a little less (rms 2.66 → 2.61 px, largest 4.05 px), while the solve, which does not
@@ -144,7 +142,7 @@ public sealed class DriftCorrectionTests(DriftBuilds builds, ITestOutputHelper o
         var record = builds.Guided.Record;
         var frame = record.Frame!.Template!;
         Assert.Equal("k", frame.CutAxis);
-        var aligned = record.Sections.Where(s => s.Status == "aligned").ToList();
+        var aligned = record.Sections.Where(s => s.Status == SectionOutcome.Aligned).ToList();
         Assert.All(aligned, s => Assert.NotNull(s.Template));
         Assert.Equal(frame.Measured, aligned.Count(s => s.Template!.Matched));
         Assert.Equal(frame.Outliers, aligned.Count(s => s.Template!.Outlier is not null));
@@ -156,12 +154,12 @@ public sealed class DriftCorrectionTests(DriftBuilds builds, ITestOutputHelper o
     public void EveryDecisionIsInTheSidecar()
     {
         var record = builds.Solved.Record;
-        Assert.Equal("0", record.Parameters["smoothing"]);
-        Assert.Equal("off", new BuildOptions { Input = "" }.Smoothing.Strength < 0 ? "off" : "on");
-        Assert.Equal("flow", record.Parameters["fill"]);
-        Assert.Equal("off", builds.Chain.Record.Parameters["smoothing"]);
-        Assert.False(builds.Chain.Record.Parameters.ContainsKey("second_neighbour_weight")); // no solve, nothing to report
-        var aligned = record.Sections.Where(s => s.Status == "aligned").ToList();
+        Assert.Equal(0, record.Parameters.SmoothingStrength);
+        Assert.Equal(PlacementSolver.Chain, new BuildOptions { Input = "" }.Solver); // the plain chain is the default
+        Assert.Equal(GapFill.Flow, record.Parameters.Fill);
+        Assert.Null(builds.Chain.Record.Parameters.SmoothingStrength);
+        Assert.Null(builds.Chain.Record.Parameters.RouteClosure); // no solve, nothing to report
+        var aligned = record.Sections.Where(s => s.Status == SectionOutcome.Aligned).ToList();
         Assert.All(aligned, s =>
         {
             Assert.NotNull(s.DriftCorrectionUm);
@@ -171,12 +169,12 @@ public sealed class DriftCorrectionTests(DriftBuilds builds, ITestOutputHelper o
         });
         // Gap and excluded planes between two aligned ones are filled and say so; the status stays.
         var byZ = record.Sections.ToDictionary(s => s.ZIndex);
-        var missing = record.Sections.Where(s => s.Status is "gap" or "excluded" or "failed").ToList();
+        var missing = record.Sections.Where(s => s.Status is SectionOutcome.Gap or SectionOutcome.Excluded or SectionOutcome.Failed).ToList();
         Assert.NotEmpty(missing);
         foreach (var s in missing)
         {
-            bool between = record.Sections.Any(o => o.Status == "aligned" && o.ZIndex < s.ZIndex)
-                && record.Sections.Any(o => o.Status == "aligned" && o.ZIndex > s.ZIndex);
+            bool between = record.Sections.Any(o => o.Status == SectionOutcome.Aligned && o.ZIndex < s.ZIndex)
+                && record.Sections.Any(o => o.Status == SectionOutcome.Aligned && o.ZIndex > s.ZIndex);
             Assert.Equal(between ? "flow" : null, s.Filled);
             if (between) Assert.Equal(2, s.FilledFrom!.Length);
         }
@@ -186,7 +184,7 @@ public sealed class DriftCorrectionTests(DriftBuilds builds, ITestOutputHelper o
         Assert.All(aligned, s => { Assert.NotNull(s.ChainRotationDegrees); Assert.Equal(2, s.ChainShiftPx!.Length); });
         Assert.All(builds.Chain.Record.Sections, s => Assert.Null(s.ChainShiftPx));
         // Neighbour similarity before alignment (as mounted) is far below that after it on the demo's random mounts.
-        var chainAligned = builds.Chain.Record.Sections.Where(s => s.Status == "aligned" && s.Ncc is not null).ToList();
+        var chainAligned = builds.Chain.Record.Sections.Where(s => s.Status == SectionOutcome.Aligned && s.Ncc is not null).ToList();
         Assert.All(chainAligned, s => Assert.NotNull(s.NccBefore));
         double Median(IEnumerable<double> v) { var a = v.OrderBy(x => x).ToArray(); return a[a.Length / 2]; }
         double before = Median(chainAligned.Select(s => s.NccBefore!.Value)), after = Median(chainAligned.Select(s => s.Ncc!.Value));
@@ -199,7 +197,7 @@ public sealed class DriftCorrectionTests(DriftBuilds builds, ITestOutputHelper o
         // Sections removed on purpose: plane k of the aligned volume is rebuilt from planes k − 1 and k + 1 only and
         // compared with the real plane. NRMSE = RMS difference / (p99 − p1 of the real plane) over the whole plane.
         var volume = builds.Solved.Volume;
-        var aligned = builds.Solved.Record.Sections.Where(s => s.Status == "aligned").Select(s => s.ZIndex).ToHashSet();
+        var aligned = builds.Solved.Record.Sections.Where(s => s.Status == SectionOutcome.Aligned).Select(s => s.ZIndex).ToHashSet();
         var planes = aligned.Where(k => aligned.Contains(k - 1) && aligned.Contains(k + 1)).OrderBy(k => k).ToList();
         planes = [.. planes.Where((_, i) => i % 8 == 3).Take(5)];
         Assert.NotEmpty(planes);

@@ -25,7 +25,7 @@ public static class DriftSurrogate
     public static Result Measure(BuildRecord build, SeriesTruth truth)
     {
         var placed = build.Sections
-            .Where(s => s.Status is "aligned" or "placed" && s.Matrix is not null && truth.Sections.ContainsKey(s.Number))
+            .Where(s => s.Status is SectionOutcome.Aligned or SectionOutcome.Placed && s.Matrix is not null && truth.Sections.ContainsKey(s.Number))
             .OrderBy(s => s.Number).ToList();
         var maps = placed.Select(s => truth.Sections[s.Number].PlaneToImage.Then(Transform2D.FromRows(s.Matrix!))).ToList();
         bool majority = maps.Count(m => m.IsMirrored) * 2 > maps.Count;

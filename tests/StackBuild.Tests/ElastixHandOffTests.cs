@@ -205,7 +205,7 @@ public sealed class ElastixHandOffTests(ITestOutputHelper output) : IDisposable
     private static Affine BestRigidFit(BuildRecord record, SeriesTruth truth, Affine truthAffine, Affine builtAffine, out double rmsMm, out int fitted)
     {
         var maps = record.Sections
-            .Where(s => s.Status is "aligned" or "placed" && s.Matrix is not null && truth.Sections.ContainsKey(s.Number))
+            .Where(s => s.Status is SectionOutcome.Aligned or SectionOutcome.Placed && s.Matrix is not null && truth.Sections.ContainsKey(s.Number))
             .Select(s => (s.ZIndex, Map: truth.Sections[s.Number].PlaneToImage.Then(Transform2D.FromRows(s.Matrix!))))
             .ToList();
         bool mirrored = maps.Count(m => m.Map.IsMirrored) * 2 > maps.Count;

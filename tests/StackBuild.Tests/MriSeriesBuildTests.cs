@@ -125,7 +125,7 @@ public sealed class MriSeriesBuildTests(MriSeriesBuilds builds, ITestOutputHelpe
         Assert.Empty(frame.ChainSteps); // the chain drifts fast at the top of the brain, but smoothly: no false step
 
         foreach (var b in new[] { builds.Chain, builds.Smoothed, builds.Guided })
-            Assert.Equal(MriSeriesBuilds.Sections, b.Record.Sections.Count(s => s.Status == "aligned"));
+            Assert.Equal(MriSeriesBuilds.Sections, b.Record.Sections.Count(s => s.Status == SectionOutcome.Aligned));
         Assert.Equal(0, guided.MirrorWrong);
         // Targets of the issue: low-frequency drift (moving average over 9 sections after one global fit) at most a third
         // of plain chaining's; median absolute error ≤ 1 px (output pixels, 1 mm here).
@@ -142,8 +142,9 @@ public sealed class MriSeriesBuildTests(MriSeriesBuilds builds, ITestOutputHelpe
         // error, not noise, TheChainsDriftIsBiasedLinkErrorNotNoise), but must not amplify it: at full weight its
         // second-neighbour pairs raised the drift to 4.34 px (measured 2026-12-02); their route closures are slow (share
         // above the limit), so they are weighted down. Bound: 5 % over the chain (this project's; measured 0.4 %).
-        output.WriteLine($"route closures: slow share {builds.Smoothed.Record.Parameters["route_closure_slow_share"]}, second-neighbour weight {builds.Smoothed.Record.Parameters["second_neighbour_weight"]}");
-        Assert.Equal("0.01", builds.Smoothed.Record.Parameters["second_neighbour_weight"]);
+        var closure = builds.Smoothed.Record.Parameters.RouteClosure!;
+        output.WriteLine($"route closures: slow share {closure.SlowShare:0.###}, limit {closure.Limit:0.###}, second-neighbour weight {closure.SecondNeighbourWeight}");
+        Assert.Equal(0.01, closure.SecondNeighbourWeight);
         Assert.True(smoothed.DriftRmsPx <= 1.05 * chain.DriftRmsPx, $"smoothing drift {smoothed.DriftRmsPx} px, chain {chain.DriftRmsPx} px");
     }
 
@@ -173,8 +174,8 @@ public sealed class MriSeriesBuildTests(MriSeriesBuilds builds, ITestOutputHelpe
             });
             var section = build.Record.Sections.Single(s => s.Number == 20);
             output.WriteLine($"section 20: status {section.Status}, route {section.Route}, template note: {section.Template?.Note}");
-            Assert.Equal("aligned", section.Status);
-            Assert.Equal("template", section.Route);
+            Assert.Equal(SectionOutcome.Aligned, section.Status);
+            Assert.Equal(LinkRoute.Template, section.Route);
             Assert.True(section.Template!.PlacedByTemplate);
             Assert.Contains("placed by its own template match alone", section.Template.Note);
             var evaluation = TruthEvaluation.Evaluate(build.Record, SeriesTruth.Read(Path.Combine(folder, "truth.json")));
@@ -182,7 +183,7 @@ public sealed class MriSeriesBuildTests(MriSeriesBuilds builds, ITestOutputHelpe
             output.WriteLine($"section 20: error {error.ErrorPx:0.###} px, rotation {error.RotationErrorDegrees:0.###}°; build median {evaluation.ErrorPx.Median:0.###} px");
             Assert.False(error.MirrorWrong);
             Assert.True(error.ErrorPx < 1, $"section 20 is {error.ErrorPx} px off");
-            Assert.Equal(MriSeriesBuilds.Sections, build.Record.Sections.Count(s => s.Status == "aligned"));
+            Assert.Equal(MriSeriesBuilds.Sections, build.Record.Sections.Count(s => s.Status == SectionOutcome.Aligned));
             // Its error estimate is that of one template match (the neighbours' RMS misfit), with no chain link in it.
             var estimate = Uncertainty.Annotate(build.Record).Sections.Single(s => s.Number == 20).EstimatedErrorUm;
             output.WriteLine($"section 20: estimated error {estimate:0.#} µm, true {error.ErrorUm:0.#} µm");

@@ -3,6 +3,7 @@ using StackBuild.Frame;
 using StackBuild.Geometry;
 using StackBuild.IO;
 using StackBuild.Pipeline;
+using StackBuild.Render;
 using Xunit;
 using Xunit.Abstractions;
 
@@ -35,7 +36,7 @@ public sealed class OutputFrameTests(OutputFrameFixture fixture, ITestOutputHelp
     private static Transform2D Matrix(SectionRecord s) =>
         new(s.Matrix![0][0], s.Matrix[0][1], s.Matrix[0][2], s.Matrix[1][0], s.Matrix[1][1], s.Matrix[1][2]);
 
-    private int PlacedSection(int skip) => fixture.Default.Record.Sections.Where(s => s.Status == "aligned").Skip(skip).First().Number;
+    private int PlacedSection(int skip) => fixture.Default.Record.Sections.Where(s => s.Status == SectionOutcome.Aligned).Skip(skip).First().Number;
 
     [Fact]
     public void TheReferenceSectionKeepsItsScannedFrameTurnedAndMirroredAsAsked()
@@ -63,7 +64,7 @@ public sealed class OutputFrameTests(OutputFrameFixture fixture, ITestOutputHelp
 
         // The whole stack turns together: the map between any two sections' planes is the same as in the default frame
         // (sections relative to each other do not depend on the frame).
-        foreach (var other in built.Record.Sections.Where(s => s.Status == "aligned" && s.Number != n))
+        foreach (var other in built.Record.Sections.Where(s => s.Status == SectionOutcome.Aligned && s.Number != n))
         {
             var a = Matrix(fixture.Default.Record.Sections.Single(s => s.Number == other.Number))
                 .Then(Matrix(fixture.Default.Record.Sections.Single(s => s.Number == n)).Inverse());
@@ -174,11 +175,11 @@ public sealed class OutputFrameTests(OutputFrameFixture fixture, ITestOutputHelp
     {
         var native = fixture.Default;
         var fine = BuildPipeline.Run(new BuildOptions { Input = fixture.Series, VoxelSizeUm = 25 });
-        output.WriteLine($"native {native.Volume.Nx}×{native.Volume.Ny}×{native.Volume.Nz}, 25 µm {fine.Volume.Nx}×{fine.Volume.Ny}×{fine.Volume.Nz}; {fine.Record.Parameters["z_resampling"]}");
+        output.WriteLine($"native {native.Volume.Nx}×{native.Volume.Ny}×{native.Volume.Nz}, 25 µm {fine.Volume.Nx}×{fine.Volume.Ny}×{fine.Volume.Nz}; {fine.Record.Parameters.PlaneResampling}");
         // 50 µm sections resampled to 25 µm planes: 2·Nz − 1 planes, isotropic 25 µm voxels (in-plane from --voxel-size too).
         Assert.Equal(2 * native.Volume.Nz - 1, fine.Volume.Nz);
         Assert.Equal(new[] { 0.025, 0.025, 0.025 }, fine.Record.VoxelSizeMm.Select(v => Math.Round(v, 9)));
-        Assert.StartsWith("flow", fine.Record.Parameters["z_resampling"]);
+        Assert.Equal(GapFill.Flow, fine.Record.Parameters.PlaneResampling!.Method);
         foreach (var s in fine.Record.Sections) Assert.Equal(2.0 * s.ZIndex, s.VolumeZ!.Value, 9);
         // The tissue centre stays at world (0, 0, 0): the middle of the stack along k is the same place in both.
         var a = Affine.FromRows(native.Record.Affine[0], native.Record.Affine[1], native.Record.Affine[2]);

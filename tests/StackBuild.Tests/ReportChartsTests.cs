@@ -2,6 +2,7 @@ using System.Text.RegularExpressions;
 using SixLabors.ImageSharp;
 using SixLabors.ImageSharp.PixelFormats;
 using StackBuild.Imaging;
+using StackBuild.Pipeline;
 using StackBuild.Write;
 using Xunit;
 
@@ -45,8 +46,8 @@ public sealed class ReportChartsTests(BuildReportFixture fixture) : IClassFixtur
         var runs = ReportPlots.Runs([1, 2, 3, 5, 6, 9]);
         Assert.Equal([[0, 1, 2], [3, 4], [5]], runs.Select(r => r.ToArray()).ToArray());
         // On the built demo: no run spans a section that is not aligned or placed.
-        var placed = fixture.Sidecar.Sections.Where(s => s.Status is "aligned" or "placed").Select(s => s.Number).OrderBy(n => n).ToList();
-        var absent = fixture.Sidecar.Sections.Where(s => s.Status is not ("aligned" or "placed")).Select(s => s.Number).ToHashSet();
+        var placed = fixture.Sidecar.Sections.Where(s => s.Status is SectionOutcome.Aligned or SectionOutcome.Placed).Select(s => s.Number).OrderBy(n => n).ToList();
+        var absent = fixture.Sidecar.Sections.Where(s => s.Status is not (SectionOutcome.Aligned or SectionOutcome.Placed)).Select(s => s.Number).ToHashSet();
         Assert.NotEmpty(absent); // the demo has gaps, or this proves nothing
         foreach (var run in ReportPlots.Runs(placed))
             for (int n = placed[run[0]]; n <= placed[run[^1]]; n++) Assert.DoesNotContain(n, absent);

@@ -24,7 +24,7 @@ public class TruthEvaluationTests
             // A perfect build maps image → plane as planeToImage⁻¹ followed by one global map.
             var imageToPlane = planeToImage.Inverse().Then(global).Then(extraError(n));
             if (wrongMirror?.Invoke(n) == true) imageToPlane = Transform2D.MirrorX(100).Then(imageToPlane);
-            records.Add(new SectionRecord { Number = n, Status = "aligned", Matrix = imageToPlane.ToRows(), Confidence = 1 });
+            records.Add(new SectionRecord { Number = n, Status = SectionOutcome.Aligned, Matrix = imageToPlane.ToRows(), Confidence = 1 });
         }
         var build = new BuildRecord { VoxelSizeMm = [0.01, 0.01, 0.05], Sections = records };
         return (build, new SeriesTruth(W, H, 10, truth));

@@ -2,6 +2,7 @@ using System.Globalization;
 using StackBuild.Evaluate;
 using StackBuild.Geometry;
 using StackBuild.Pipeline;
+using StackBuild.Solve;
 using Xunit;
 using Xunit.Abstractions;
 
@@ -12,7 +13,7 @@ public sealed class UncertaintyTests(ITestOutputHelper output)
 {
     private static SectionRecord Link(int number, int? to, double confidence, double psr, double? disagreementUm) => new()
     {
-        Number = number, Status = "aligned", RegisteredTo = to, Route = to is null ? "reference" : "neighbour",
+        Number = number, Status = SectionOutcome.Aligned, RegisteredTo = to, Route = to is null ? LinkRoute.Reference : LinkRoute.Neighbour,
         Confidence = to is null ? null : confidence, PeakToSidelobe = to is null ? null : psr, RouteDisagreementUm = disagreementUm,
     };
 
@@ -20,7 +21,7 @@ public sealed class UncertaintyTests(ITestOutputHelper output)
     {
         Aligned = true,
         Dimensions = [100, 80, sections.Length], VoxelSizeMm = [0.01, 0.01, 0.05],
-        Parameters = new() { ["registration_pixel_size_um"] = "10" }, Sections = [.. sections],
+        Parameters = new() { RegistrationPixelSizeUm = 10 }, Sections = [.. sections],
     };
 
     [Fact]
@@ -31,7 +32,7 @@ public sealed class UncertaintyTests(ITestOutputHelper output)
             Link(1, null, 1, 1, null),
             Link(2, 1, 1, 25, null),
             Link(3, 2, 1, 25, 30 * Math.Sqrt(2)),
-            new SectionRecord { Number = 4, Status = "gap" },
+            new SectionRecord { Number = 4, Status = SectionOutcome.Gap },
             Link(5, 3, 0.6, 4, null));
         var e = Uncertainty.Estimate(record);
         // Without a template each estimate also carries the chain's slow drift: placed sections 1, 2, 3, 5 are positions

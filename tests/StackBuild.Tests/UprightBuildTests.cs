@@ -68,7 +68,7 @@ public sealed class UprightBuildTests(ITestOutputHelper output) : IDisposable
         // The template itself leans about 0.5° (measured by MidlineTests); 1.5° leaves room for that and the alignment.
         Assert.True(Math.Abs(Wrap90(uprightTurn)) <= 1.5, $"upright build leaves the template turned by {uprightTurn:0.##}°");
         Assert.True(u.Symmetry > u.RunnerUpSymmetry);
-        Assert.Equal(16, upright.Record.Sections.Count(s => s.Status == "aligned"));
+        Assert.Equal(16, upright.Record.Sections.Count(s => s.Status == SectionOutcome.Aligned));
     }
 
     [Fact]

@@ -1,4 +1,5 @@
 using StackBuild.Evaluate;
+using StackBuild.Pipeline;
 using Xunit;
 using Xunit.Abstractions;
 
@@ -63,7 +64,7 @@ public sealed class WholeSpecimenTests(WholeSpecimenBuilds builds, ITestOutputHe
         Assert.Empty(plain.Unflagged);
         // Sections that are not placed at all are reported as failed and flagged, never written as if placed.
         foreach (var row in builds.Rows)
-            foreach (var s in row.Record.Sections.Where(s => s.Status == "failed"))
+            foreach (var s in row.Record.Sections.Where(s => s.Status == SectionOutcome.Failed))
                 Assert.NotEmpty(s.Flags!);
     }
 

@@ -1,3 +1,4 @@
+using System.Globalization;
 using System.CommandLine;
 using System.Text.Json;
 using StackBuild.Frame;
@@ -159,7 +160,7 @@ public static class BuildCommand
     private static void Report(CliOutput console, BuildResult result, BuildOutputPaths paths, bool json, bool alignRequested)
     {
         var r = StackBuild.Evaluate.Uncertainty.Annotate(result.Record); // the estimates the sidecar carries, for the same flags
-        var counts = r.Sections.GroupBy(s => s.Status).ToDictionary(g => g.Key, g => g.Count());
+        var counts = r.Sections.GroupBy(s => s.Status.Word()).ToDictionary(g => g.Key, g => g.Count());
         if (json)
         {
             console.Out.WriteLine(JsonSerializer.Serialize(new
@@ -183,8 +184,8 @@ public static class BuildCommand
         o.WriteLine($"Report   {paths.Report}");
         o.WriteLine($"Grid     {r.Dimensions[0]} × {r.Dimensions[1]} × {r.Dimensions[2]} voxels of {r.VoxelSizeMm[0] * 1000:0.###} × {r.VoxelSizeMm[1] * 1000:0.###} × {r.VoxelSizeMm[2] * 1000:0.###} µm, axes {r.AxisCodes}");
         if (r.Frame is { } f) o.WriteLine($"Frame    {f.Describe()}");
-        if (r.Parameters.TryGetValue("second_neighbour_weight", out var longWeight) && r.Parameters.TryGetValue("route_closure_slow_share", out var share))
-            o.WriteLine($"Solve    all pairs at once (--smoothing {r.Parameters["smoothing"]}). " + (longWeight == "1"
+        if (r.Parameters is { SmoothingStrength: double strength, RouteClosure: { } closure })
+            o.WriteLine($"Solve    all pairs at once (--smoothing {strength.ToString("R", CultureInfo.InvariantCulture)}). " + (closure.SecondNeighbourWeight == 1
                 ? "Section-to-section jitter is evened out; slow drift is not removed without a reference (--template removes it)."
                 : "Drift is not reduced, and on this series the result is close to the default build: pairs two sections apart disagree with the nearest ones the same way over stretches of the stack, so they were given little weight. --template removes drift."));
         int filled = r.Sections.Count(s => s.Filled is not null);
@@ -192,7 +193,7 @@ public static class BuildCommand
             (filled > 0 ? $"; {filled} empty {(filled == 1 ? "plane" : "planes")} filled from their neighbours" : ""));
         // The same sections the report flags (failed ones are in the warnings below).
         var all = SectionFlags.For(r);
-        var flagged = r.Sections.Where(s => s.Status != "failed").Select(s => (s.Number, Reasons: all[s.Number])).Where(t => t.Reasons.Count > 0).ToList();
+        var flagged = r.Sections.Where(s => s.Status != SectionOutcome.Failed).Select(s => (s.Number, Reasons: all[s.Number])).Where(t => t.Reasons.Count > 0).ToList();
         // Sections flagged for nothing but an estimated error above 2 voxels are, in a build without a template, the chain's
         // slow drift: one line for all of them, so the sections with a trouble of their own stand out.
         var specific = flagged.Where(t => !SectionFlags.EstimateOnly(t.Reasons)).ToList();

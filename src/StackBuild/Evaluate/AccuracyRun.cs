@@ -93,7 +93,7 @@ public static class AccuracyRun
     {
         var e = TruthEvaluation.Evaluate(record, truth);
         int present = series.Sections.Count(s => !s.Lost);
-        int placed = record.Sections.Count(s => s.Status is "aligned" or "placed");
+        int placed = record.Sections.Count(s => s.Status is SectionOutcome.Aligned or SectionOutcome.Placed);
         var flagged = record.Sections.Where(s => s.Flags is { Count: > 0 }).Select(s => s.Number).ToHashSet();
         var off = e.Sections.Where(s => s.ErrorPx > FlagLimitPx || s.MirrorWrong).ToList();
         var unflagged = off.Where(s => !flagged.Contains(s.Number)).Select(s => s.Number).ToList();

@@ -80,11 +80,11 @@ public static class TruthEvaluation
     public static EvaluationResult Evaluate(BuildRecord build, SeriesTruth truth)
     {
         var placed = build.Sections
-            .Where(s => s.Status is "aligned" or "placed" && s.Matrix is not null && truth.Sections.ContainsKey(s.Number))
+            .Where(s => s.Status is SectionOutcome.Aligned or SectionOutcome.Placed && s.Matrix is not null && truth.Sections.ContainsKey(s.Number))
             .OrderBy(s => s.Number)
             .Select(s => (Record: s, Map: truth.Sections[s.Number].PlaneToImage.Then(Transform2D.FromRows(s.Matrix!))))
             .ToList();
-        int missing = build.Sections.Count(s => s.Status is "aligned" or "placed" && !truth.Sections.ContainsKey(s.Number));
+        int missing = build.Sections.Count(s => s.Status is SectionOutcome.Aligned or SectionOutcome.Placed && !truth.Sections.ContainsKey(s.Number));
         if (placed.Count == 0)
             throw new InputProblemException(null, "no placed section of the build has a truth entry", "check that the sidecar and the truth file describe the same series");
 

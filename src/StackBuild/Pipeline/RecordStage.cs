@@ -26,39 +26,34 @@ public static class RecordStage
         var parity = placements.Parity;
         double workUm = sections.WorkPixelUm;
         bool aligned = placements.Aligned;
-        var records = rendered.Sections.Select(r => Section(r, plan, sections, placements, grid, rendered.PlaneSpacingUm)).ToList();
+        var records = rendered.Sections.Select(r => Section(r, plan, sections, placements, grid, rendered.Resampling?.ToUm)).ToList();
 
         var warnings = new List<string>(series.Warnings);
         warnings.AddRange(placements.Warnings);
         warnings.AddRange(grid.Warnings);
         warnings.AddRange(rendered.Warnings);
-        int failed = records.Count(r => r.Status == "failed");
+        int failed = records.Count(r => r.Status == SectionOutcome.Failed);
         if (failed > 0) warnings.Add($"{failed} section(s) could not be matched to a neighbour and were left out (status 'failed' in the sidecar): " +
-            string.Join(", ", records.Where(r => r.Status == "failed").Select(r => r.Number.ToString(CultureInfo.InvariantCulture))));
+            string.Join(", ", records.Where(r => r.Status == SectionOutcome.Failed).Select(r => r.Number.ToString(CultureInfo.InvariantCulture))));
 
         var affine = rendered.Volume.Affine;
         var sizes = affine.VoxelSizes;
-        var parameters = new Dictionary<string, string>
+        var parameters = new RunParameters
         {
-            ["output_pixel_size_um"] = Num(plan.OutputPixelUm),
-            ["registration_pixel_size_um"] = Num(workUm),
-            ["interpolation"] = options.Interpolation.ToString().ToLowerInvariant(),
-            ["channel"] = options.Channel.ToString().ToLowerInvariant(),
-            ["alignment"] = aligned ? "neighbour chain: phase correlation, any angle, mirror tested" : "none (sections placed centred, unaligned)",
-            ["work_size_px"] = options.Registration.WorkSize.ToString(CultureInfo.InvariantCulture),
-            ["min_confidence"] = Num(options.Chain.MinConfidence),
-            ["fft"] = Fft2D.ProviderName,
-            ["smoothing"] = smoothing is null ? "off" : Num(options.Smoothing.Strength),
-            ["fill"] = rendered.Fill.ToString().ToLowerInvariant(),
-            ["z_resampling"] = rendered.ZResampling,
-            ["template"] = onTemplate is null ? "none" : "sections matched to template slices by normalised mutual information; the template sets the course over 11 sections, the chain the detail",
+            OutputPixelSizeUm = plan.OutputPixelUm,
+            RegistrationPixelSizeUm = workUm,
+            Interpolation = options.Interpolation,
+            Channel = options.Channel,
+            Aligned = aligned,
+            WorkSizePx = options.Registration.WorkSize,
+            MinConfidence = options.Chain.MinConfidence,
+            Fft = Fft2D.ProviderName,
+            SmoothingStrength = smoothing is null ? null : options.Smoothing.Strength,
+            Fill = rendered.Fill,
+            PlaneResampling = rendered.Resampling,
+            Template = onTemplate is not null,
+            RouteClosure = smoothing is null ? null : new RouteClosure(smoothing.SlowClosureShare, smoothing.SlowClosureLimit, smoothing.LongPairWeight),
         };
-        if (smoothing is not null)
-        {
-            parameters["route_closure_slow_share"] = double.IsNaN(smoothing.SlowClosureShare) ? "too few sections to tell"
-                : $"{Num(Math.Round(smoothing.SlowClosureShare, 3))}, limit {Num(Math.Round(smoothing.SlowClosureLimit, 3))}";
-            parameters["second_neighbour_weight"] = Num(smoothing.LongPairWeight);
-        }
         int frameSection = sections[framed.FrameIndex].Entry.Number;
         var midline = framed.Midline;
         return new BuildRecord
@@ -131,7 +126,7 @@ public static class RecordStage
             Damaged = s.Damaged,
             Mirrored = s.MountedMirrored,
             Note = string.IsNullOrEmpty(s.Note) ? null : s.Note,
-            Status = Word(r.Status),
+            Status = r.Status,
             Filled = r.Filled is { } f ? (f == GapFill.Flow ? "flow" : "linear") : null,
             FilledFrom = r.FilledFrom,
             VolumeZ = resampledUm is double voxelUm ? r.Plane * series.SpacingUm / voxelUm : null,
@@ -147,7 +142,7 @@ public static class RecordStage
             Ncc = pair?.Best.Ncc,
             PeakToSidelobe = pair?.Best.PeakToSidelobe,
             RegisteredTo = place.LinkedTo >= 0 ? sections[place.LinkedTo].Entry.Number : null,
-            Route = place.Route.ToString().ToLowerInvariant() switch { "secondneighbour" => "second-neighbour", "partreference" => "part-reference", var w => w },
+            Route = place.Route,
             Part = place.Part != 0 && place.Route != LinkRoute.Failed ? place.Part : null,
             RouteDisagreementUm = place.RouteDisagreement is { } d ? d * workUm : null,
             RunnerUp = pair?.RunnerUp is { } ru ? new HypothesisRecord(ru.Mirrored, ru.RotationDegrees, ru.Ncc, ru.Mirrored != pair.Best.Mirrored) : null,
@@ -181,8 +176,6 @@ public static class RecordStage
         };
         Geometry.Transform2D ChainMap(ChainPlacement p) => grid.ImageToPlane(sections[n].FullToWork, p.ToReference);
     }
-
-    private static string Word(SectionOutcome status) => status.ToString().ToLowerInvariant();
 
     private static SectionTemplateRecord TemplateRecord(TemplatePlacement t, IReadOnlyList<ChainPlacement> chain, int n, double workUm, GrayImage image)
     {
@@ -240,6 +233,4 @@ public static class RecordStage
     }
 
     private static string Join(string? a, string b) => string.IsNullOrEmpty(a) ? b : $"{a}; {b}";
-
-    private static string Num(double v) => RenderStage.Num(v);
 }

@@ -1,4 +1,3 @@
-using System.Globalization;
 using StackBuild.Frame;
 using StackBuild.Geometry;
 using StackBuild.Imaging;
@@ -20,9 +19,8 @@ public sealed record RenderedSection(SectionEntry Entry, int? Index, int Plane, 
 /// <summary>Stage 7, the volume: every placed section resampled into the grid, gaps filled, planes resampled, rounded to the input's levels.</summary>
 /// <param name="Sections">One per section of the series, in order.</param>
 /// <param name="Fill">How gap planes were filled (<see cref="GapFill.None"/> for an unaligned build).</param>
-/// <param name="ZResampling">How the planes were resampled along the stack, for the record ("none" when they were not).</param>
-/// <param name="PlaneSpacingUm">The resampled plane spacing, µm; null when the planes stayed at the section spacing.</param>
-public sealed record RenderedVolume(Volume Volume, IReadOnlyList<RenderedSection> Sections, GapFill Fill, string ZResampling, double? PlaneSpacingUm,
+/// <param name="Resampling">How the planes were resampled along the stack; null when they stayed at the section spacing.</param>
+public sealed record RenderedVolume(Volume Volume, IReadOnlyList<RenderedSection> Sections, GapFill Fill, PlaneResampling? Resampling,
     IReadOnlyList<string> Warnings);
 
 public static class RenderStage
@@ -80,17 +78,15 @@ public static class RenderStage
         var fillMethod = aligned ? options.Fill : GapFill.None;
         if (fillMethod != GapFill.None) FillGaps(volume, rendered, fillMethod);
         // A requested plane spacing: resample along the sections with the same interpolation as the gaps.
-        string zResampling = "none";
-        double? resampledUm = null;
+        PlaneResampling? resampling = null;
         if (plan.PlaneSpacingUm is double voxelUm && Math.Abs(voxelUm - series.SpacingUm) > 1e-9 * voxelUm)
         {
             var method = aligned && options.Fill != GapFill.None ? options.Fill : GapFill.Linear;
             volume = ZResampler.ResampleZ(volume, voxelUm / 1000, method);
-            zResampling = $"{method.ToString().ToLowerInvariant()}, {Num(series.SpacingUm)} µm → {Num(voxelUm)} µm";
-            resampledUm = voxelUm;
+            resampling = new PlaneResampling(method, series.SpacingUm, voxelUm);
         }
         RoundInPlace(volume.Voxels, (float)maxValue);
-        return new RenderedVolume(volume, rendered, fillMethod, zResampling, resampledUm, warnings);
+        return new RenderedVolume(volume, rendered, fillMethod, resampling, warnings);
     }
 
     /// <summary>Fills every plane no section was rendered into from the nearest rendered planes on either side.</summary>
@@ -113,8 +109,6 @@ public static class RenderStage
             rendered[r] = section with { Filled = method, FilledFrom = [from, to] };
         }
     }
-
-    internal static string Num(double v) => v.ToString("R", CultureInfo.InvariantCulture);
 
     private static void ScaleInPlace(GrayImage image, float factor)
     {
