@@ -4,6 +4,7 @@ using MathNet.Numerics;
 using StackBuild.Geometry;
 using StackBuild.Imaging;
 using StackBuild.Register;
+using StackBuild.Numerics;
 
 namespace StackBuild.Benchmarks;
 

@@ -1,6 +1,7 @@
 using MathNet.Numerics;
 using StackBuild.Register;
 using Xunit;
+using StackBuild.Numerics;
 
 namespace StackBuild.Tests;
 

@@ -150,7 +150,7 @@ public class RegisterPreprocessingTests(ITestOutputHelper output)
         if (exit == 3) Assert.Fail($"skimage_otsu.py: {stderr.Trim()} (Debian package python3-skimage; tests/run.sh installs it as root)");
         Assert.True(exit == 0, stderr);
         double reference = double.Parse(stdout.Trim(), CultureInfo.InvariantCulture);
-        double ours = StackBuild.Register.ImageOps.OtsuThreshold(values);
+        double ours = StackBuild.Imaging.ImageOps.OtsuThreshold(values);
         double bin = (values.Max() - values.Min()) / 256.0;
         output.WriteLine($"Otsu: ours {ours:F5}, scikit-image {reference:F5}, bin {bin:F5}");
         Assert.True(Math.Abs(ours - reference) <= 1.01 * bin, $"ours {ours} vs scikit-image {reference}");

@@ -1,6 +1,7 @@
 using StackBuild.Geometry;
 using StackBuild.Imaging;
 using StackBuild.Register;
+using StackBuild.Numerics;
 
 namespace StackBuild.Tests;
 

@@ -123,13 +123,13 @@ public static class TruthEvaluation
         {
             var (record, map) = placed[n];
             double err = MeanDistance(points, map, common);
-            double rot = Wrap(map.RotationDegrees - common.RotationDegrees);
+            double rot = Angles.Wrap(map.RotationDegrees - common.RotationDegrees);
             double? pairErr = null, pairRot = null;
             if (n > 0)
             {
                 var prev = placed[n - 1].Map;
                 pairErr = MeanDistance(points, map, prev);
-                pairRot = map.IsMirrored == prev.IsMirrored ? Math.Abs(Wrap(map.RotationDegrees - prev.RotationDegrees)) : 180;
+                pairRot = map.IsMirrored == prev.IsMirrored ? Math.Abs(Angles.Wrap(map.RotationDegrees - prev.RotationDegrees)) : 180;
             }
             errors.Add(new SectionError(record.Number, err, err * outUm, Math.Abs(rot), map.IsMirrored != common.IsMirrored,
                 pairErr, pairRot, Math.Sqrt(drift[n].X * drift[n].X + drift[n].Y * drift[n].Y), record.Confidence));
@@ -141,14 +141,6 @@ public static class TruthEvaluation
             Summarise(pairs.Select(e => e.PairErrorPx!.Value)), Summarise(pairs.Select(e => e.PairRotationDegrees!.Value)),
             errors.Count(e => e.MirrorWrong), errors.Max(e => e.DriftPx), Math.Sqrt(errors.Average(e => e.DriftPx * e.DriftPx)),
             outUm, errors.Count, missing);
-    }
-
-    private static double Wrap(double degrees)
-    {
-        degrees %= 360;
-        if (degrees > 180) degrees -= 360;
-        if (degrees <= -180) degrees += 360;
-        return degrees;
     }
 
     /// <summary>A 5 × 5 grid over the middle 80 % of the plane (where tissue lies).</summary>

@@ -4,6 +4,7 @@ using StackBuild.Imaging;
 using StackBuild.Register;
 using StackBuild.Render;
 using StackBuild.Solve;
+using StackBuild.Numerics;
 
 namespace StackBuild.Pipeline;
 

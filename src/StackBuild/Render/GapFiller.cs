@@ -59,7 +59,7 @@ public static class GapFiller
         if (options.ConfidenceSigma > 0)
         {
             double spread = Spread(a.Pixels, b.Pixels);
-            if (options.ConfidenceWindow > 0) residual = Gaussian(residual, options.ConfidenceWindow);
+            if (options.ConfidenceWindow > 0) residual = GaussianFilter.Blur(residual, options.ConfidenceWindow);
             double s2 = options.ConfidenceSigma * options.ConfidenceSigma * spread * spread;
             for (int i = 0; i < result.Length; i++)
             {
@@ -80,7 +80,7 @@ public static class GapFiller
         /// blending. With it, what counts is α over the contrast factor of the normalisation (scaling the data by s is the
         /// same as dividing α by s for the quadratic terms): at factor 0.5, α = 0.65 / 0.7 / 0.8 gave 20.0 / 20.3 / 20.7 %
         /// below linear on single MRI planes, but 0.8 left the known-shift field of GapFillTests 0.34 px short of 2 px
-        /// (0.7: 0.23 px); α 0.5 at factor 0.36 is the α ≈ 0.7 choice, and keeps <see cref="HornSchunck"/> as it was.
+        /// (0.7: 0.23 px); α 0.5 at factor 0.36 is the α ≈ 0.7 choice.
         /// </summary>
         public double Alpha { get; init; } = 0.5;
         public int IterationsPerWarp { get; init; } = 40;
@@ -161,7 +161,7 @@ public static class GapFiller
     /// </summary>
     public static (float[] U, float[] V) SymmetricFlow(GrayImage a, GrayImage b, double t, FlowOptions options)
     {
-        var (pyramidA, pyramidB) = Pyramids(a, b, options, presmooth: true);
+        var (pyramidA, pyramidB) = Pyramids(a, b, options);
         float[] u = new float[pyramidA[^1].Pixels.Length], v = new float[u.Length];
         for (int level = pyramidA.Count - 1; level >= 0; level--)
         {
@@ -318,37 +318,14 @@ public static class GapFiller
         return top + (bottom - top) * ty;
     }
 
-    /// <summary>Cubic convolution with a = −0.5 (Keys 1981, IEEE Trans. ASSP 29:1153, from memory), edges clamped.</summary>
+    /// <summary>Cubic convolution (<see cref="CubicConvolution"/>) with positions outside the image moved to its nearest edge.</summary>
     private static float SampleCubic(GrayImage image, double x, double y)
     {
         int w = image.Width, h = image.Height;
         if (!double.IsFinite(x) || !double.IsFinite(y)) return image.Pixels[0];
         double fx = Math.Clamp(x, 0, w - 1), fy = Math.Clamp(y, 0, h - 1);
         int x0 = (int)Math.Floor(fx), y0 = (int)Math.Floor(fy);
-        double tx = fx - x0, ty = fy - y0;
-        Span<double> kx = stackalloc double[4], ky = stackalloc double[4];
-        Keys(tx, kx);
-        Keys(ty, ky);
-        double sum = 0;
-        var p = image.Pixels;
-        for (int j = 0; j < 4; j++)
-        {
-            int yy = Math.Clamp(y0 - 1 + j, 0, h - 1);
-            double row = 0;
-            for (int i = 0; i < 4; i++) row += kx[i] * p[yy * w + Math.Clamp(x0 - 1 + i, 0, w - 1)];
-            sum += ky[j] * row;
-        }
-        return (float)sum;
-    }
-
-    private static void Keys(double t, Span<double> k)
-    {
-        static double W(double s)
-        {
-            s = Math.Abs(s);
-            return s <= 1 ? 1.5 * s * s * s - 2.5 * s * s + 1 : s < 2 ? -0.5 * s * s * s + 2.5 * s * s - 4 * s + 2 : 0;
-        }
-        k[0] = W(1 + t); k[1] = W(t); k[2] = W(1 - t); k[3] = W(2 - t);
+        return CubicConvolution.Sample(image, x0, y0, fx - x0, fy - y0);
     }
 
     /// <summary>Square median filter of side <paramref name="side"/> (odd), the window cut at the border.</summary>
@@ -371,13 +348,6 @@ public static class GapFiller
         return result;
     }
 
-    /// <summary>Separable Gaussian blur (kernel cut at 3σ, at least one pixel; edges clamped).</summary>
-    private static GrayImage Gaussian(GrayImage image, double sigma)
-    {
-        var kernel = GaussianFilter.Kernel(sigma, Math.Max(1, (int)Math.Ceiling(3 * sigma)));
-        return GaussianFilter.Blur(image, kernel, kernel);
-    }
-
     /// <summary>
     /// The 4-neighbourhood mean (edges clamped) of the total field, increment <paramref name="d"/> plus current
     /// <paramref name="f"/>, minus the current field at (x, y): the increment that smoothness alone would ask for, so the
@@ -395,20 +365,20 @@ public static class GapFiller
     /// Both planes scaled by their common spread (optionally pre-smoothed), then halved until the short side would drop
     /// below <see cref="FlowOptions.CoarsestSide"/>: level 0 is full size.
     /// </summary>
-    private static (List<GrayImage> A, List<GrayImage> B) Pyramids(GrayImage a, GrayImage b, FlowOptions options, bool presmooth)
+    private static (List<GrayImage> A, List<GrayImage> B) Pyramids(GrayImage a, GrayImage b, FlowOptions options)
     {
         double spread = Spread(a.Pixels, b.Pixels);
         var na = Scaled(a, spread);
         var nb = Scaled(b, spread);
-        if (presmooth && options.LocalNormalizeSigma > 0)
+        if (options.LocalNormalizeSigma > 0)
         {
             na = LocallyNormalized(na, options.LocalNormalizeSigma);
             nb = LocallyNormalized(nb, options.LocalNormalizeSigma);
         }
-        if (presmooth && options.PreSmoothSigma > 0)
+        if (options.PreSmoothSigma > 0)
         {
-            na = Gaussian(na, options.PreSmoothSigma);
-            nb = Gaussian(nb, options.PreSmoothSigma);
+            na = GaussianFilter.Blur(na, options.PreSmoothSigma);
+            nb = GaussianFilter.Blur(nb, options.PreSmoothSigma);
         }
         var pyramidA = new List<GrayImage> { na };
         var pyramidB = new List<GrayImage> { nb };
@@ -420,83 +390,13 @@ public static class GapFiller
         return (pyramidA, pyramidB);
     }
 
-    /// <summary>
-    /// Dense displacement field (u, v) in pixels with a(x, y) ≈ b(x + u, y + v), by the Horn–Schunck method
-    /// (Horn &amp; Schunck 1981, Artif. Intell. 17:185: brightness constancy plus a quadratic smoothness term, solved by
-    /// their Jacobi-type iteration), on a coarse-to-fine pyramid of 2× reductions with b warped by the current field
-    /// at each level so that displacements larger than a pixel are found. Intensities are scaled by the pair's
-    /// common spread first, so α does not depend on the units. Returns zero flow for flat images.
-    /// </summary>
-    public static (float[] U, float[] V) HornSchunck(GrayImage a, GrayImage b, FlowOptions options)
-    {
-        var (pyramidA, pyramidB) = Pyramids(a, b, options, presmooth: false);
-        float[] u = new float[pyramidA[^1].Pixels.Length], v = new float[u.Length];
-        for (int level = pyramidA.Count - 1; level >= 0; level--)
-        {
-            var la = pyramidA[level];
-            var lb = pyramidB[level];
-            if (level < pyramidA.Count - 1)
-                (u, v) = Upsample(u, v, pyramidA[level + 1].Width, pyramidA[level + 1].Height, la.Width, la.Height);
-            for (int warp = 0; warp < options.WarpsPerLevel; warp++)
-                Refine(la, lb, u, v, options);
-        }
-        return (u, v);
-    }
-
-    /// <summary>One linearisation: b warped by (u, v), then the Horn–Schunck iteration for the increment.</summary>
-    private static void Refine(GrayImage a, GrayImage b, float[] u, float[] v, FlowOptions options)
-    {
-        int w = a.Width, h = a.Height, n = w * h;
-        var warped = new float[n];
-        var ix = new float[n];
-        var iy = new float[n];
-        var it = new float[n];
-        for (int y = 0; y < h; y++)
-        for (int x = 0; x < w; x++)
-        {
-            int i = y * w + x;
-            warped[i] = b.SampleBilinear(x + u[i], y + v[i], a.Pixels[i]);
-        }
-        for (int y = 0; y < h; y++)
-        for (int x = 0; x < w; x++)
-        {
-            int i = y * w + x;
-            int xl = Math.Max(0, x - 1), xr = Math.Min(w - 1, x + 1), yu = Math.Max(0, y - 1), yd = Math.Min(h - 1, y + 1);
-            // Gradients averaged over both images (the usual symmetric estimate).
-            ix[i] = 0.25f * (a.Pixels[y * w + xr] - a.Pixels[y * w + xl] + warped[y * w + xr] - warped[y * w + xl]) / Math.Max(1, xr - xl) * 2;
-            iy[i] = 0.25f * (a.Pixels[yd * w + x] - a.Pixels[yu * w + x] + warped[yd * w + x] - warped[yu * w + x]) / Math.Max(1, yd - yu) * 2;
-            it[i] = warped[i] - a.Pixels[i];
-        }
-        var du = new float[n];
-        var dv = new float[n];
-        var nu = new float[n];
-        var nv = new float[n];
-        float alpha2 = (float)(options.Alpha * options.Alpha);
-        for (int iteration = 0; iteration < options.IterationsPerWarp; iteration++)
-        {
-            for (int y = 0; y < h; y++)
-            for (int x = 0; x < w; x++)
-            {
-                int i = y * w + x;
-                float mu = IncrementMean(du, u, w, h, x, y);
-                float mv = IncrementMean(dv, v, w, h, x, y);
-                float k = (ix[i] * mu + iy[i] * mv + it[i]) / (alpha2 + ix[i] * ix[i] + iy[i] * iy[i]);
-                nu[i] = mu - ix[i] * k;
-                nv[i] = mv - iy[i] * k;
-            }
-            (du, nu) = (nu, du);
-            (dv, nv) = (nv, dv);
-        }
-        for (int i = 0; i < n; i++) { u[i] += du[i]; v[i] += dv[i]; }
-    }
-
     /// <summary>(I − local mean) / √(local variance + c), Gaussian window of σ px; c keeps flat background near zero.</summary>
     private static GrayImage LocallyNormalized(GrayImage image, double sigma)
     {
-        var mean = Gaussian(image, sigma);
+        var mean = GaussianFilter.Blur(image, sigma);
         var sq = new GrayImage(image.Width, image.Height);
         for (int i = 0; i < sq.Pixels.Length; i++) { float d = image.Pixels[i] - mean.Pixels[i]; sq.Pixels[i] = d * d; }
-        var variance = Gaussian(sq, sigma);
+        var variance = GaussianFilter.Blur(sq, sigma);
         var result = new GrayImage(image.Width, image.Height);
         // Scaled units: spread ≈ 1, so c = 0.01 puts a floor of a tenth of the spread under the local deviation (flat
         // background stays near 0). The factor sets the contrast the smoothness weight α acts against: 0.36 with α 0.5

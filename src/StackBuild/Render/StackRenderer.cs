@@ -24,6 +24,4 @@ public static class StackRenderer
         Resampler.Warp(image, planeToImage, volume.Plane(placement.PlaneIndex), volume.Nx, volume.Ny, fill, interpolation);
     }
 
-    /// <summary>Fills a whole plane with one value (gaps, excluded sections).</summary>
-    public static void FillPlane(Volume volume, int k, float value) => volume.Plane(k).Fill(value);
 }

@@ -1,4 +1,5 @@
 using StackBuild.Geometry;
+using StackBuild.Numerics;
 using StackBuild.Register;
 
 namespace StackBuild.Solve;
@@ -234,7 +235,7 @@ public static class SmoothingSolver
         }
         var closure = triangles.Select(Closure).ToArray();
         var sorted = closure.OrderBy(v => v).ToArray();
-        double cutoff = Math.Max(options.MinCutoffPx, options.TukeyC * 1.4826 * sorted[sorted.Length / 2]);
+        double cutoff = Math.Max(options.MinCutoffPx, options.TukeyC * Quantiles.MadToSigma * sorted[sorted.Length / 2]);
         bool Bad(int t) => Closure(triangles[t]) > cutoff;
 
         var ofPair = new Dictionary<int, List<int>>();
@@ -321,11 +322,14 @@ public static class SmoothingSolver
     public static double SlowShareLimit(int triangles, SmoothingOptions options) =>
         triangles <= 0 ? double.PositiveInfinity : IndependentSlowShare + options.SlowClosureMargin / Math.Sqrt(triangles);
 
-    /// <summary>1.4826 × median residual of the pairs in use (a consistent estimate of σ for Gaussian residuals).</summary>
+    /// <summary>
+    /// <see cref="Quantiles.MadToSigma"/> × the median residual of the pairs in use (a consistent estimate of σ for Gaussian
+    /// residuals); the median here is the upper middle value, not interpolated.
+    /// </summary>
     private static double RobustScale(double[] residual, List<PairObservation> usable, double minConfidence)
     {
         var r = residual.Where((_, k) => usable[k].Result.Confidence >= minConfidence).OrderBy(v => v).ToArray();
-        return r.Length == 0 ? 0 : 1.4826 * r[r.Length / 2];
+        return r.Length == 0 ? 0 : Quantiles.MadToSigma * r[r.Length / 2];
     }
 
     /// <summary>Jacobian row of a reference-frame point q of section i with respect to (θᵢ, txᵢ, tyᵢ).</summary>

@@ -1,7 +1,7 @@
 using System.Runtime.InteropServices;
 using MathNet.Numerics;
 
-namespace StackBuild.Register;
+namespace StackBuild.Numerics;
 
 /// <summary>
 /// A row-major buffer of single-precision complex values (width × height), in native memory aligned to 64

@@ -1,7 +1,7 @@
 using System.Runtime.InteropServices;
 using MathNet.Numerics;
 
-namespace StackBuild.Register;
+namespace StackBuild.Numerics;
 
 /// <summary>
 /// FFTW 3 single precision (Debian libfftw3-single3) through P/Invoke. One forward and one inverse plan per

@@ -1,7 +1,7 @@
 using StackBuild.Geometry;
 using StackBuild.Imaging;
 
-namespace StackBuild.Register;
+namespace StackBuild.Imaging;
 
 /// <summary>Small image operations the registration needs; plain arrays in, plain arrays out.</summary>
 internal static class ImageOps
@@ -56,36 +56,6 @@ internal static class ImageOps
             }
             // The last output pixel may hang over the input's edge: average what it does cover.
             result[i] = total > 0 ? list.Select(p => (p.Item1, p.Item2 / total)).ToArray() : [(inLength - 1, 1.0)];
-        }
-        return result;
-    }
-
-    /// <summary>Separable Gaussian blur with edge values repeated beyond the border.</summary>
-    public static float[] GaussianBlur(ReadOnlySpan<float> pixels, int width, int height, double sigma)
-    {
-        int radius = Math.Max(1, (int)Math.Ceiling(3 * sigma));
-        var kernel = new float[2 * radius + 1];
-        double sum = 0;
-        for (int i = -radius; i <= radius; i++) sum += kernel[i + radius] = (float)Math.Exp(-0.5 * i * i / (sigma * sigma));
-        for (int i = 0; i < kernel.Length; i++) kernel[i] /= (float)sum;
-        var temp = new float[width * height];
-        var result = new float[width * height];
-        for (int y = 0; y < height; y++)
-        {
-            var src = pixels.Slice(y * width, width);
-            for (int x = 0; x < width; x++)
-            {
-                float s = 0;
-                for (int k = -radius; k <= radius; k++) s += kernel[k + radius] * src[Math.Clamp(x + k, 0, width - 1)];
-                temp[y * width + x] = s;
-            }
-        }
-        for (int y = 0; y < height; y++)
-        for (int x = 0; x < width; x++)
-        {
-            float s = 0;
-            for (int k = -radius; k <= radius; k++) s += kernel[k + radius] * temp[Math.Clamp(y + k, 0, height - 1) * width + x];
-            result[y * width + x] = s;
         }
         return result;
     }

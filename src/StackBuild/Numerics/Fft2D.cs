@@ -1,7 +1,7 @@
 using MathNet.Numerics;
 using MathNet.Numerics.IntegralTransforms;
 
-namespace StackBuild.Register;
+namespace StackBuild.Numerics;
 
 /// <summary>
 /// A 2D discrete Fourier transform of one fixed size, in place on a <see cref="ComplexImage"/>.
