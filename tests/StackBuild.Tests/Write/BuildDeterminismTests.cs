@@ -10,7 +10,8 @@ namespace StackBuild.Tests;
 
 /// <summary>
 /// The same inputs and options give the same volume and sidecar, byte for byte, apart from the sidecar's one run
-/// field (<c>created</c>); and a build on images already in memory is the build on their files.
+/// field (<c>created</c>); and a build on images already in memory is the build on their files. Both builds run in one
+/// process, so they share FFTW's plans; docs/architecture.md says what differs when the plans do.
 /// </summary>
 public sealed class BuildDeterminismTests
 {
