@@ -75,12 +75,9 @@ public static class GapFiller
     {
         /// <summary>
         /// Smoothness weight α, for intensities scaled to unit robust spread (p95 − p5 of the pair) and then locally
-        /// normalised (<see cref="LocalNormalizeSigma"/>). Chosen on the measurements of GapFillTests (2026-12-02). Without
-        /// normalisation (bilinear blend), 0.5 and 0.7 filled best, 0.25 was 3–5 % worse, 0.15 and 0.08 worse than linear
-        /// blending. With it, what counts is α over the contrast factor of the normalisation (scaling the data by s is the
-        /// same as dividing α by s for the quadratic terms): at factor 0.5, α = 0.65 / 0.7 / 0.8 gave 20.0 / 20.3 / 20.7 %
-        /// below linear on single MRI planes, but 0.8 left the known-shift field of GapFillTests 0.34 px short of 2 px
-        /// (0.7: 0.23 px); α 0.5 at factor 0.36 is the α ≈ 0.7 choice.
+        /// normalised (<see cref="LocalNormalizeSigma"/>). What counts is α over the normalisation's contrast factor (0.36):
+        /// scaling the data by s is the same as dividing α by s for the quadratic terms. Chosen on GapFillTests; the
+        /// measurements are in docs/gap-fill.md.
         /// </summary>
         public double Alpha { get; init; } = 0.5;
         public int IterationsPerWarp { get; init; } = 40;
@@ -90,54 +87,44 @@ public static class GapFiller
         /// <summary>
         /// ε of the robust (Charbonnier) data penalty √(r² + ε²) of <see cref="SymmetricFlow"/>, in the same scaled
         /// units; residuals much larger than ε (tissue that appears or ends between the sections) pull on the field
-        /// with weight ε/|r| instead of 1. 0 gives the quadratic data term of Horn–Schunck. Off by default: measured
-        /// with GapFillTests, ε = 0.02, 0.05 and 0.2 all filled slightly worse than the quadratic term (MRI runs of
-        /// three planes: 18–21.5 % below linear against 23 %).
+        /// with weight ε/|r| instead of 1. 0 gives the quadratic data term of Horn–Schunck. Off by default: it filled
+        /// slightly worse (docs/gap-fill.md).
         /// </summary>
         public double RobustEpsilon { get; init; }
         /// <summary>
         /// Side of the median filter applied to the field after each warp of <see cref="SymmetricFlow"/> (0 or 1: none).
-        /// Off by default: 3 and 5 made no measurable difference in GapFillTests and cost time.
+        /// Off by default: it made no measurable difference and cost time (docs/gap-fill.md).
         /// </summary>
         public int MedianSide { get; init; }
         /// <summary>
         /// σ in pixels of a Gaussian applied to both planes before the field is estimated (0: none); the blend uses the
-        /// unsmoothed planes. Off by default: σ = 1 filled MRI single planes worse (6.3 % against 8 % below linear).
+        /// unsmoothed planes. Off by default: it filled worse (docs/gap-fill.md).
         /// </summary>
         public double PreSmoothSigma { get; init; }
         /// <summary>
         /// σ in pixels of the local mean/variance normalisation of both planes before the field is estimated:
         /// (I − local mean) / √(local variance + c), Gaussian window (0: none); the blend uses the original planes. It
-        /// takes out slow differences of brightness and contrast between neighbouring sections. Measured with
-        /// GapFillTests (2026-12-02, bilinear blend, α 0.5, an earlier contrast factor 0.25): σ = 8 gave 10.1 / 21.9 /
-        /// 25.7 % below linear (MRI single planes, runs of 2, runs of 3) against 8.0 / 19.9 / 23.1 % without; 4 and 16
-        /// were in between. With the cubic blend: 18.7 / 24.3 / 25.2 % without it, 20.3 / 26.2 / 27.6 % with it (factor 0.5,
-        /// α 0.7, no confidence weighting).
+        /// takes out slow differences of brightness and contrast between neighbouring sections; 8 filled best of 4, 8 and
+        /// 16 (docs/gap-fill.md).
         /// </summary>
         public double LocalNormalizeSigma { get; init; } = 8;
         /// <summary>
         /// Warp the neighbours for the blend with Keys cubic convolution instead of bilinear sampling. Bilinear sampling
-        /// at sub-pixel positions is a low-pass filter and blurred the fill: measured with GapFillTests (2026-12-02, with
-        /// <see cref="LocalNormalizeSigma"/> 8, α 0.5, contrast factor 0.25) cubic gave 21.2 / 26.5 / 28.0 % below linear
-        /// on MRI against 10.1 / 21.9 / 25.7 % bilinear, but 7.0 % against 9.1 % on the demo truth volume, whose planes
-        /// differ by fine texture that bilinear sampling smoothed.
+        /// at sub-pixel positions is a low-pass filter and blurred the fill; cubic filled better on the public MRI planes,
+        /// slightly worse on the demo truth volume (docs/gap-fill.md).
         /// </summary>
         public bool CubicBlend { get; init; } = true;
         /// <summary>
         /// Weight γ of a gradient-constancy term γ Σ |∇b(x + (1 − t)d) − ∇a(x − t·d)|² added to the data term (Brox,
-        /// Bruhn, Papenberg &amp; Weickert 2004, ECCV; from memory), solved with the 2 × 2 system per pixel. Off by default,
-        /// measured with GapFillTests (2026-12-02; MRI single planes / runs of 2 / runs of 3, then demo truth, % below
-        /// linear): with the bilinear blend and no normalisation γ = 2 gave 10.2 / 21.3 / 25.0 / 8.9 against
-        /// 8.0 / 19.9 / 23.1 / 9.2, but with the cubic blend and local normalisation (factor 0.5, α 0.8)
-        /// 20.3 / 25.3 / 27.2 / 6.0 against 20.7 / 26.4 / 27.9 / 7.0 without.
+        /// Bruhn, Papenberg &amp; Weickert 2004, ECCV; from memory), solved with the 2 × 2 system per pixel. Off by default:
+        /// with the cubic blend and the local normalisation it filled worse (docs/gap-fill.md).
         /// </summary>
         public double GradientWeight { get; init; }
         /// <summary>
         /// σ (scaled units) of a per-pixel confidence 1 / (1 + r²/σ²) from the warping residual r = b(x + (1 − t)d) −
         /// a(x − t·d), Gaussian-smoothed over <see cref="ConfidenceWindow"/> px: where the warped neighbours disagree the
-        /// fill moves towards the linear blend (0: off). Measured with GapFillTests (2026-12-02, defaults otherwise):
-        /// σ 0.4, window 2 px gave 20.9 / 26.5 / 27.9 % below linear on MRI and 7.1 % on the demo truth volume, against
-        /// 20.3 / 26.2 / 27.6 % and 7.0 % without. A small gain; the fill stays on the flow where the neighbours agree.
+        /// fill moves towards the linear blend (0: off). A small gain; the fill stays on the flow where the neighbours
+        /// agree (docs/gap-fill.md).
         /// </summary>
         public double ConfidenceSigma { get; init; } = 0.4;
         /// <inheritdoc cref="ConfidenceSigma"/>
