@@ -65,7 +65,7 @@ public static class PrepareStage
                 throw new InputProblemException(entry.FilePath,
                     $"is only {image.Width}×{image.Height} pixels at the registration pixel size ({common:0.###} µm), too small to register",
                     "check this section's pixel size against the others, or leave it out with exclude=yes in the manifest");
-            var prepared = options.Align ? SectionRegistration.Prepare(image, options.Registration with { WorkSize = Math.Max(image.Width, image.Height) }) : null;
+            var prepared = options.Align ? SectionRegistration.PrepareUnreduced(image, options.Registration) : null;
             result[n] = new WorkingSection(entry, fullToWork, image, prepared);
         });
         return new PreparedSections(result, common);

@@ -69,7 +69,7 @@ public static class RenderStage
             var image = loaded.Image;
             float fill = (float)(image.BorderMedian() * maxValue);
             ScaleInPlace(image, (float)maxValue);
-            StackRenderer.RenderSection(volume, new PlacedSection(k, imageToPlane), image,
+            StackRenderer.RenderSection(volume, k, imageToPlane, image,
                 Resampler.FullToBlockReduced((int)loaded.Downsample), fill, options.Interpolation);
             rendered.Add(new RenderedSection(s, n, k, aligned ? SectionOutcome.Aligned : SectionOutcome.Placed, imageToPlane));
             progress?.Report($"rendering: section {s.Number} ({++count}/{sections.Count})");
