@@ -124,7 +124,7 @@ public static class BuildCommand
                     CentreMm = ParsePoint(parse.GetValue(centre)!, "--centre"),
                 },
             };
-            var result = BuildPipeline.Run(options, new SyncProgress(console));
+            var result = BuildReview.Review(BuildPipeline.Run(options, new SyncProgress(console)));
             console.EndProgress();
             BuildWriter.Write(result, paths);
             Report(console, result, paths, parse.GetValue(json), alignRequested: options.Align);
@@ -159,7 +159,7 @@ public static class BuildCommand
 
     private static void Report(CliOutput console, BuildResult result, BuildOutputPaths paths, bool json, bool alignRequested)
     {
-        var r = StackBuild.Evaluate.Uncertainty.Annotate(result.Record); // the estimates the sidecar carries, for the same flags
+        var r = result.Record; // reviewed: the estimates and flags the sidecar carries
         var counts = r.Sections.GroupBy(s => s.Status.Word()).ToDictionary(g => g.Key, g => g.Count());
         if (json)
         {

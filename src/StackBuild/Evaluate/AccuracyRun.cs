@@ -84,7 +84,7 @@ public static class AccuracyRun
             };
             var result = BuildPipeline.Run(options);
             double seconds = watch.Elapsed.TotalSeconds;
-            rows.Add(Row(c.Name, guided ? "template" : "plain", series, SectionFlags.Annotate(Uncertainty.Annotate(result.Record)), truth, seconds));
+            rows.Add(Row(c.Name, guided ? "template" : "plain", series, BuildReview.Review(result.Record), truth, seconds));
         }
         return rows;
     }

@@ -183,7 +183,7 @@ public sealed class ElastixHandOffTests(ITestOutputHelper output) : IDisposable
             Template = new TemplateOptions { Path = Path.Combine(RepositoryPaths.DemoSeries, "blockface.nii.gz") },
         });
         var volumePath = _temp.File("guided.nii.gz");
-        StackBuild.Write.BuildWriter.Write(build, StackBuild.Write.BuildOutputPaths.For(volumePath));
+        StackBuild.Write.BuildWriter.Write(StackBuild.Write.BuildReview.Review(build), StackBuild.Write.BuildOutputPaths.For(volumePath));
         var movingPath = _temp.File("guided-half.nii");
         NiftiFile.Write(movingPath, ElastixSupport.HalveInPlane(NiftiFile.Read(volumePath).ToVolume()));
         var found = ElastixSupport.RegisterRigid(fixedPath, movingPath, _temp.File("elastix-guided")).Transform.ToRas();

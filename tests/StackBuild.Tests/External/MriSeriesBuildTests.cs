@@ -50,7 +50,7 @@ public sealed class MriSeriesBuilds : IDisposable
             Template = new TemplateOptions { Path = TemplatePath, CutAxis = 'k', FirstPlane = (FirstTemplatePlane - 0.5) / 2 },
         });
         Seconds[3] = watch.Elapsed.TotalSeconds;
-        StackBuild.Write.BuildWriter.Write(Guided, StackBuild.Write.BuildOutputPaths.For(GuidedVolumePath));
+        StackBuild.Write.BuildWriter.Write(StackBuild.Write.BuildReview.Review(Guided), StackBuild.Write.BuildOutputPaths.For(GuidedVolumePath));
     }
 
     public void Dispose()

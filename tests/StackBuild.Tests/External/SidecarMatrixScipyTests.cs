@@ -27,7 +27,7 @@ public sealed class SidecarMatrixScipyTests : IDisposable
         // The demo series, aligned, at its own pixel size (20 µm), without gap filling.
         var result = BuildPipeline.Run(new BuildOptions { Input = RepositoryPaths.DemoSeries, Fill = GapFill.None });
         var paths = BuildOutputPaths.For(Path.Combine(_dir, "demo.nii.gz"));
-        BuildWriter.Write(result, paths);
+        BuildWriter.Write(BuildReview.Review(result), paths);
 
         var json = PythonTool.Run("scipy_sidecar_matrix.py", paths.Volume, paths.Sidecar, RepositoryPaths.DemoSeries, "12");
         var sections = JsonDocument.Parse(json).RootElement.EnumerateArray().ToList();

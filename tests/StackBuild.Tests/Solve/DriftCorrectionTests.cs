@@ -23,7 +23,7 @@ public sealed class DriftBuilds : IDisposable
     public DriftBuilds()
     {
         Guided = BuildPipeline.Run(new BuildOptions { Input = RepositoryPaths.DemoSeries, Template = new TemplateOptions { Path = TemplatePath } });
-        StackBuild.Write.BuildWriter.Write(Guided, StackBuild.Write.BuildOutputPaths.For(GuidedVolumePath));
+        StackBuild.Write.BuildWriter.Write(StackBuild.Write.BuildReview.Review(Guided), StackBuild.Write.BuildOutputPaths.For(GuidedVolumePath));
     }
 
     public void Dispose()

@@ -26,8 +26,8 @@ public sealed class BuildDeterminismTests
         var options = new BuildOptions { Input = RepositoryPaths.DemoSeries };
         var a = BuildPaths(first.Path);
         var b = BuildPaths(second.Path);
-        BuildWriter.Write(BuildPipeline.Run(options), a);
-        BuildWriter.Write(BuildPipeline.Run(options), b);
+        BuildWriter.Write(BuildReview.Review(BuildPipeline.Run(options)), a);
+        BuildWriter.Write(BuildReview.Review(BuildPipeline.Run(options)), b);
 
         Assert.Equal(Gunzip(a.Volume), Gunzip(b.Volume));
         string sidecarA = File.ReadAllText(a.Sidecar), sidecarB = File.ReadAllText(b.Sidecar);

@@ -35,7 +35,7 @@ public sealed class BuildReportFixture : IDisposable
         File.WriteAllLines(manifest, lines);
         Result = BuildPipeline.Run(new BuildOptions { Input = series });
         Paths = BuildOutputPaths.For(Path.Combine(Folder, "small.nii.gz"));
-        BuildWriter.Write(Result, Paths);
+        BuildWriter.Write(BuildReview.Review(Result), Paths);
         Sidecar = JsonSerializer.Deserialize<BuildRecord>(File.ReadAllText(Paths.Sidecar))!;
     }
 
