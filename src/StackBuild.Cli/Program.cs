@@ -1,5 +1,6 @@
 using System.CommandLine;
 using StackBuild.Cli.Commands;
+using StackBuild.Numerics;
 
 namespace StackBuild.Cli;
 
@@ -36,7 +37,7 @@ public static class Program
         public override int Invoke(ParseResult parseResult)
         {
             stdout.WriteLine($"stackbuild {StackBuild.Pipeline.BuildPipeline.Version}");
-            stdout.WriteLine($"FFT: {StackBuild.Register.Fft2D.ProviderName}");
+            stdout.WriteLine($"FFT: {StackBuild.Numerics.Fft2D.ProviderName}");
             stdout.WriteLine("Research software; not for clinical use.");
             return 0;
         }

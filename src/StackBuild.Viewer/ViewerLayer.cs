@@ -1,3 +1,4 @@
+using StackBuild.Pipeline;
 using StackBuild.Imaging;
 using StackBuild.IO;
 using StackBuild.Reslice;
@@ -68,7 +69,7 @@ public sealed record ViewerSection(int PlaneIndex, int Number, string Status)
             double z = s.VolumeZ ?? s.ZIndex;
             int k = (int)Math.Round(z);
             if (Math.Abs(z - k) > 0.01 || k < 0 || k >= volume.Nz) continue;
-            planes.Add(new ViewerSection(k, s.Number, s.Filled is null ? s.Status : $"{s.Status}, filled"));
+            planes.Add(new ViewerSection(k, s.Number, s.Filled is null ? s.Status.Word() : $"{s.Status.Word()}, filled"));
         }
         return planes;
     }

@@ -4,6 +4,7 @@ using MathNet.Numerics;
 using StackBuild.Geometry;
 using StackBuild.Imaging;
 using StackBuild.Register;
+using StackBuild.Numerics;
 
 namespace StackBuild.Benchmarks;
 
@@ -169,7 +170,7 @@ public class BuildBenchmarks
     [Benchmark]
     public object SmoothingBuild() => StackBuild.Pipeline.BuildPipeline.Run(new StackBuild.Pipeline.BuildOptions
     {
-        Input = _series, Smoothing = new StackBuild.Solve.SmoothingOptions { Strength = 0 },
+        Input = _series, Solver = StackBuild.Solve.PlacementSolver.Smoothing, Smoothing = new StackBuild.Solve.SmoothingOptions { Strength = 0 },
     });
 
     [Benchmark]

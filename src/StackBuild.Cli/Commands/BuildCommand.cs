@@ -1,3 +1,4 @@
+using System.Globalization;
 using System.CommandLine;
 using System.Text.Json;
 using StackBuild.Frame;
@@ -27,7 +28,7 @@ public static class BuildCommand
         var voxelSize = new Option<double?>("--voxel-size") { Description = "Voxel size of the volume in µm: the plane spacing (planes between sections interpolated like the gaps) and, unless --output-pixel-size is given, the in-plane size" };
         var channel = new Option<string>("--channel") { Description = "How colour images become gray: luminance, red, green or blue", DefaultValueFactory = _ => "luminance" };
         var interpolation = new Option<string>("--interpolation") { Description = "Resampling: bilinear or bicubic", DefaultValueFactory = _ => "bilinear" };
-        var smoothing = new Option<double>("--smoothing") { Description = "Solve all placements at once from every first- and second-neighbour pair, with outliers set aside: the smoothness strength (0 = pairs only; negative, the default, = plain neighbour chain). It does not remove slow drift (--template does); where pairs two sections apart disagree systematically it stays close to the plain chain", DefaultValueFactory = _ => new SmoothingOptions().Strength };
+        var smoothing = new Option<double?>("--smoothing") { Description = "Solve all placements at once from every first- and second-neighbour pair, with outliers set aside, instead of the plain neighbour chain (the default): the smoothness strength (0 = pairs only; a negative value keeps the plain chain). It does not remove slow drift (--template does); where pairs two sections apart disagree systematically it stays close to the plain chain" };
         var fill = new Option<string>("--fill") { Description = "Fill gap, excluded and failed planes of an aligned build from their neighbours: flow (optical-flow interpolation), linear or none", DefaultValueFactory = _ => "flow" };
         var reference = new Option<int?>("--reference") { Description = "Section number whose frame, as it lay on its slide, the volume takes (default: the confident section nearest the middle of the stack)" };
         var rotate = new Option<double>("--rotate") { Description = "Turn the whole volume in the section plane by this many degrees, clockwise as displayed", DefaultValueFactory = _ => 0 };
@@ -82,6 +83,7 @@ public static class BuildCommand
             var paths = BuildOutputPaths.For(parse.GetValue(output)!);
             paths.CheckWritable();
             if (parse.GetValue(template) is { } templateToCheck) CheckTemplateHeader(console, templateToCheck);
+            double? smoothingStrength = FiniteOrNull(parse.GetValue(smoothing), "--smoothing");
             var options = new BuildOptions
             {
                 Input = parse.GetValue(series)!,
@@ -99,7 +101,9 @@ public static class BuildCommand
                 Align = !parse.GetValue(noAlign),
                 Registration = new RegistrationOptions { WorkSize = WorkSize(parse.GetValue(workSize)) },
                 Chain = new ChainOptions { MinConfidence = Fraction(parse.GetValue(minConfidence), "--min-confidence") },
-                Smoothing = new SmoothingOptions { Strength = Finite(parse.GetValue(smoothing), "--smoothing") },
+                // A negative strength keeps the plain chain (how the chain was chosen before it was a solver of its own).
+                Solver = smoothingStrength is >= 0 ? PlacementSolver.Smoothing : PlacementSolver.Chain,
+                Smoothing = new SmoothingOptions { Strength = smoothingStrength is double strength && strength >= 0 ? strength : 0 },
                 Fill = ParseFill(parse.GetValue(fill)!),
                 Template = parse.GetValue(template) is { } templatePath ? new TemplateOptions
                 {
@@ -120,7 +124,7 @@ public static class BuildCommand
                     CentreMm = ParsePoint(parse.GetValue(centre)!, "--centre"),
                 },
             };
-            var result = BuildPipeline.Run(options, new SyncProgress(console));
+            var result = BuildReview.Review(BuildPipeline.Run(options, new SyncProgress(console)));
             console.EndProgress();
             BuildWriter.Write(result, paths);
             Report(console, result, paths, parse.GetValue(json), alignRequested: options.Align);
@@ -155,8 +159,8 @@ public static class BuildCommand
 
     private static void Report(CliOutput console, BuildResult result, BuildOutputPaths paths, bool json, bool alignRequested)
     {
-        var r = StackBuild.Evaluate.Uncertainty.Annotate(result.Record); // the estimates the sidecar carries, for the same flags
-        var counts = r.Sections.GroupBy(s => s.Status).ToDictionary(g => g.Key, g => g.Count());
+        var r = result.Record; // reviewed: the estimates and flags the sidecar carries
+        var counts = r.Sections.GroupBy(s => s.Status.Word()).ToDictionary(g => g.Key, g => g.Count());
         if (json)
         {
             console.Out.WriteLine(JsonSerializer.Serialize(new
@@ -180,8 +184,8 @@ public static class BuildCommand
         o.WriteLine($"Report   {paths.Report}");
         o.WriteLine($"Grid     {r.Dimensions[0]} × {r.Dimensions[1]} × {r.Dimensions[2]} voxels of {r.VoxelSizeMm[0] * 1000:0.###} × {r.VoxelSizeMm[1] * 1000:0.###} × {r.VoxelSizeMm[2] * 1000:0.###} µm, axes {r.AxisCodes}");
         if (r.Frame is { } f) o.WriteLine($"Frame    {f.Describe()}");
-        if (r.Parameters.TryGetValue("second_neighbour_weight", out var longWeight) && r.Parameters.TryGetValue("route_closure_slow_share", out var share))
-            o.WriteLine($"Solve    all pairs at once (--smoothing {r.Parameters["smoothing"]}). " + (longWeight == "1"
+        if (r.Parameters is { SmoothingStrength: double strength, RouteClosure: { } closure })
+            o.WriteLine($"Solve    all pairs at once (--smoothing {strength.ToString("R", CultureInfo.InvariantCulture)}). " + (closure.SecondNeighbourWeight == 1
                 ? "Section-to-section jitter is evened out; slow drift is not removed without a reference (--template removes it)."
                 : "Drift is not reduced, and on this series the result is close to the default build: pairs two sections apart disagree with the nearest ones the same way over stretches of the stack, so they were given little weight. --template removes drift."));
         int filled = r.Sections.Count(s => s.Filled is not null);
@@ -189,7 +193,7 @@ public static class BuildCommand
             (filled > 0 ? $"; {filled} empty {(filled == 1 ? "plane" : "planes")} filled from their neighbours" : ""));
         // The same sections the report flags (failed ones are in the warnings below).
         var all = SectionFlags.For(r);
-        var flagged = r.Sections.Where(s => s.Status != "failed").Select(s => (s.Number, Reasons: all[s.Number])).Where(t => t.Reasons.Count > 0).ToList();
+        var flagged = r.Sections.Where(s => s.Status != SectionOutcome.Failed).Select(s => (s.Number, Reasons: all[s.Number])).Where(t => t.Reasons.Count > 0).ToList();
         // Sections flagged for nothing but an estimated error above 2 voxels are, in a build without a template, the chain's
         // slow drift: one line for all of them, so the sections with a trouble of their own stand out.
         var specific = flagged.Where(t => !SectionFlags.EstimateOnly(t.Reasons)).ToList();

@@ -36,8 +36,6 @@ internal sealed class DemoRandom
     /// <summary>Uniform integer in [0, n).</summary>
     public int NextInt(int n) => (int)(NextDouble() * n);
 
-    public bool Chance(double p) => NextDouble() < p;
-
     /// <summary>Standard normal deviate (Box–Muller; the second value of each pair is kept for the next call).</summary>
     public double NextGaussian()
     {

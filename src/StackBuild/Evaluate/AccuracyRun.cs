@@ -84,7 +84,7 @@ public static class AccuracyRun
             };
             var result = BuildPipeline.Run(options);
             double seconds = watch.Elapsed.TotalSeconds;
-            rows.Add(Row(c.Name, withTemplate ? "template" : "plain", series, SectionFlags.Annotate(Uncertainty.Annotate(result.Record)), truth, seconds));
+            rows.Add(Row(c.Name, withTemplate ? "template" : "plain", series, BuildReview.Review(result.Record), truth, seconds));
         }
         return rows;
     }
@@ -93,7 +93,7 @@ public static class AccuracyRun
     {
         var e = TruthEvaluation.Evaluate(record, truth);
         int present = series.Sections.Count(s => !s.Lost);
-        int placed = record.Sections.Count(s => s.Status is "aligned" or "placed");
+        int placed = record.Sections.Count(s => s.Status is SectionOutcome.Aligned or SectionOutcome.Placed);
         var flagged = record.Sections.Where(s => s.Flags is { Count: > 0 }).Select(s => s.Number).ToHashSet();
         var off = e.Sections.Where(s => s.ErrorPx > FlagLimitPx || s.MirrorWrong).ToList();
         var unflagged = off.Where(s => !flagged.Contains(s.Number)).Select(s => s.Number).ToList();

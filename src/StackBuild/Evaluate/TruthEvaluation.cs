@@ -80,11 +80,11 @@ public static class TruthEvaluation
     public static EvaluationResult Evaluate(BuildRecord build, SeriesTruth truth)
     {
         var placed = build.Sections
-            .Where(s => s.Status is "aligned" or "placed" && s.Matrix is not null && truth.Sections.ContainsKey(s.Number))
+            .Where(s => s.Status is SectionOutcome.Aligned or SectionOutcome.Placed && s.Matrix is not null && truth.Sections.ContainsKey(s.Number))
             .OrderBy(s => s.Number)
             .Select(s => (Record: s, Map: truth.Sections[s.Number].PlaneToImage.Then(Transform2D.FromRows(s.Matrix!))))
             .ToList();
-        int missing = build.Sections.Count(s => s.Status is "aligned" or "placed" && !truth.Sections.ContainsKey(s.Number));
+        int missing = build.Sections.Count(s => s.Status is SectionOutcome.Aligned or SectionOutcome.Placed && !truth.Sections.ContainsKey(s.Number));
         if (placed.Count == 0)
             throw new InputProblemException(null, "no placed section of the build has a truth entry", "check that the sidecar and the truth file describe the same series");
 
@@ -123,13 +123,13 @@ public static class TruthEvaluation
         {
             var (record, map) = placed[n];
             double err = MeanDistance(points, map, common);
-            double rot = Wrap(map.RotationDegrees - common.RotationDegrees);
+            double rot = Angles.Wrap(map.RotationDegrees - common.RotationDegrees);
             double? pairErr = null, pairRot = null;
             if (n > 0)
             {
                 var prev = placed[n - 1].Map;
                 pairErr = MeanDistance(points, map, prev);
-                pairRot = map.IsMirrored == prev.IsMirrored ? Math.Abs(Wrap(map.RotationDegrees - prev.RotationDegrees)) : 180;
+                pairRot = map.IsMirrored == prev.IsMirrored ? Math.Abs(Angles.Wrap(map.RotationDegrees - prev.RotationDegrees)) : 180;
             }
             errors.Add(new SectionError(record.Number, err, err * outUm, Math.Abs(rot), map.IsMirrored != common.IsMirrored,
                 pairErr, pairRot, Math.Sqrt(drift[n].X * drift[n].X + drift[n].Y * drift[n].Y), record.Confidence));
@@ -141,14 +141,6 @@ public static class TruthEvaluation
             Summarise(pairs.Select(e => e.PairErrorPx!.Value)), Summarise(pairs.Select(e => e.PairRotationDegrees!.Value)),
             errors.Count(e => e.MirrorWrong), errors.Max(e => e.DriftPx), Math.Sqrt(errors.Average(e => e.DriftPx * e.DriftPx)),
             outUm, errors.Count, missing);
-    }
-
-    private static double Wrap(double degrees)
-    {
-        degrees %= 360;
-        if (degrees > 180) degrees -= 360;
-        if (degrees <= -180) degrees += 360;
-        return degrees;
     }
 
     /// <summary>A 5 × 5 grid over the middle 80 % of the plane (where tissue lies).</summary>

@@ -1,5 +1,6 @@
 using System.Globalization;
 using StackBuild.Pipeline;
+using StackBuild.Solve;
 
 namespace StackBuild.Evaluate;
 
@@ -44,7 +45,7 @@ public static class Uncertainty
         double extentUm = record.Dimensions.Length >= 2 && record.VoxelSizeMm.Length >= 2
             ? Math.Max(record.Dimensions[0] * record.VoxelSizeMm[0], record.Dimensions[1] * record.VoxelSizeMm[1]) * 1000
             : 0;
-        var placed = record.Sections.Where(s => s.Status is "aligned" or "placed").ToDictionary(s => s.Number);
+        var placed = record.Sections.Where(s => s.Status is SectionOutcome.Aligned or SectionOutcome.Placed).ToDictionary(s => s.Number);
         var link = placed.Values.ToDictionary(s => s.Number, s => LinkError(s, pixelUm, extentUm));
         var result = new Dictionary<int, SectionUncertainty>();
         // The slow drift of a chain with no template, by stack position among the placed sections (see DriftError).
@@ -139,7 +140,7 @@ public static class Uncertainty
     /// <summary>The standard error (µm) of one link; 0 for the reference and for unaligned placement.</summary>
     public static double LinkError(SectionRecord section, double pixelUm, double extentUm)
     {
-        if (section.Route is "reference" || section.Confidence is null) return 0;
+        if (section.Route is LinkRoute.Reference || section.Confidence is null) return 0;
         double psr = Math.Max(1, section.PeakToSidelobe ?? 1);
         double peak = pixelUm / Math.Sqrt(psr);
         double route = (section.RouteDisagreementUm ?? 0) / Math.Sqrt(2);
@@ -150,8 +151,7 @@ public static class Uncertainty
     /// <summary>The pixel size (µm) at which sections were registered, from the run parameters, else the output voxel size.</summary>
     public static double RegistrationPixelUm(BuildRecord record)
     {
-        if (record.Parameters.TryGetValue("registration_pixel_size_um", out var text)
-            && double.TryParse(text, NumberStyles.Float, CultureInfo.InvariantCulture, out var um) && um > 0)
+        if (record.Parameters.RegistrationPixelSizeUm is var um && um > 0)
             return um;
         return record.VoxelSizeMm.Length > 0 ? record.VoxelSizeMm[0] * 1000 : record.InputPixelSizeUm;
     }

@@ -2,6 +2,7 @@ using MathNet.Numerics;
 using StackBuild.Geometry;
 using StackBuild.Imaging;
 using StackBuild.Register;
+using StackBuild.Numerics;
 
 namespace StackBuild.Frame;
 
@@ -65,7 +66,7 @@ internal sealed class MirrorStack : IDisposable
             float background = small.BorderMedian(Math.Max(1, (int)(0.02 * Math.Min(w, h))));
             if (highPass > 0)
             {
-                var low = ImageOps.GaussianBlur(small.Pixels, w, h, highPass * Math.Max(w, h));
+                var low = GaussianFilter.BlurSingle(small.Pixels, w, h, highPass * Math.Max(w, h));
                 var p = small.Pixels;
                 small = new GrayImage(w, h, p.Select((v, i) => v - low[i] + background).ToArray());
             }

@@ -16,6 +16,49 @@ public static class GaussianFilter
     /// <summary>The kernel radius SciPy's <c>ndimage.gaussian_filter</c> uses: ⌊truncate·σ + 0.5⌋ (truncate 4 by default).</summary>
     public static int ScipyRadius(double sigma, double truncate = 4) => (int)(truncate * sigma + 0.5);
 
+    /// <summary>Smooths with a Gaussian of σ = <paramref name="sigma"/> px on both axes, the kernel cut at 3σ (at least one pixel).</summary>
+    public static GrayImage Blur(GrayImage image, double sigma)
+    {
+        var kernel = Kernel(sigma, Radius(sigma));
+        return Blur(image, kernel, kernel);
+    }
+
+    /// <summary>The kernel radius the project's own blurs use: ⌈3σ⌉, at least 1.</summary>
+    public static int Radius(double sigma) => Math.Max(1, (int)Math.Ceiling(3 * sigma));
+
+    /// <summary>
+    /// As <see cref="Blur(GrayImage, double)"/> on a plain array, in single precision throughout (kernel and sums): the
+    /// registration's tissue masks and the midline's high-pass were measured with this arithmetic, so it is kept as it is.
+    /// </summary>
+    public static float[] BlurSingle(ReadOnlySpan<float> pixels, int width, int height, double sigma)
+    {
+        int radius = Radius(sigma);
+        var kernel = new float[2 * radius + 1];
+        double sum = 0;
+        for (int i = -radius; i <= radius; i++) sum += kernel[i + radius] = (float)Math.Exp(-0.5 * i * i / (sigma * sigma));
+        for (int i = 0; i < kernel.Length; i++) kernel[i] /= (float)sum;
+        var temp = new float[width * height];
+        var result = new float[width * height];
+        for (int y = 0; y < height; y++)
+        {
+            var src = pixels.Slice(y * width, width);
+            for (int x = 0; x < width; x++)
+            {
+                float s = 0;
+                for (int k = -radius; k <= radius; k++) s += kernel[k + radius] * src[Math.Clamp(x + k, 0, width - 1)];
+                temp[y * width + x] = s;
+            }
+        }
+        for (int y = 0; y < height; y++)
+        for (int x = 0; x < width; x++)
+        {
+            float s = 0;
+            for (int k = -radius; k <= radius; k++) s += kernel[k + radius] * temp[Math.Clamp(y + k, 0, height - 1) * width + x];
+            result[y * width + x] = s;
+        }
+        return result;
+    }
+
     /// <summary>Smooths along x with <paramref name="kernelX"/> and then along y with <paramref name="kernelY"/>; a null kernel leaves that axis alone.</summary>
     public static GrayImage Blur(GrayImage image, double[]? kernelX, double[]? kernelY)
     {

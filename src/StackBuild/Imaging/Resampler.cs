@@ -42,39 +42,12 @@ public static class Resampler
         return result;
     }
 
-    /// <summary>Catmull-Rom bicubic sample (Keys 1981, IEEE Trans. ASSP 29:1153, a = −0.5).</summary>
+    /// <summary>Bicubic sample (<see cref="CubicConvolution"/>); <paramref name="outside"/> beyond the image's pixel edges.</summary>
     public static float SampleBicubic(GrayImage image, double x, double y, float outside)
     {
         if (x < -0.5 || y < -0.5 || x > image.Width - 0.5 || y > image.Height - 0.5) return outside;
         int x0 = (int)Math.Floor(x), y0 = (int)Math.Floor(y);
-        double tx = x - x0, ty = y - y0;
-        Span<double> wx = stackalloc double[4];
-        Span<double> wy = stackalloc double[4];
-        Weights(tx, wx);
-        Weights(ty, wy);
-        double sum = 0;
-        for (int m = 0; m < 4; m++)
-        {
-            int yy = Math.Clamp(y0 - 1 + m, 0, image.Height - 1);
-            double rowSum = 0;
-            for (int n = 0; n < 4; n++)
-            {
-                int xx = Math.Clamp(x0 - 1 + n, 0, image.Width - 1);
-                rowSum += wx[n] * image.Pixels[yy * image.Width + xx];
-            }
-            sum += wy[m] * rowSum;
-        }
-        return (float)sum;
-    }
-
-    private static void Weights(double t, Span<double> w)
-    {
-        const double a = -0.5;
-        double t2 = t * t, t3 = t2 * t;
-        w[0] = a * (t3 - 2 * t2 + t);
-        w[1] = (a + 2) * t3 - (a + 3) * t2 + 1;
-        w[2] = -(a + 2) * t3 + (2 * a + 3) * t2 - a * t;
-        w[3] = -a * (t3 - t2);
+        return CubicConvolution.Sample(image, x0, y0, x - x0, y - y0);
     }
 
     /// <summary>

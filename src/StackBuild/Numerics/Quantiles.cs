@@ -24,4 +24,13 @@ public static class Quantiles
 
     /// <summary>The median (the mean of the two middle values for an even count).</summary>
     public static double Median(IEnumerable<double> values) => Of(values, 0.5);
+
+    /// <summary>
+    /// Scales a median absolute deviation to the standard deviation of normally distributed values (1.4826 ≈ 1/Φ⁻¹(3/4);
+    /// common practice, e.g. Rousseeuw &amp; Croux 1993, J. Am. Stat. Assoc. 88:1273).
+    /// </summary>
+    public const double MadToSigma = 1.4826;
+
+    /// <summary>Robust standard deviation: <see cref="MadToSigma"/> × the <see cref="Median"/> of deviations that are already absolute. NaN for none.</summary>
+    public static double RobustSigma(IEnumerable<double> absoluteDeviations) => MadToSigma * Median(absoluteDeviations);
 }

@@ -1,6 +1,22 @@
 using System.Text.Json.Serialization;
+using StackBuild.Solve;
 
 namespace StackBuild.Pipeline;
+
+/// <summary>What became of a section in the volume (the sidecar's <c>status</c>).</summary>
+public enum SectionOutcome
+{
+    /// <summary>Rendered as scanned, centred, not aligned (<c>placed</c>).</summary>
+    Placed,
+    /// <summary>Rendered where the alignment put it (<c>aligned</c>).</summary>
+    Aligned,
+    /// <summary>No image: a lost section (<c>gap</c>).</summary>
+    Gap,
+    /// <summary>Left out by the manifest (<c>excluded</c>).</summary>
+    Excluded,
+    /// <summary>No confident match with a neighbour: its plane holds no image of its own (<c>failed</c>).</summary>
+    Failed,
+}
 
 /// <summary>What happened to one section, as written to the sidecar.</summary>
 /// <remarks>
@@ -13,7 +29,7 @@ public sealed record SectionRecord
     [JsonPropertyName("number")] public int Number { get; init; }
     [JsonPropertyName("file")] public string? File { get; init; }
     /// <summary>placed (unaligned), aligned, gap, excluded or failed.</summary>
-    [JsonPropertyName("status")] public string Status { get; init; } = "";
+    [JsonPropertyName("status"), JsonConverter(typeof(SidecarWords.StatusConverter))] public SectionOutcome Status { get; init; }
     [JsonPropertyName("mirrored")] public bool? Mirrored { get; init; }
     [JsonPropertyName("rotation_deg")] public double? RotationDegrees { get; init; }
     [JsonPropertyName("shift_px")] public double[]? ShiftPx { get; init; }
@@ -24,7 +40,7 @@ public sealed record SectionRecord
     /// <summary>The section it was registered to; <see cref="Route"/> says which neighbour that was.</summary>
     [JsonPropertyName("registered_to")] public int? RegisteredTo { get; init; }
     /// <summary>reference, neighbour, second-neighbour, distant, failed, template (no confident neighbour match; placed by its own template match), or part-reference (see <see cref="Part"/>).</summary>
-    [JsonPropertyName("route")] public string? Route { get; init; }
+    [JsonPropertyName("route"), JsonConverter(typeof(SidecarWords.RouteConverter))] public LinkRoute? Route { get; init; }
     /// <summary>
     /// Set when nothing linked the section's stretch of the stack to the reference: the number of that part (1, 2, …), whose own
     /// reference has route part-reference. Without a template, where the part lies relative to the rest is unknown.
@@ -103,7 +119,7 @@ public sealed record BuildRecord
     [JsonPropertyName("reference_section")] public int ReferenceSection { get; init; }
     /// <summary>Which way the volume faces and how its grid was cut.</summary>
     [JsonPropertyName("frame")] public FrameRecord? Frame { get; init; }
-    [JsonPropertyName("parameters")] public Dictionary<string, string> Parameters { get; init; } = [];
+    [JsonPropertyName("parameters")] public RunParameters Parameters { get; init; } = new();
     [JsonPropertyName("warnings")] public List<string> Warnings { get; init; } = [];
     [JsonPropertyName("sections")] public List<SectionRecord> Sections { get; init; } = [];
 }

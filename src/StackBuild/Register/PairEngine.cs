@@ -1,4 +1,6 @@
 using StackBuild.Geometry;
+using StackBuild.Imaging;
+using StackBuild.Numerics;
 
 namespace StackBuild.Register;
 

@@ -1,5 +1,6 @@
 using MathNet.Numerics;
 using StackBuild.Imaging;
+using StackBuild.Numerics;
 
 namespace StackBuild.Register;
 

@@ -1,6 +1,7 @@
 using MathNet.Numerics;
 using StackBuild.Geometry;
 using StackBuild.Imaging;
+using StackBuild.Numerics;
 
 namespace StackBuild.Register;
 

@@ -86,7 +86,7 @@ public static class Preprocessing
     /// </summary>
     public static bool[] TissueMask(ReadOnlySpan<float> pixels, int width, int height, double sigma = 2)
     {
-        var smooth = ImageOps.GaussianBlur(pixels, width, height, sigma);
+        var smooth = GaussianFilter.BlurSingle(pixels, width, height, sigma);
         float t = ImageOps.OtsuThreshold(smooth);
         var mask = new bool[smooth.Length];
         for (int i = 0; i < mask.Length; i++) mask[i] = smooth[i] > t;
@@ -102,6 +102,6 @@ public static class Preprocessing
     {
         var f = new float[mask.Length];
         for (int i = 0; i < f.Length; i++) f[i] = mask[i] ? 1f : 0f;
-        return ImageOps.GaussianBlur(f, width, height, 3);
+        return GaussianFilter.BlurSingle(f, width, height, 3);
     }
 }

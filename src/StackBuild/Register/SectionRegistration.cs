@@ -94,10 +94,21 @@ public static class SectionRegistration
     private const double CoarseUpsample = 1; // whole pixels suffice to rank hypotheses; the best two are refined
     private const double DistinctDegrees = 10;
 
-    /// <summary>Preprocessing done once per section; the result is reused for every pair it is part of.</summary>
-    public static PreparedSection Prepare(GrayImage fullResolution, RegistrationOptions options)
+    /// <summary>
+    /// Preprocessing done once per section; the result is reused for every pair it is part of. The image is reduced
+    /// to <see cref="RegistrationOptions.WorkSize"/> on its long side first.
+    /// </summary>
+    public static PreparedSection Prepare(GrayImage fullResolution, RegistrationOptions options) =>
+        Prepare(fullResolution, Preprocessing.WorkScale(fullResolution.Width, fullResolution.Height, options.WorkSize).Scale, options);
+
+    /// <summary>
+    /// As <see cref="Prepare(GrayImage, RegistrationOptions)"/> for an image already at its registration pixel size (a
+    /// build brings every section to one such size first): it is not reduced, whatever the work size.
+    /// </summary>
+    public static PreparedSection PrepareUnreduced(GrayImage workImage, RegistrationOptions options) => Prepare(workImage, 1.0, options);
+
+    private static PreparedSection Prepare(GrayImage fullResolution, double scale, RegistrationOptions options)
     {
-        var (scale, _) = Preprocessing.WorkScale(fullResolution.Width, fullResolution.Height, options.WorkSize);
         var work = Preprocessing.Reduce(fullResolution, scale);
         bool invert = options.Polarity switch
         {

@@ -59,7 +59,7 @@ public static class GapFiller
         if (options.ConfidenceSigma > 0)
         {
             double spread = Spread(a.Pixels, b.Pixels);
-            if (options.ConfidenceWindow > 0) residual = Gaussian(residual, options.ConfidenceWindow);
+            if (options.ConfidenceWindow > 0) residual = GaussianFilter.Blur(residual, options.ConfidenceWindow);
             double s2 = options.ConfidenceSigma * options.ConfidenceSigma * spread * spread;
             for (int i = 0; i < result.Length; i++)
             {
@@ -75,12 +75,9 @@ public static class GapFiller
     {
         /// <summary>
         /// Smoothness weight α, for intensities scaled to unit robust spread (p95 − p5 of the pair) and then locally
-        /// normalised (<see cref="LocalNormalizeSigma"/>). Chosen on the measurements of GapFillTests (2026-12-02). Without
-        /// normalisation (bilinear blend), 0.5 and 0.7 filled best, 0.25 was 3–5 % worse, 0.15 and 0.08 worse than linear
-        /// blending. With it, what counts is α over the contrast factor of the normalisation (scaling the data by s is the
-        /// same as dividing α by s for the quadratic terms): at factor 0.5, α = 0.65 / 0.7 / 0.8 gave 20.0 / 20.3 / 20.7 %
-        /// below linear on single MRI planes, but 0.8 left the known-shift field of GapFillTests 0.34 px short of 2 px
-        /// (0.7: 0.23 px); α 0.5 at factor 0.36 is the α ≈ 0.7 choice, and keeps <see cref="HornSchunck"/> as it was.
+        /// normalised (<see cref="LocalNormalizeSigma"/>). What counts is α over the normalisation's contrast factor (0.36):
+        /// scaling the data by s is the same as dividing α by s for the quadratic terms. Chosen on GapFillTests; the
+        /// measurements are in docs/gap-fill.md.
         /// </summary>
         public double Alpha { get; init; } = 0.5;
         public int IterationsPerWarp { get; init; } = 40;
@@ -90,54 +87,44 @@ public static class GapFiller
         /// <summary>
         /// ε of the robust (Charbonnier) data penalty √(r² + ε²) of <see cref="SymmetricFlow"/>, in the same scaled
         /// units; residuals much larger than ε (tissue that appears or ends between the sections) pull on the field
-        /// with weight ε/|r| instead of 1. 0 gives the quadratic data term of Horn–Schunck. Off by default: measured
-        /// with GapFillTests, ε = 0.02, 0.05 and 0.2 all filled slightly worse than the quadratic term (MRI runs of
-        /// three planes: 18–21.5 % below linear against 23 %).
+        /// with weight ε/|r| instead of 1. 0 gives the quadratic data term of Horn–Schunck. Off by default: it filled
+        /// slightly worse (docs/gap-fill.md).
         /// </summary>
         public double RobustEpsilon { get; init; }
         /// <summary>
         /// Side of the median filter applied to the field after each warp of <see cref="SymmetricFlow"/> (0 or 1: none).
-        /// Off by default: 3 and 5 made no measurable difference in GapFillTests and cost time.
+        /// Off by default: it made no measurable difference and cost time (docs/gap-fill.md).
         /// </summary>
         public int MedianSide { get; init; }
         /// <summary>
         /// σ in pixels of a Gaussian applied to both planes before the field is estimated (0: none); the blend uses the
-        /// unsmoothed planes. Off by default: σ = 1 filled MRI single planes worse (6.3 % against 8 % below linear).
+        /// unsmoothed planes. Off by default: it filled worse (docs/gap-fill.md).
         /// </summary>
         public double PreSmoothSigma { get; init; }
         /// <summary>
         /// σ in pixels of the local mean/variance normalisation of both planes before the field is estimated:
         /// (I − local mean) / √(local variance + c), Gaussian window (0: none); the blend uses the original planes. It
-        /// takes out slow differences of brightness and contrast between neighbouring sections. Measured with
-        /// GapFillTests (2026-12-02, bilinear blend, α 0.5, an earlier contrast factor 0.25): σ = 8 gave 10.1 / 21.9 /
-        /// 25.7 % below linear (MRI single planes, runs of 2, runs of 3) against 8.0 / 19.9 / 23.1 % without; 4 and 16
-        /// were in between. With the cubic blend: 18.7 / 24.3 / 25.2 % without it, 20.3 / 26.2 / 27.6 % with it (factor 0.5,
-        /// α 0.7, no confidence weighting).
+        /// takes out slow differences of brightness and contrast between neighbouring sections; 8 filled best of 4, 8 and
+        /// 16 (docs/gap-fill.md).
         /// </summary>
         public double LocalNormalizeSigma { get; init; } = 8;
         /// <summary>
         /// Warp the neighbours for the blend with Keys cubic convolution instead of bilinear sampling. Bilinear sampling
-        /// at sub-pixel positions is a low-pass filter and blurred the fill: measured with GapFillTests (2026-12-02, with
-        /// <see cref="LocalNormalizeSigma"/> 8, α 0.5, contrast factor 0.25) cubic gave 21.2 / 26.5 / 28.0 % below linear
-        /// on MRI against 10.1 / 21.9 / 25.7 % bilinear, but 7.0 % against 9.1 % on the demo truth volume, whose planes
-        /// differ by fine texture that bilinear sampling smoothed.
+        /// at sub-pixel positions is a low-pass filter and blurred the fill; cubic filled better on the public MRI planes,
+        /// slightly worse on the demo truth volume (docs/gap-fill.md).
         /// </summary>
         public bool CubicBlend { get; init; } = true;
         /// <summary>
         /// Weight γ of a gradient-constancy term γ Σ |∇b(x + (1 − t)d) − ∇a(x − t·d)|² added to the data term (Brox,
-        /// Bruhn, Papenberg &amp; Weickert 2004, ECCV; from memory), solved with the 2 × 2 system per pixel. Off by default,
-        /// measured with GapFillTests (2026-12-02; MRI single planes / runs of 2 / runs of 3, then demo truth, % below
-        /// linear): with the bilinear blend and no normalisation γ = 2 gave 10.2 / 21.3 / 25.0 / 8.9 against
-        /// 8.0 / 19.9 / 23.1 / 9.2, but with the cubic blend and local normalisation (factor 0.5, α 0.8)
-        /// 20.3 / 25.3 / 27.2 / 6.0 against 20.7 / 26.4 / 27.9 / 7.0 without.
+        /// Bruhn, Papenberg &amp; Weickert 2004, ECCV; from memory), solved with the 2 × 2 system per pixel. Off by default:
+        /// with the cubic blend and the local normalisation it filled worse (docs/gap-fill.md).
         /// </summary>
         public double GradientWeight { get; init; }
         /// <summary>
         /// σ (scaled units) of a per-pixel confidence 1 / (1 + r²/σ²) from the warping residual r = b(x + (1 − t)d) −
         /// a(x − t·d), Gaussian-smoothed over <see cref="ConfidenceWindow"/> px: where the warped neighbours disagree the
-        /// fill moves towards the linear blend (0: off). Measured with GapFillTests (2026-12-02, defaults otherwise):
-        /// σ 0.4, window 2 px gave 20.9 / 26.5 / 27.9 % below linear on MRI and 7.1 % on the demo truth volume, against
-        /// 20.3 / 26.2 / 27.6 % and 7.0 % without. A small gain; the fill stays on the flow where the neighbours agree.
+        /// fill moves towards the linear blend (0: off). A small gain; the fill stays on the flow where the neighbours
+        /// agree (docs/gap-fill.md).
         /// </summary>
         public double ConfidenceSigma { get; init; } = 0.4;
         /// <inheritdoc cref="ConfidenceSigma"/>
@@ -161,7 +148,7 @@ public static class GapFiller
     /// </summary>
     public static (float[] U, float[] V) SymmetricFlow(GrayImage a, GrayImage b, double t, FlowOptions options)
     {
-        var (pyramidA, pyramidB) = Pyramids(a, b, options, presmooth: true);
+        var (pyramidA, pyramidB) = Pyramids(a, b, options);
         float[] u = new float[pyramidA[^1].Pixels.Length], v = new float[u.Length];
         for (int level = pyramidA.Count - 1; level >= 0; level--)
         {
@@ -318,37 +305,14 @@ public static class GapFiller
         return top + (bottom - top) * ty;
     }
 
-    /// <summary>Cubic convolution with a = −0.5 (Keys 1981, IEEE Trans. ASSP 29:1153, from memory), edges clamped.</summary>
+    /// <summary>Cubic convolution (<see cref="CubicConvolution"/>) with positions outside the image moved to its nearest edge.</summary>
     private static float SampleCubic(GrayImage image, double x, double y)
     {
         int w = image.Width, h = image.Height;
         if (!double.IsFinite(x) || !double.IsFinite(y)) return image.Pixels[0];
         double fx = Math.Clamp(x, 0, w - 1), fy = Math.Clamp(y, 0, h - 1);
         int x0 = (int)Math.Floor(fx), y0 = (int)Math.Floor(fy);
-        double tx = fx - x0, ty = fy - y0;
-        Span<double> kx = stackalloc double[4], ky = stackalloc double[4];
-        Keys(tx, kx);
-        Keys(ty, ky);
-        double sum = 0;
-        var p = image.Pixels;
-        for (int j = 0; j < 4; j++)
-        {
-            int yy = Math.Clamp(y0 - 1 + j, 0, h - 1);
-            double row = 0;
-            for (int i = 0; i < 4; i++) row += kx[i] * p[yy * w + Math.Clamp(x0 - 1 + i, 0, w - 1)];
-            sum += ky[j] * row;
-        }
-        return (float)sum;
-    }
-
-    private static void Keys(double t, Span<double> k)
-    {
-        static double W(double s)
-        {
-            s = Math.Abs(s);
-            return s <= 1 ? 1.5 * s * s * s - 2.5 * s * s + 1 : s < 2 ? -0.5 * s * s * s + 2.5 * s * s - 4 * s + 2 : 0;
-        }
-        k[0] = W(1 + t); k[1] = W(t); k[2] = W(1 - t); k[3] = W(2 - t);
+        return CubicConvolution.Sample(image, x0, y0, fx - x0, fy - y0);
     }
 
     /// <summary>Square median filter of side <paramref name="side"/> (odd), the window cut at the border.</summary>
@@ -371,13 +335,6 @@ public static class GapFiller
         return result;
     }
 
-    /// <summary>Separable Gaussian blur (kernel cut at 3σ, at least one pixel; edges clamped).</summary>
-    private static GrayImage Gaussian(GrayImage image, double sigma)
-    {
-        var kernel = GaussianFilter.Kernel(sigma, Math.Max(1, (int)Math.Ceiling(3 * sigma)));
-        return GaussianFilter.Blur(image, kernel, kernel);
-    }
-
     /// <summary>
     /// The 4-neighbourhood mean (edges clamped) of the total field, increment <paramref name="d"/> plus current
     /// <paramref name="f"/>, minus the current field at (x, y): the increment that smoothness alone would ask for, so the
@@ -395,20 +352,20 @@ public static class GapFiller
     /// Both planes scaled by their common spread (optionally pre-smoothed), then halved until the short side would drop
     /// below <see cref="FlowOptions.CoarsestSide"/>: level 0 is full size.
     /// </summary>
-    private static (List<GrayImage> A, List<GrayImage> B) Pyramids(GrayImage a, GrayImage b, FlowOptions options, bool presmooth)
+    private static (List<GrayImage> A, List<GrayImage> B) Pyramids(GrayImage a, GrayImage b, FlowOptions options)
     {
         double spread = Spread(a.Pixels, b.Pixels);
         var na = Scaled(a, spread);
         var nb = Scaled(b, spread);
-        if (presmooth && options.LocalNormalizeSigma > 0)
+        if (options.LocalNormalizeSigma > 0)
         {
             na = LocallyNormalized(na, options.LocalNormalizeSigma);
             nb = LocallyNormalized(nb, options.LocalNormalizeSigma);
         }
-        if (presmooth && options.PreSmoothSigma > 0)
+        if (options.PreSmoothSigma > 0)
         {
-            na = Gaussian(na, options.PreSmoothSigma);
-            nb = Gaussian(nb, options.PreSmoothSigma);
+            na = GaussianFilter.Blur(na, options.PreSmoothSigma);
+            nb = GaussianFilter.Blur(nb, options.PreSmoothSigma);
         }
         var pyramidA = new List<GrayImage> { na };
         var pyramidB = new List<GrayImage> { nb };
@@ -420,83 +377,13 @@ public static class GapFiller
         return (pyramidA, pyramidB);
     }
 
-    /// <summary>
-    /// Dense displacement field (u, v) in pixels with a(x, y) ≈ b(x + u, y + v), by the Horn–Schunck method
-    /// (Horn &amp; Schunck 1981, Artif. Intell. 17:185: brightness constancy plus a quadratic smoothness term, solved by
-    /// their Jacobi-type iteration), on a coarse-to-fine pyramid of 2× reductions with b warped by the current field
-    /// at each level so that displacements larger than a pixel are found. Intensities are scaled by the pair's
-    /// common spread first, so α does not depend on the units. Returns zero flow for flat images.
-    /// </summary>
-    public static (float[] U, float[] V) HornSchunck(GrayImage a, GrayImage b, FlowOptions options)
-    {
-        var (pyramidA, pyramidB) = Pyramids(a, b, options, presmooth: false);
-        float[] u = new float[pyramidA[^1].Pixels.Length], v = new float[u.Length];
-        for (int level = pyramidA.Count - 1; level >= 0; level--)
-        {
-            var la = pyramidA[level];
-            var lb = pyramidB[level];
-            if (level < pyramidA.Count - 1)
-                (u, v) = Upsample(u, v, pyramidA[level + 1].Width, pyramidA[level + 1].Height, la.Width, la.Height);
-            for (int warp = 0; warp < options.WarpsPerLevel; warp++)
-                Refine(la, lb, u, v, options);
-        }
-        return (u, v);
-    }
-
-    /// <summary>One linearisation: b warped by (u, v), then the Horn–Schunck iteration for the increment.</summary>
-    private static void Refine(GrayImage a, GrayImage b, float[] u, float[] v, FlowOptions options)
-    {
-        int w = a.Width, h = a.Height, n = w * h;
-        var warped = new float[n];
-        var ix = new float[n];
-        var iy = new float[n];
-        var it = new float[n];
-        for (int y = 0; y < h; y++)
-        for (int x = 0; x < w; x++)
-        {
-            int i = y * w + x;
-            warped[i] = b.SampleBilinear(x + u[i], y + v[i], a.Pixels[i]);
-        }
-        for (int y = 0; y < h; y++)
-        for (int x = 0; x < w; x++)
-        {
-            int i = y * w + x;
-            int xl = Math.Max(0, x - 1), xr = Math.Min(w - 1, x + 1), yu = Math.Max(0, y - 1), yd = Math.Min(h - 1, y + 1);
-            // Gradients averaged over both images (the usual symmetric estimate).
-            ix[i] = 0.25f * (a.Pixels[y * w + xr] - a.Pixels[y * w + xl] + warped[y * w + xr] - warped[y * w + xl]) / Math.Max(1, xr - xl) * 2;
-            iy[i] = 0.25f * (a.Pixels[yd * w + x] - a.Pixels[yu * w + x] + warped[yd * w + x] - warped[yu * w + x]) / Math.Max(1, yd - yu) * 2;
-            it[i] = warped[i] - a.Pixels[i];
-        }
-        var du = new float[n];
-        var dv = new float[n];
-        var nu = new float[n];
-        var nv = new float[n];
-        float alpha2 = (float)(options.Alpha * options.Alpha);
-        for (int iteration = 0; iteration < options.IterationsPerWarp; iteration++)
-        {
-            for (int y = 0; y < h; y++)
-            for (int x = 0; x < w; x++)
-            {
-                int i = y * w + x;
-                float mu = IncrementMean(du, u, w, h, x, y);
-                float mv = IncrementMean(dv, v, w, h, x, y);
-                float k = (ix[i] * mu + iy[i] * mv + it[i]) / (alpha2 + ix[i] * ix[i] + iy[i] * iy[i]);
-                nu[i] = mu - ix[i] * k;
-                nv[i] = mv - iy[i] * k;
-            }
-            (du, nu) = (nu, du);
-            (dv, nv) = (nv, dv);
-        }
-        for (int i = 0; i < n; i++) { u[i] += du[i]; v[i] += dv[i]; }
-    }
-
     /// <summary>(I − local mean) / √(local variance + c), Gaussian window of σ px; c keeps flat background near zero.</summary>
     private static GrayImage LocallyNormalized(GrayImage image, double sigma)
     {
-        var mean = Gaussian(image, sigma);
+        var mean = GaussianFilter.Blur(image, sigma);
         var sq = new GrayImage(image.Width, image.Height);
         for (int i = 0; i < sq.Pixels.Length; i++) { float d = image.Pixels[i] - mean.Pixels[i]; sq.Pixels[i] = d * d; }
-        var variance = Gaussian(sq, sigma);
+        var variance = GaussianFilter.Blur(sq, sigma);
         var result = new GrayImage(image.Width, image.Height);
         // Scaled units: spread ≈ 1, so c = 0.01 puts a floor of a tenth of the spread under the local deviation (flat
         // background stays near 0). The factor sets the contrast the smoothness weight α acts against: 0.36 with α 0.5

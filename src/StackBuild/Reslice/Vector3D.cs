@@ -27,13 +27,6 @@ public readonly record struct Vector3D(double X, double Y, double Z)
         return new(X / n, Y / n, Z / n);
     }
 
-    /// <summary>This vector turned by <paramref name="degrees"/> about the unit <paramref name="axis"/> (right-hand rule; Rodrigues' formula).</summary>
-    public Vector3D RotatedAbout(Vector3D axis, double degrees)
-    {
-        double a = degrees * Math.PI / 180.0, c = Math.Cos(a), s = Math.Sin(a);
-        return c * this + s * axis.Cross(this) + (1 - c) * axis.Dot(this) * axis;
-    }
-
     public double[] ToArray() => [X, Y, Z];
 
     public static implicit operator Vector3D((double X, double Y, double Z) t) => new(t.X, t.Y, t.Z);

@@ -1,4 +1,5 @@
 using StackBuild.Geometry;
+using StackBuild.Numerics;
 using StackBuild.Register;
 
 namespace StackBuild.Solve;
@@ -7,14 +8,14 @@ public sealed record SmoothingOptions
 {
     /// <summary>
     /// Strength λ of the smoothness term (dimensionless, relative to one full-confidence pair); 0 solves with the
-    /// robust consistency of all pairs only; negative (the default) keeps the plain neighbour chain.
-    /// Why off by default: on the demo and on a public MRI series (docs/drift-and-frame.md) the solve does not beat the
-    /// chain: the chain's drift is slow or biased link error, not noise that more pairs average out, and the solve, once it has weighted the biased
-    /// second-neighbour pairs down, keeps the chain's course (drift rms 2.67 vs 2.66 px and 3.59 vs 3.58 px, measured
-    /// 2026-12-02). λ &gt; 0 penalises the curvature of the correction; a chain error from one bad pair is a step, which
-    /// that term resists (synthetic wild-pair case: λ = 0.05 left a 15 px step at 3–9 px instead of &lt; 1 px).
+    /// robust consistency of all pairs only (the default). The solve runs only when a build chooses it
+    /// (<c>PlacementSolver.Smoothing</c>); the plain neighbour chain is the default.
+    /// Why the chain is the default: on the demo and on a public MRI series the solve does not beat the chain; the chain's
+    /// drift is slow or biased link error, not noise that more pairs average out (docs/drift-and-frame.md). λ &gt; 0
+    /// penalises the curvature of the correction; a chain error from one bad pair is a step, which that term resists
+    /// (measured in docs/drift-and-frame.md).
     /// </summary>
-    public double Strength { get; init; } = -1;
+    public double Strength { get; init; }
     /// <summary>Gauss–Newton iterations (each one also updates the robust weights).</summary>
     public int Iterations { get; init; } = 6;
     /// <summary>Tukey biweight cut-off in robust standard deviations of the pair residuals (4.685 is the usual 95 %-efficiency value).</summary>
@@ -29,11 +30,9 @@ public sealed record SmoothingOptions
     /// <summary>
     /// The second-neighbour pairs are taken to be biased against the chain when the slow share of the route closures
     /// (their moving average over <see cref="ClosureWindow"/> triangles; see <see cref="SmoothingSolver"/>) exceeds
-    /// 0.18 + SlowClosureMargin / √(number of triangles). 0.18 is what independent pair errors give; measured on 60
-    /// synthetic series each of 15–300 sections with independent errors (2026-12-02), the median was 0.17–0.20 and the
-    /// largest 0.58, 0.47, 0.40, 0.31, 0.28, 0.22 for 15, 20, 30, 60, 120, 300 sections; with a margin of 1, 7 of 360
-    /// fresh series of those sizes (2 %) were taken for biased (those keep the chain, which costs only the averaging).
-    /// Demo series 0.346 (limit 0.323), MRI series 0.759 (limit 0.342).
+    /// 0.18 + SlowClosureMargin / √(number of triangles). 0.18 is what independent pair errors give, and with a margin
+    /// of 1 few series with independent errors are taken for biased (those keep the chain, which costs only the
+    /// averaging); the measurements are in docs/drift-and-frame.md.
     /// </summary>
     public double SlowClosureMargin { get; init; } = 1.0;
     public int ClosureWindow { get; init; } = 9;
@@ -233,7 +232,7 @@ public static class SmoothingSolver
         }
         var closure = triangles.Select(Closure).ToArray();
         var sorted = closure.OrderBy(v => v).ToArray();
-        double cutoff = Math.Max(options.MinCutoffPx, options.TukeyC * 1.4826 * sorted[sorted.Length / 2]);
+        double cutoff = Math.Max(options.MinCutoffPx, options.TukeyC * Quantiles.MadToSigma * sorted[sorted.Length / 2]);
         bool Bad(int t) => Closure(triangles[t]) > cutoff;
 
         var ofPair = new Dictionary<int, List<int>>();
@@ -320,11 +319,14 @@ public static class SmoothingSolver
     public static double SlowShareLimit(int triangles, SmoothingOptions options) =>
         triangles <= 0 ? double.PositiveInfinity : IndependentSlowShare + options.SlowClosureMargin / Math.Sqrt(triangles);
 
-    /// <summary>1.4826 × median residual of the pairs in use (a consistent estimate of σ for Gaussian residuals).</summary>
+    /// <summary>
+    /// <see cref="Quantiles.MadToSigma"/> × the median residual of the pairs in use (a consistent estimate of σ for Gaussian
+    /// residuals); the median here is the upper middle value, not interpolated.
+    /// </summary>
     private static double RobustScale(double[] residual, List<PairObservation> usable, double minConfidence)
     {
         var r = residual.Where((_, k) => usable[k].Result.Confidence >= minConfidence).OrderBy(v => v).ToArray();
-        return r.Length == 0 ? 0 : 1.4826 * r[r.Length / 2];
+        return r.Length == 0 ? 0 : Quantiles.MadToSigma * r[r.Length / 2];
     }
 
     /// <summary>Jacobian row of a reference-frame point q of section i with respect to (θᵢ, txᵢ, tyᵢ).</summary>

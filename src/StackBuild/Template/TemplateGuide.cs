@@ -192,8 +192,8 @@ public static class TemplateGuide
         var (linkPx, linkDeg) = sections.Any(x => x.LinkErrorPx is not null) ? LinkSteps(sections) : (null, null);
         if (devs.Count >= 3)
         {
-            double madPx = 1.4826 * Median(devs.Select(i => deviationPx[i]!.Value));
-            double madDeg = 1.4826 * Median(devs.Select(i => deviationDeg[i]!.Value));
+            double madPx = Numerics.Quantiles.RobustSigma(devs.Select(i => deviationPx[i]!.Value));
+            double madDeg = Numerics.Quantiles.RobustSigma(devs.Select(i => deviationDeg[i]!.Value));
             double limitPx = Math.Max(options.OutlierMads * madPx, options.OutlierFloorPx), limitDeg = Math.Max(options.OutlierMads * madDeg, options.OutlierFloorDegrees);
             // Where the chain link itself is loose (the small, fast-changing end sections), a template match may differ from
             // the neighbours' course by as much as the link may be off: the limit grows to twice the link's error there.
@@ -497,13 +497,7 @@ public static class TemplateGuide
         return (px, degrees);
     }
 
-    private static double AngleDifference(double a, double b)
-    {
-        double d = (a - b) % 360;
-        if (d > 180) d -= 360;
-        if (d <= -180) d += 360;
-        return d;
-    }
+    private static double AngleDifference(double a, double b) => Angles.Wrap(a - b);
 
     private static double Median(IEnumerable<double> values)
     {

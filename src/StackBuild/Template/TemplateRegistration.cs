@@ -298,13 +298,7 @@ public static class TemplateRegistration
         }
     }
 
-    private static double Wrap(double degrees)
-    {
-        degrees %= 360;
-        if (degrees > 180) degrees -= 360;
-        if (degrees <= -180) degrees += 360;
-        return degrees;
-    }
+    private static double Wrap(double degrees) => Angles.Wrap(degrees);
 
     /// <summary>2×2 block means (an odd last row or column is dropped); pixel centres follow <see cref="Resampler.FullToBlockReduced"/>.</summary>
     internal static GrayImage Reduce(GrayImage image)

@@ -4,6 +4,7 @@ using System.Text;
 using StackBuild.Imaging;
 using StackBuild.IO;
 using StackBuild.Pipeline;
+using StackBuild.Solve;
 using StackBuild.Reslice;
 using StackBuild.Numerics;
 
@@ -81,7 +82,7 @@ public static class SectionFlags
         foreach (var s in record.Sections)
         {
             var reasons = Reasons(s, limit, voxel).ToList();
-            if (s.Status == "aligned" && s.Template is { Matched: true, Similarity: double own, PlacedByTemplate: false })
+            if (s.Status == SectionOutcome.Aligned && s.Template is { Matched: true, Similarity: double own, PlacedByTemplate: false })
             {
                 var near = matched.Where(o => o.Number != s.Number && Math.Abs(o.ZIndex - s.ZIndex) <= Evaluate.Uncertainty.TemplateHalfWindow)
                     .Select(o => o.Template!.Similarity!.Value).OrderBy(v => v).ToList();
@@ -98,24 +99,24 @@ public static class SectionFlags
     public static IReadOnlyList<string> Reasons(SectionRecord s, double disagreementLimitUm, double? voxelUm = null)
     {
         var reasons = new List<string>();
-        if (s.Status == "failed") reasons.Add("no confident match with a neighbour: left out of the volume");
+        if (s.Status == SectionOutcome.Failed) reasons.Add("no confident match with a neighbour: left out of the volume");
         if (s.Confidence is double c && c < LowConfidence)
         {
             reasons.Add(string.Create(CultureInfo.InvariantCulture, $"low registration confidence ({c:0.00})"));
-            if (s.RunnerUp is { FlipsSide: true } ru && s.Ncc is double ncc && s.Status != "failed")
+            if (s.RunnerUp is { FlipsSide: true } ru && s.Ncc is double ncc && s.Status != SectionOutcome.Failed)
                 reasons.Add(string.Create(CultureInfo.InvariantCulture,
                     $"which side is up is uncertain: the section turned over matched nearly as well (NCC {ru.Ncc:0.00} against {ncc:0.00}); check it against its neighbours"));
         }
-        if (s.SideMargin is double m && m < UncertainSideMargin && s.Status is "aligned" && !reasons.Any(r => r.StartsWith("which side is up", StringComparison.Ordinal)))
+        if (s.SideMargin is double m && m < UncertainSideMargin && s.Status is SectionOutcome.Aligned && !reasons.Any(r => r.StartsWith("which side is up", StringComparison.Ordinal)))
             reasons.Add(string.Create(CultureInfo.InvariantCulture,
                 $"which side is up is uncertain: turned over, it would match its neighbours almost as well (side margin {m:0.000}); check it against its neighbours"));
         if (s.RouteDisagreementUm is double d && d > disagreementLimitUm)
             reasons.Add(string.Create(CultureInfo.InvariantCulture, $"placements through the first and second neighbour differ by {d:0} µm"));
-        if (s.Part is int part && s.Status == "aligned" && s.Template is null)
-            reasons.Add(s.Route == "part-reference"
+        if (s.Part is int part && s.Status == SectionOutcome.Aligned && s.Template is null)
+            reasons.Add(s.Route == LinkRoute.PartReference
                 ? $"nothing matched across the sections before or after this stretch, so it was chained to this section as a part of its own (part {part}): where the part lies relative to the rest is unknown — a template would place it"
                 : $"in part {part} of the stack, which nothing linked to the rest: where the part lies relative to the rest is unknown — a template would place it");
-        if (voxelUm is double v && s.EstimatedErrorUm is double estimate && estimate > EstimatedErrorVoxels * v && s.Status == "aligned")
+        if (voxelUm is double v && s.EstimatedErrorUm is double estimate && estimate > EstimatedErrorVoxels * v && s.Status == SectionOutcome.Aligned)
             reasons.Add(string.Create(CultureInfo.InvariantCulture, $"{EstimateReason} {estimate:0} µm, more than {EstimatedErrorVoxels} voxels")
                 + (s.Template is null ? " (without a template the chain's course is unchecked: its links' errors add up to a slow drift of the stack; a template would measure and remove it)" : ""));
         if (s.Damaged) reasons.Add("marked damaged in the manifest" + (string.IsNullOrEmpty(s.Note) ? "" : $" ({s.Note})"));
@@ -158,8 +159,8 @@ public static class BuildReport
         var volume = result.Volume;
         var all = SectionFlags.For(r);
         var flagged = r.Sections.Select(s => (Section: s, Reasons: all[s.Number])).Where(t => t.Reasons.Count > 0).ToList();
-        var placed = r.Sections.Where(s => s.Status is "aligned" or "placed").ToList();
-        double minConfidence = r.Parameters.TryGetValue("min_confidence", out var mc) && double.TryParse(mc, NumberStyles.Float, Inv, out var m) ? m : 0.2;
+        var placed = r.Sections.Where(s => s.Status is SectionOutcome.Aligned or SectionOutcome.Placed).ToList();
+        double minConfidence = r.Parameters.MinConfidence;
 
         o.Write($"""
             <!DOCTYPE html>
@@ -176,16 +177,16 @@ public static class BuildReport
             """);
 
         // Summary: counts, grid, parameters.
-        int Count(string status) => r.Sections.Count(s => s.Status == status);
+        int Count(SectionOutcome status) => r.Sections.Count(s => s.Status == status);
         o.Write("<section><h2>Summary</h2><div class=\"cards\">");
         Card(o, "found", r.Sections.Count(s => s.File is not null), "sections with an image");
-        Card(o, "aligned", Count("aligned") + Count("placed"), r.Aligned ? "placed in the volume" : "placed, not aligned");
+        Card(o, "aligned", Count(SectionOutcome.Aligned) + Count(SectionOutcome.Placed), r.Aligned ? "placed in the volume" : "placed, not aligned");
         Card(o, "mirrored", placed.Count(s => s.Mirrored == true), "turned face up");
-        int gapsFilled = r.Sections.Count(s => s.Status == "gap" && s.Filled is not null);
-        Card(o, "gaps", Count("gap"), gapsFilled == 0 ? "lost sections (empty planes)"
-            : gapsFilled == Count("gap") ? "lost sections (planes filled)" : $"lost sections ({gapsFilled} planes filled)");
-        Card(o, "excluded", Count("excluded"), "left out by the manifest");
-        Card(o, "failed", Count("failed"), "no confident match");
+        int gapsFilled = r.Sections.Count(s => s.Status == SectionOutcome.Gap && s.Filled is not null);
+        Card(o, "gaps", Count(SectionOutcome.Gap), gapsFilled == 0 ? "lost sections (empty planes)"
+            : gapsFilled == Count(SectionOutcome.Gap) ? "lost sections (planes filled)" : $"lost sections ({gapsFilled} planes filled)");
+        Card(o, "excluded", Count(SectionOutcome.Excluded), "left out by the manifest");
+        Card(o, "failed", Count(SectionOutcome.Failed), "no confident match");
         Card(o, "flagged", flagged.Count, "worth a look", flagged.Count > 0 ? "warn" : "");
         o.Write("</div><div class=\"columns\"><table class=\"facts\" id=\"volume\"><caption>Volume</caption>");
         Fact(o, "grid", $"{r.Dimensions[0]} × {r.Dimensions[1]} × {r.Dimensions[2]} voxels");
@@ -200,7 +201,7 @@ public static class BuildReport
         if (errors.Count > 0) Fact(o, "estimated error", $"median {F(Quantiles.Median(errors), "0.#")} µm, largest {F(errors.Max(), "0.#")} µm");
         o.Write("</table><table class=\"facts\" id=\"parameters\"><caption>Run parameters</caption>");
         Fact(o, "version", $"StackBuild {r.Version}");
-        foreach (var (key, value) in r.Parameters) Fact(o, ParameterName(key), value);
+        foreach (var (key, value) in r.Parameters.Entries()) Fact(o, ParameterName(key), value);
         o.Write("</table></div>");
         if (r.Warnings.Count > 0)
         {
@@ -296,12 +297,12 @@ public static class BuildReport
         if (s.File is not null) o.Write($"<p class=\"file\">{E(s.File)}</p>");
         o.Write("</div>");
         var own = ReportImages.SectionPlane(volume, s.ZIndex, ThumbnailSide);
-        Thumb(o, ReportImages.Gray(own, window), $"section {s.Number}" + (s.Status == "failed" ? " (not placed: empty)" : ""));
+        Thumb(o, ReportImages.Gray(own, window), $"section {s.Number}" + (s.Status == SectionOutcome.Failed ? " (not placed: empty)" : ""));
         if (neighbour is not null && neighbour.Number != s.Number)
         {
             var other = ReportImages.SectionPlane(volume, neighbour.ZIndex, ThumbnailSide);
             Thumb(o, ReportImages.Gray(other, window), $"neighbour {neighbour.Number}");
-            if (s.Status != "failed") Thumb(o, ReportImages.Overlay(own, other), "overlay");
+            if (s.Status != SectionOutcome.Failed) Thumb(o, ReportImages.Overlay(own, other), "overlay");
         }
         o.Write("</div>");
     }
@@ -320,10 +321,10 @@ public static class BuildReport
         o.Write("</tr></thead><tbody>");
         foreach (var s in r.Sections)
         {
-            string css = flagged.Contains(s.Number) ? " class=\"flagged\"" : s.Status is "gap" or "excluded" ? " class=\"absent\"" : "";
+            string css = flagged.Contains(s.Number) ? " class=\"flagged\"" : s.Status is SectionOutcome.Gap or SectionOutcome.Excluded ? " class=\"absent\"" : "";
             string shift = s.ShiftPx is { Length: 2 } p ? $"{F(p[0] * um, "0.0")}, {F(p[1] * um, "0.0")}" : "";
             o.Write($"<tr id=\"section-{s.Number}\"{css}><td class=\"number\">{s.Number}</td><td class=\"file\">{E(s.File ?? "")}</td>" +
-                $"<td class=\"status\">{E(s.Filled is null ? s.Status : $"{s.Status}, filled ({s.Filled})")}</td><td class=\"mirrored\">{(s.Mirrored is bool mb ? (mb ? "yes" : "no") : "")}</td>" +
+                $"<td class=\"status\">{E(s.Filled is null ? s.Status.Word() : $"{s.Status.Word()}, filled ({s.Filled})")}</td><td class=\"mirrored\">{(s.Mirrored is bool mb ? (mb ? "yes" : "no") : "")}</td>" +
                 $"<td class=\"rotation\">{F(s.RotationDegrees, "0.00")}</td><td class=\"shift\">{shift}</td>" +
                 $"<td class=\"confidence\">{F(s.Confidence, "0.000")}</td><td class=\"error\">{F(s.EstimatedErrorUm, "0.0")}</td>" +
                 $"<td class=\"ncc\">{F(s.Ncc, "0.000")}</td><td class=\"route\">{Route(s)}</td>" +
@@ -357,9 +358,9 @@ public static class BuildReport
     private static string Route(SectionRecord s) => s.Route switch
     {
         null => "",
-        "reference" => "reference",
-        _ when s.RegisteredTo is int t => E($"{t} ({s.Route})"),
-        _ => E(s.Route),
+        LinkRoute.Reference => "reference",
+        LinkRoute route when s.RegisteredTo is int t => E($"{t} ({route.Word()})"),
+        LinkRoute route => E(route.Word()),
     };
 
     private static void Card(TextWriter o, string name, int value, string hint, string css = "") =>

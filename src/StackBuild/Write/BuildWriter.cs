@@ -1,5 +1,4 @@
 using System.Text.Json;
-using StackBuild.Evaluate;
 using StackBuild.IO;
 using StackBuild.Nifti;
 using StackBuild.Pipeline;
@@ -46,12 +45,12 @@ public static class BuildWriter
     public static readonly JsonSerializerOptions JsonOptions = new() { WriteIndented = true };
 
     /// <summary>
-    /// Writes the three files. The sidecar and the report carry each placed section's estimated placement error
-    /// (<see cref="Uncertainty.Annotate"/>), computed here from the record.
+    /// Writes the three files from the result as given: it computes nothing. Review the build first
+    /// (<see cref="BuildReview.Review(BuildResult)"/>) for the sidecar and the report to carry each section's estimated
+    /// placement error and flags.
     /// </summary>
     public static void Write(BuildResult result, BuildOutputPaths paths)
     {
-        result = result with { Record = SectionFlags.Annotate(Uncertainty.Annotate(result.Record)) };
         var type = result.InputBitDepth > 8 ? NiftiDataType.UInt16 : NiftiDataType.UInt8;
         var description = result.Record.Aligned ? "StackBuild aligned section series" : "StackBuild section series (unaligned)";
         // Everything that can fail for reasons other than the disk is done in memory first, so a failure leaves

@@ -12,7 +12,7 @@ internal static class ReportPlots
     private static readonly Color Blue = Color.FromHex("#2b6cb0"), Orange = Color.FromHex("#dd6b20"),
         Red = Color.FromHex("#c53030"), Grey = Color.FromHex("#718096");
 
-    private static IEnumerable<SectionRecord> Placed(BuildRecord r) => r.Sections.Where(s => s.Status is "aligned" or "placed");
+    private static IEnumerable<SectionRecord> Placed(BuildRecord r) => r.Sections.Where(s => s.Status is SectionOutcome.Aligned or SectionOutcome.Placed);
 
     /// <summary>Pair confidence per section, with the build's minimum and the report's flag limit.</summary>
     public static byte[] Confidence(BuildRecord record, double minConfidence, double flagBelow)

@@ -1,0 +1,131 @@
+using System.Runtime.InteropServices;
+using MathNet.Numerics;
+
+namespace StackBuild.Numerics;
+
+/// <summary>
+/// FFTW 3 single precision (Debian libfftw3-single3) through P/Invoke. One forward and one inverse plan per
+/// size, made once with FFTW_MEASURE under a lock (FFTW's planner is not thread-safe) and kept for the life of
+/// the process; transforms run with <c>fftwf_execute_dft</c> on the caller's aligned buffers, which is
+/// thread-safe. Wisdom is loaded from and saved to the user's cache folder so later runs plan instantly;
+/// failures to read or write it are ignored.
+/// </summary>
+internal static unsafe class Fftw
+{
+    // The versioned name: the unversioned one only resolves when libfftw3-dev is installed (NOTES.md).
+    internal const string LibraryName = "libfftw3f.so.3";
+    private const int ForwardSign = -1, BackwardSign = 1;
+    private const uint Measure = 0;
+
+    private static readonly Lock PlannerLock = new();
+    private static readonly Dictionary<(int W, int H), (nint Forward, nint Inverse)> Plans = [];
+    private static bool _wisdomLoaded;
+    private static readonly Lazy<(bool Ok, string Version)> Probe = new(ProbeLibrary);
+
+    public static bool IsAvailable => Probe.Value.Ok;
+
+    public static string Description => $"FFTW ({Probe.Value.Version}, {LibraryName})";
+
+    private static (bool, string) ProbeLibrary()
+    {
+        if (!NativeLibrary.TryLoad(LibraryName, typeof(Fftw).Assembly, null, out var handle)) return (false, "");
+        string version = NativeLibrary.TryGetExport(handle, "fftwf_version", out var p) ? Marshal.PtrToStringAnsi(p) ?? "fftw-3" : "fftw-3";
+        return (true, version);
+    }
+
+    public static IFft2D Create(int width, int height)
+    {
+        var (forward, inverse) = GetPlans(width, height);
+        return new FftwFft2D(width, height, forward, inverse);
+    }
+
+    private static (nint, nint) GetPlans(int width, int height)
+    {
+        lock (PlannerLock)
+        {
+            if (Plans.TryGetValue((width, height), out var plans)) return plans;
+            if (!_wisdomLoaded)
+            {
+                _wisdomLoaded = true;
+                var path = WisdomPath();
+                if (path != null && File.Exists(path)) fftwf_import_wisdom_from_filename(path);
+            }
+            // FFTW_MEASURE overwrites the arrays while planning: plan on scratch buffers first, fill later.
+            using var scratch = new ComplexImage(width, height);
+            nint f = fftwf_plan_dft_2d(height, width, scratch.Pointer, scratch.Pointer, ForwardSign, Measure);
+            nint b = fftwf_plan_dft_2d(height, width, scratch.Pointer, scratch.Pointer, BackwardSign, Measure);
+            if (f == 0 || b == 0) throw new InvalidOperationException($"FFTW could not plan a {width}×{height} transform.");
+            Plans[(width, height)] = (f, b);
+            SaveWisdom();
+            return (f, b);
+        }
+    }
+
+    private static void SaveWisdom()
+    {
+        var path = WisdomPath();
+        if (path == null) return;
+        try
+        {
+            Directory.CreateDirectory(Path.GetDirectoryName(path)!);
+            var temp = $"{path}.{Environment.ProcessId}.part";
+            if (fftwf_export_wisdom_to_filename(temp) != 0) File.Move(temp, path, overwrite: true);
+            else File.Delete(temp);
+        }
+        catch (IOException) { }
+        catch (UnauthorizedAccessException) { }
+    }
+
+    /// <summary>$XDG_CACHE_HOME/stackbuild/fftwf-wisdom, else ~/.cache/stackbuild/fftwf-wisdom; null when neither is known.</summary>
+    internal static string? WisdomPath()
+    {
+        var cache = Environment.GetEnvironmentVariable("XDG_CACHE_HOME");
+        if (string.IsNullOrEmpty(cache))
+        {
+            var home = Environment.GetFolderPath(Environment.SpecialFolder.UserProfile);
+            if (string.IsNullOrEmpty(home)) return null;
+            cache = Path.Combine(home, ".cache");
+        }
+        return Path.Combine(cache, "stackbuild", "fftwf-wisdom");
+    }
+
+    private sealed class FftwFft2D(int width, int height, nint forward, nint inverse) : IFft2D
+    {
+        public int Width => width;
+        public int Height => height;
+        public string ProviderName => Description;
+
+        public void Forward(ComplexImage data)
+        {
+            Check(data);
+            fftwf_execute_dft(forward, data.Pointer, data.Pointer);
+        }
+
+        public void Inverse(ComplexImage data)
+        {
+            Check(data);
+            fftwf_execute_dft(inverse, data.Pointer, data.Pointer);
+            float scale = 1f / (width * height);
+            var s = data.Span;
+            for (int i = 0; i < s.Length; i++) s[i] *= scale;
+        }
+
+        private void Check(ComplexImage data)
+        {
+            if (data.Width != width || data.Height != height)
+                throw new ArgumentException($"This FFT is for {width}×{height}, not {data.Width}×{data.Height}.");
+        }
+    }
+
+    [DllImport(LibraryName)]
+    private static extern nint fftwf_plan_dft_2d(int n0, int n1, Complex32* input, Complex32* output, int sign, uint flags);
+
+    [DllImport(LibraryName)]
+    private static extern void fftwf_execute_dft(nint plan, Complex32* input, Complex32* output);
+
+    [DllImport(LibraryName, BestFitMapping = false, ThrowOnUnmappableChar = true)]
+    private static extern int fftwf_import_wisdom_from_filename([MarshalAs(UnmanagedType.LPStr)] string path);
+
+    [DllImport(LibraryName, BestFitMapping = false, ThrowOnUnmappableChar = true)]
+    private static extern int fftwf_export_wisdom_to_filename([MarshalAs(UnmanagedType.LPStr)] string path);
+}

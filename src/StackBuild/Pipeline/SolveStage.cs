@@ -1,0 +1,97 @@
+using StackBuild.Geometry;
+using StackBuild.Imaging;
+using StackBuild.Register;
+using StackBuild.Solve;
+
+namespace StackBuild.Pipeline;
+
+/// <summary>
+/// Stage 4, the placements: every prepared section's map from its working pixels to the frame's (at first the reference
+/// section's working pixels), with how it was linked.
+/// </summary>
+/// <param name="Chain">One placement per prepared section.</param>
+/// <param name="ChainBefore">The neighbour chain's own placements, kept when a global solve or the template replaced them.</param>
+/// <param name="Smoothing">The global solve, when it ran.</param>
+/// <param name="Parity">The whole stack's mirror decision, when the sections were registered.</param>
+/// <param name="FaceFlipped">True when the frame was turned face up.</param>
+/// <param name="Aligned">True when the sections were aligned (not placed as scanned).</param>
+/// <param name="Warnings">What the stages so far found worth telling, in order.</param>
+/// <param name="OnTemplate">How the sections were placed on a template (<see cref="TemplateStage"/>), when there is one.</param>
+public sealed record Placements(IReadOnlyList<ChainPlacement> Chain, IReadOnlyList<ChainPlacement>? ChainBefore, SmoothingResult? Smoothing,
+    ParityResult? Parity, bool FaceFlipped, bool Aligned, IReadOnlyList<string> Warnings, TemplatePlacement? OnTemplate = null)
+{
+    /// <summary>Index (in the prepared sections) of the section the chain was built from.</summary>
+    public int ReferenceIndex => ChainPlacements.ReferenceIndex(Chain);
+
+    /// <summary>Every placement followed by <paramref name="map"/> (the frame changed for all sections at once).</summary>
+    public Placements Reexpressed(Transform2D map) =>
+        this with { Chain = Reexpress(Chain, map), ChainBefore = ChainBefore is null ? null : Reexpress(ChainBefore, map) };
+
+    private static IReadOnlyList<ChainPlacement> Reexpress(IReadOnlyList<ChainPlacement> chain, Transform2D map) =>
+        chain.Select(c => c.Route == LinkRoute.Failed ? c : c with { ToReference = c.ToReference.Then(map) }).ToList();
+}
+
+public static class SolveStage
+{
+    /// <summary>
+    /// Aligned: the chain from the pairs, the frame turned face up by majority, and the global solve when asked for.
+    /// <paramref name="pairs"/> is null when nothing is aligned (no alignment asked, or one section).
+    /// </summary>
+    public static Placements Solve(SeriesPlan plan, PreparedSections sections, PairSet? pairs)
+    {
+        var options = plan.Options;
+        if (pairs is null)
+        {
+            // Unaligned: centred as scanned, turned face up only where the manifest says a section was mounted face down.
+            var placed = sections.Sections.Select((w, i) => new ChainPlacement(
+                (w.Entry.MountedMirrored == true ? Transform2D.MirrorX((w.Image.Width - 1) / 2.0) : Transform2D.Identity).Then(CentreOn(w.Image, sections[0].Image)),
+                i == 0 ? LinkRoute.Reference : LinkRoute.Neighbour, -1, null, null)).ToList();
+            return new Placements(placed, null, null, null, false, false, options.Align ? ["only one section: nothing to align"] : []);
+        }
+        var chain = ChainSolver.Solve(sections.Count, pairs.Pair, i => Corners(sections[i].Image), options.Chain);
+        chain = FaceMajorityUp(chain, sections, out bool faceFlipped);
+        if (options.Solver != PlacementSolver.Smoothing || sections.Count <= 2)
+            return new Placements(chain, null, null, pairs.Parity, faceFlipped, true, []);
+
+        // The solve weighs first- and second-neighbour pairs; the third-neighbour ones only serve the mirror decision.
+        var observations = pairs.Pairs.Where(kv => kv.Key.Moving - kv.Key.Fixed <= 2).Select(kv => new PairObservation(kv.Key.Moving, kv.Key.Fixed, kv.Value))
+            .OrderBy(o => o.Moving).ThenBy(o => o.Fixed).ToList();
+        // Sections of a part the chain could not link to the reference are left as the chain put them (no pair ties them).
+        var smoothing = SmoothingSolver.Solve(chain.Select(c => c.Route == LinkRoute.Failed || c.Part != 0 ? (Transform2D?)null : c.ToReference).ToList(),
+            ChainPlacements.ReferenceIndex(chain), observations, i => SamplePoints(sections[i].Image), options.Smoothing with { MinConfidence = options.Chain.MinConfidence });
+        var solved = smoothing.ToReference;
+        var smoothed = chain.Select((c, i) => c.Route == LinkRoute.Failed || c.Part != 0 ? c : c with { ToReference = solved[i] }).ToList();
+        return new Placements(smoothed, chain, smoothing, pairs.Parity, faceFlipped, true, []);
+    }
+
+    /// <summary>The centre and the corners of the middle half of a section: where the solver measures disagreement.</summary>
+    private static (double X, double Y)[] SamplePoints(GrayImage image)
+    {
+        double w = image.Width - 1, h = image.Height - 1;
+        return [(w / 2, h / 2), (w / 4, h / 4), (3 * w / 4, h / 4), (w / 4, 3 * h / 4), (3 * w / 4, 3 * h / 4)];
+    }
+
+    private static (double X, double Y)[] Corners(GrayImage image) =>
+        [(0, 0), (image.Width - 1, 0), (0, image.Height - 1), (image.Width - 1, image.Height - 1)];
+
+    /// <summary>Centres one image on another (for unaligned placement).</summary>
+    private static Transform2D CentreOn(GrayImage image, GrayImage reference) =>
+        Transform2D.Translation((reference.Width - image.Width) / 2.0, (reference.Height - image.Height) / 2.0);
+
+    /// <summary>
+    /// Most sections are mounted face up (common practice), so when more than half came out mirrored relative to
+    /// the reference, the reference itself was the mirrored one: flip the frame about the reference's centre.
+    /// A manifest that says how the reference was mounted overrides the vote.
+    /// </summary>
+    private static IReadOnlyList<ChainPlacement> FaceMajorityUp(IReadOnlyList<ChainPlacement> chain, PreparedSections sections, out bool flip)
+    {
+        int referenceIndex = ChainPlacements.ReferenceIndex(chain);
+        var placedChain = chain.Where(c => c.Route != LinkRoute.Failed).ToList();
+        flip = sections[referenceIndex].Entry.MountedMirrored
+            ?? placedChain.Count(c => c.ToReference.IsMirrored) * 2 > placedChain.Count;
+        if (!flip) return chain;
+        var r = sections[referenceIndex].Image;
+        var mirror = Transform2D.MirrorX((r.Width - 1) / 2.0);
+        return chain.Select(c => c.Route == LinkRoute.Failed ? c : c with { ToReference = c.ToReference.Then(mirror) }).ToList();
+    }
+}

@@ -1,0 +1,148 @@
+using System.Globalization;
+using StackBuild.Evaluate;
+using StackBuild.Geometry;
+using StackBuild.Pipeline;
+using StackBuild.Solve;
+using Xunit;
+using Xunit.Abstractions;
+
+namespace StackBuild.Tests;
+
+/// <summary>The per-section error estimate: how it accumulates, Spearman against SciPy, and (soak) against the demo's truth.</summary>
+public sealed class UncertaintyTests(ITestOutputHelper output)
+{
+    private static SectionRecord Link(int number, int? to, double confidence, double psr, double? disagreementUm) => new()
+    {
+        Number = number, Status = SectionOutcome.Aligned, RegisteredTo = to, Route = to is null ? LinkRoute.Reference : LinkRoute.Neighbour,
+        Confidence = to is null ? null : confidence, PeakToSidelobe = to is null ? null : psr, RouteDisagreementUm = disagreementUm,
+    };
+
+    private static BuildRecord Record(params SectionRecord[] sections) => new()
+    {
+        Aligned = true,
+        Dimensions = [100, 80, sections.Length], VoxelSizeMm = [0.01, 0.01, 0.05],
+        Parameters = new() { RegistrationPixelSizeUm = 10 }, Sections = [.. sections],
+    };
+
+    [Fact]
+    public void LinkErrorsAddInQuadratureAlongTheChain()
+    {
+        // 1 is the reference; 2 → 1 (sharp peak, confident); 3 → 2 with a route disagreement; 4 a gap; 5 → 3 at low confidence.
+        var record = Record(
+            Link(1, null, 1, 1, null),
+            Link(2, 1, 1, 25, null),
+            Link(3, 2, 1, 25, 30 * Math.Sqrt(2)),
+            new SectionRecord { Number = 4, Status = SectionOutcome.Gap },
+            Link(5, 3, 0.6, 4, null));
+        var e = Uncertainty.Estimate(record);
+        // Without a template each estimate also carries the chain's slow drift: placed sections 1, 2, 3, 5 are positions
+        // 0..3 of 3 links, 10 µm registration pixels.
+        double Drift(int t) => Uncertainty.DriftError(t, 3) * 10;
+        Assert.Equal(Drift(0), e[1].AccumulatedUm, 9);
+        Assert.Equal(10 / 5.0, e[2].LinkUm, 9); // 10 µm pixel / √25
+        Assert.Equal(Math.Sqrt(2 * 2 + 30 * 30), e[3].LinkUm, 9);
+        double gross = 0.4 * Uncertainty.GrossErrorFraction * 1000; // extent 100 × 10 µm
+        Assert.Equal(Math.Sqrt(5 * 5 + gross * gross), e[5].LinkUm, 9);
+        Assert.Equal(Math.Sqrt(e[2].LinkUm * e[2].LinkUm + e[3].LinkUm * e[3].LinkUm + e[5].LinkUm * e[5].LinkUm + Drift(3) * Drift(3)), e[5].AccumulatedUm, 9);
+        Assert.False(e.ContainsKey(4));
+        var annotated = Uncertainty.Annotate(record);
+        Assert.Null(annotated.Sections[3].EstimatedErrorUm);
+        Assert.Equal(Math.Round(e[5].AccumulatedUm, 2), annotated.Sections[4].EstimatedErrorUm);
+        // Sections placed without aligning have no estimate at all (rather than a misleading 0).
+        Assert.Empty(Uncertainty.Estimate(record with { Aligned = false }));
+    }
+
+    [Fact]
+    public void DriftIsARandomWalkSeenAfterOneGlobalFit()
+    {
+        // The drift term's variance N/3 − t + t²/N is the continuous limit of a discrete random walk of unit steps with
+        // its mean over the stack removed. Checked against that walk's exact variance, from Cov(W_s, W_u) = min(s, u):
+        // Var(W_t − mean W) = t − (2/(N+1)) Σ_u min(t, u) + (1/(N+1)²) Σ_s Σ_u min(s, u) (common practice; derived here).
+        const int n = 60;
+        double all = 0;
+        for (int a = 0; a <= n; a++) for (int b = 0; b <= n; b++) all += Math.Min(a, b);
+        all /= (n + 1.0) * (n + 1.0);
+        foreach (int t in new[] { 0, 15, 30, 45, 60 })
+        {
+            double row = 0;
+            for (int u = 0; u <= n; u++) row += Math.Min(t, u);
+            double exact = t - 2 * row / (n + 1) + all;
+            double model = Math.Pow(Uncertainty.DriftError(t, n) / Uncertainty.DriftPxPerLink, 2);
+            Assert.InRange(model / exact, 0.9, 1.1);
+        }
+        // Smallest in the middle, largest at the ends, symmetric; none for a single section.
+        Assert.True(Uncertainty.DriftError(30, 60) < Uncertainty.DriftError(10, 60));
+        Assert.Equal(Uncertainty.DriftError(0, 60), Uncertainty.DriftError(60, 60), 9);
+        Assert.Equal(0, Uncertainty.DriftError(0, 0));
+    }
+
+    [Theory]
+    [InlineData("1,2,3,4,5", "5,6,7,8,7")]
+    [InlineData("3.1,1.2,1.2,8,0.5,2", "10,20,30,5,5,1")]
+    [InlineData("1,2,3,4", "4,3,2,1")]
+    public void SpearmanMatchesScipy(string a, string b)
+    {
+        static double[] Parse(string s) => s.Split(',').Select(v => double.Parse(v, CultureInfo.InvariantCulture)).ToArray();
+        double ours = Uncertainty.Spearman(Parse(a), Parse(b));
+        // Reference: scipy.stats.spearmanr (Debian python3-scipy).
+        var (exit, stdout, stderr) = NiftiPython.Process(NiftiPython.Python, [NiftiPython.Tool("spearman.py"), a, b]);
+        Assert.True(exit == 0, $"python3-scipy is needed (apt-get install -y python3-scipy): {stderr}");
+        Assert.Equal(double.Parse(stdout.Trim(), CultureInfo.InvariantCulture), ours, 12);
+    }
+
+    /// <summary>
+    /// The estimate against the true error on the committed demo phantom (a full build, minutes on two cores:
+    /// STACKBUILD_SOAK=1). Prints the rank correlations that docs/uncertainty.md reports; asserts only that the
+    /// estimate ranks the worst sections (the torn one) high, the property the report relies on.
+    /// </summary>
+    [SoakFact]
+    public void EstimateAgainstTheDemoTruth()
+    {
+        var folder = RepositoryPaths.DemoSeries;
+        var truth = SeriesTruth.Read(Path.Combine(folder, "truth.json"));
+        var record = Uncertainty.Annotate(BuildPipeline.Run(new BuildOptions { Input = folder }).Record);
+        var evaluation = TruthEvaluation.Evaluate(record, truth);
+        var estimates = Uncertainty.Estimate(record);
+        var rows = evaluation.Sections.Where(s => estimates.ContainsKey(s.Number)).ToList();
+        double[] estimated = rows.Select(s => estimates[s.Number].AccumulatedUm).ToArray();
+        double[] link = rows.Select(s => estimates[s.Number].LinkUm).ToArray();
+
+        // True error relative to the reference section (what the random walk models): the distance, at the truth
+        // plane's sample points, between where this section's map and the reference's map put them.
+        var maps = record.Sections.Where(s => s.Matrix is not null && truth.Sections.ContainsKey(s.Number))
+            .ToDictionary(s => s.Number, s => truth.Sections[s.Number].PlaneToImage.Then(Transform2D.FromRows(s.Matrix!)));
+        var reference = maps[record.ReferenceSection];
+        double um = record.VoxelSizeMm[0] * 1000;
+        double RelativeUm(int number)
+        {
+            double sum = 0;
+            int n = 0;
+            for (int a = 0; a < 5; a++)
+            for (int b = 0; b < 5; b++)
+            {
+                double x = truth.PlaneWidth * (0.1 + 0.2 * a), y = truth.PlaneHeight * (0.1 + 0.2 * b);
+                var p = maps[number].Apply(x, y);
+                var q = reference.Apply(x, y);
+                sum += Math.Sqrt((p.X - q.X) * (p.X - q.X) + (p.Y - q.Y) * (p.Y - q.Y));
+                n++;
+            }
+            return sum / n * um;
+        }
+        double[] globalError = rows.Select(s => s.ErrorUm).ToArray();
+        double[] relative = rows.Select(s => RelativeUm(s.Number)).ToArray();
+        var pairRows = rows.Where(s => s.PairErrorPx is not null).ToList();
+        double rhoGlobal = Uncertainty.Spearman(estimated, globalError);
+        double rhoRelative = Uncertainty.Spearman(estimated, relative);
+        double rhoPair = Uncertainty.Spearman(pairRows.Select(s => estimates[s.Number].LinkUm).ToArray(), pairRows.Select(s => s.PairErrorPx!.Value * um).ToArray());
+        output.WriteLine($"sections {rows.Count}; Spearman(estimate, error after global fit) = {rhoGlobal:0.000}; " +
+            $"Spearman(estimate, error relative to reference section {record.ReferenceSection}) = {rhoRelative:0.000}; " +
+            $"Spearman(link estimate, true pairwise error) = {rhoPair:0.000}");
+        foreach (var (s, i) in rows.Select((s, i) => (s, i)))
+            output.WriteLine($"{s.Number,3} est {estimated[i],8:0.0} link {link[i],7:0.0} | true global {globalError[i],8:0.0} relative {relative[i],8:0.0} pair {(s.PairErrorPx ?? 0) * um,7:0.0} µm");
+
+        // The section with the largest link estimate is among the three with the largest true pairwise error.
+        var worstEstimated = rows[Array.IndexOf(link, link.Max())].Number;
+        var worstTrue = pairRows.OrderByDescending(s => s.PairErrorPx).Take(3).Select(s => s.Number).ToList();
+        Assert.Contains(worstEstimated, worstTrue);
+    }
+}
