@@ -171,7 +171,7 @@ public static class TemplateGuide
             }
         }
 
-        // (c) Outliers: deviation from the running median of the corrections, judged against the MAD over the stack.
+        // (c) Outliers: deviation from the local course of the corrections, judged against the MAD over the stack.
         var deviationPx = new double?[n]; var deviationDeg = new double?[n];
         int half = Math.Max(1, options.SmoothingSections / 2);
         var segment = Segments(sections, options.ChainBreakConfidence);
@@ -183,7 +183,12 @@ public static class TemplateGuide
         foreach (int i in usable.Where(i => candidate[i]))
         {
             var near = usable.Where(j => candidate[j] && segment[j] == segment[i] && Math.Abs(j - i) <= half).ToList();
-            double mxc = Median(near.Select(j => dx[j])), myc = Median(near.Select(j => dy[j])), mac = Median(near.Select(j => angle[j]));
+            // The local course is a robust line through the nearby corrections (Theil–Sen), not their median: at an end of the
+            // stack, where the window reaches one way only and the corrections still change fast, a median lags behind the
+            // course and set good matches aside (the whole head's last sections, seed 1: 6–10 px "away", right to 0.1 px).
+            bool line = near.Count >= 4;
+            double mxc = line ? TheilSen(near, dx, i) : Median(near.Select(j => dx[j])), myc = line ? TheilSen(near, dy, i) : Median(near.Select(j => dy[j])),
+                mac = line ? TheilSen(near, angle, i) : Median(near.Select(j => angle[j]));
             deviationPx[i] = double.Hypot(dx[i] - mxc, dy[i] - myc);
             deviationDeg[i] = Math.Abs(angle[i] - mac);
         }
