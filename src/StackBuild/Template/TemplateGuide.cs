@@ -321,7 +321,9 @@ public static class TemplateGuide
         {
             var members = stretch.ToList();
             if (members.Count < 3) continue;
-            double turn = Median(members.Select(i => AngleDifference(measured[i]!.SectionToSlice.RotationDegrees, chain[i].RotationDegrees)));
+            // The median turn, taken about the first member's so that turns near ±180° do not average to 0.
+            var turns = members.Select(i => AngleDifference(measured[i]!.SectionToSlice.RotationDegrees, chain[i].RotationDegrees)).ToList();
+            double turn = AngleDifference(turns[0] + Median(turns.Select(t => AngleDifference(t, turns[0]))), 0);
             if (Math.Abs(turn) <= options.StepDegrees) continue;
             var at = members.Select(i => chain[i].Apply(centres[i].Item1, centres[i].Item2)).ToList();
             double px = Median(at.Select(p => p.X)), py = Median(at.Select(p => p.Y));

@@ -231,6 +231,29 @@ public class TemplateGuideTests(ITestOutputHelper output)
         Assert.True(nearStep < 2, $"sections beside the wrong link are {nearStep} px off");
     }
 
+    [Theory]
+    [InlineData(60)]
+    [InlineData(175)]
+    public void AStretchTheChainTurnedAsAWholeIsTurnedBackAsAWhole(double degrees)
+    {
+        // Sections 0–11 form a part of the chain that nothing links to the rest (confidence 0 at section 12), and the whole
+        // part lies turned by a large angle about a point off its centre, as an end of a specimen chained across a wrong
+        // link does. Shifts measured at each section's own centre then differ from section to section although one rigid
+        // map would put them all back; the guide must turn the part back as a whole.
+        var (sim, planes) = MriSimulation();
+        var sections = sim.Input.Sections.ToList();
+        const int part = 12;
+        var turned = Transform2D.Rotation(degrees, 60, 200);
+        for (int s = 0; s < part; s++) sections[s] = sections[s] with { ToReference = sections[s].ToReference.Then(turned), Unanchored = true };
+        sections[part] = sections[part] with { ChainConfidence = 0 };
+        var broken = sim with { Input = sim.Input with { Sections = sections } };
+        var (chain, guided, _) = RunAndReport($"MRI ch2, the first {part} sections turned {degrees}° as a part", broken, Enumerable.Range(0, planes.Count).ToArray());
+        double worst = Enumerable.Range(0, part).Max(s => guided.Errors[s]);
+        output.WriteLine($"  largest error in the turned part: {worst:0.###} px (chain: {Enumerable.Range(0, part).Max(s => chain.Errors[s]):0.#} px)");
+        Assert.True(Enumerable.Range(0, part).Min(s => chain.Errors[s]) > 10, "the turned part must be far off for the test to mean anything");
+        Assert.True(worst < 1, $"a section of the turned part is {worst} px off");
+    }
+
     [Fact]
     public void AStretchTheChainCouldNotPlaceIsPlacedByTheTemplateAlone()
     {
