@@ -221,6 +221,12 @@ public sealed record SectionTemplateRecord
     [JsonPropertyName("correction_deg")] public double? CorrectionDegrees { get; init; }
     /// <summary>How far (µm, at the section's centre) its own template match lies from its final placement; null when unmatched.</summary>
     [JsonPropertyName("misfit_um")] public double? MisfitUm { get; init; }
+    /// <summary>
+    /// How far (µm, the largest at the corners of the image's middle half) the template moved the section relative to the placed section
+    /// before it, against the neighbour chain's link between them; null for the first placed section or one the chain did
+    /// not place.
+    /// </summary>
+    [JsonPropertyName("link_change_um")] public double? LinkChangeUm { get; init; }
 }
 
 /// <summary>The midline found for --upright.</summary>

@@ -189,9 +189,26 @@ public static class RecordStage
             var (bx, by) = p.SectionToSlice.Apply(cx, cy);
             misfit = Math.Sqrt((ax - bx) * (ax - bx) + (ay - by) * (ay - by)) * workUm;
         }
+        // How far the template moved the section relative to the placed section before it, against the chain's link between
+        // them (the pair registration): the largest distance at the corners of the image's middle half (where the tissue
+        // lies; the slide's corners would magnify a small turn), in the previous section's pixels.
+        double? linkChange = null;
+        int m = n - 1;
+        while (m >= 0 && chain[m].Route == LinkRoute.Failed) m--;
+        if (m >= 0 && chain[n].Route != LinkRoute.Failed && chain[m].Part == chain[n].Part) // no link between parts
+        {
+            var q = t.Guide.Sections[m];
+            var final = p.SectionToSlice.Then(q.SectionToSlice.Inverse());
+            var linked = p.ChainToSlice.Then(q.ChainToSlice.Inverse());
+            double w = image.Width - 1.0, h = image.Height - 1.0;
+            linkChange = new[] { (w / 4, h / 4), (3 * w / 4, h / 4), (w / 4, 3 * h / 4), (3 * w / 4, 3 * h / 4) }
+                .Max(c => { var (ax, ay) = final.Apply(c.Item1, c.Item2); var (bx, by) = linked.Apply(c.Item1, c.Item2); return Math.Sqrt((ax - bx) * (ax - bx) + (ay - by) * (ay - by)); })
+                * workUm;
+        }
         return new SectionTemplateRecord
         {
             Plane = t.Z[n],
+            LinkChangeUm = linkChange,
             Matched = p.Measured is not null,
             Similarity = p.Similarity,
             Confidence = p.Measured is null ? null : p.Confidence,

@@ -123,6 +123,11 @@ public static class SectionFlags
         if (s.Template?.Outlier is { } why) reasons.Add($"its template match was set aside ({why})");
         if (s.Template is { PlacedByTemplate: true } t) reasons.Add(t.Note ?? "placed by its own template match");
         if (s.Template is { ChainStep: true }) reasons.Add("the template sees a step in the chain here: the link to the section before is likely wrong (the stack was corrected on either side separately)");
+        // The template moved the section against its registration to the section before by more than the flag's limit: the
+        // link or the template's course there is off by at least half of that (a noisy template followed section by section).
+        else if (voxelUm is double vu && s.Template is { PlacedByTemplate: false, LinkChangeUm: double change } && change > EstimatedErrorVoxels * vu && s.Status == SectionOutcome.Aligned)
+            reasons.Add(string.Create(CultureInfo.InvariantCulture,
+                $"the template moved it {change:0} µm against its registration to the section before (more than {EstimatedErrorVoxels} voxels): the link or the template's course is off here; check the two sections"));
         return reasons;
     }
 }

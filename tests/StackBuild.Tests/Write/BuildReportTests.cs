@@ -156,4 +156,22 @@ public sealed class BuildReportTests(BuildReportFixture fixture, ITestOutputHelp
         Assert.Equal("earlier report", File.ReadAllText(path));
         Assert.Equal(["broken.report.html"], Directory.GetFiles(folder).Select(Path.GetFileName));
     }
+
+    [Fact]
+    public void ASectionTheTemplateMovedAgainstItsLinkIsFlaggedOnceBeyondTwoVoxels()
+    {
+        // 20 µm voxels: a move of 41 µm against the link to the section before is more than 2 voxels; 39 µm is not; a section
+        // placed by its own template match (already flagged for that) or one at a chain step gets no second reason.
+        SectionRecord With(double change, bool byTemplate = false, bool step = false) => new()
+        {
+            Number = 7, Status = SectionOutcome.Aligned, Confidence = 0.9,
+            Template = new SectionTemplateRecord { Matched = true, Similarity = 0.3, LinkChangeUm = change, PlacedByTemplate = byTemplate, ChainStep = step },
+        };
+        bool Moved(SectionRecord s) => SectionFlags.Reasons(s, 1e9, 20).Any(r => r.StartsWith("the template moved it", StringComparison.Ordinal));
+        Assert.True(Moved(With(41)));
+        Assert.False(Moved(With(39)));
+        Assert.False(Moved(With(400, byTemplate: true)));
+        Assert.False(Moved(With(400, step: true)));
+        Assert.Contains("41 µm", SectionFlags.Reasons(With(41), 1e9, 20).Single(r => r.StartsWith("the template moved it", StringComparison.Ordinal)));
+    }
 }
