@@ -35,6 +35,7 @@ public static class ApplyCommand
             string sidecarPath = parse.GetValue(sidecar)!;
             var paths = BuildOutputPaths.For(parse.GetValue(output)!);
             paths.CheckWritable();
+            BuildWriter.CheckNotReplacing(paths, sidecarPath);
             var gray = BuildCommand.ParseChannel(parse.GetValue(channel)!);
             var record = SidecarFile.Read(sidecarPath);
             var series = ApplyStage.OpenImages(parse.GetValue(images)!, record, new SeriesOptions
