@@ -70,8 +70,8 @@ public static class RenderStage
         }
         var settings = new RenderSettings(plan.OutputPixelUm, plan.MaxValue, options.Channel, options.Interpolation,
             aligned ? options.Fill : GapFill.None, plan.Series.SpacingUm, plan.PlaneSpacingUm);
-        var volume = RenderPlaced(placed, new Volume(grid.Nx, grid.Ny, grid.Nz, grid.Affine), settings, images, progress);
-        return volume with { Warnings = warnings };
+        var rendered = RenderPlaced(placed, new Volume(grid.Nx, grid.Ny, grid.Nz, grid.Affine), settings, images, progress);
+        return rendered with { Warnings = warnings };
     }
 
     /// <summary>
