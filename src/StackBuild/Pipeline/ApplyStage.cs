@@ -79,6 +79,7 @@ public static class ApplyStage
         var byNumber = other.Sections.ToDictionary(s => s.Number);
         var sections = new List<RenderedSection>();
         var missing = new List<int>();
+        var fieldMismatch = new List<(int Number, double Share)>();
         foreach (var stored in build.Sections.OrderBy(s => s.Number))
         {
             byNumber.TryGetValue(stored.Number, out var entry);
@@ -93,6 +94,7 @@ public static class ApplyStage
                 continue;
             }
             double storedUm = stored.PixelSizeUm ?? build.InputPixelSizeUm;
+            if (OtherField(stored, storedUm, entry) is { } field) fieldMismatch.Add(field);
             var imageToPlane = ScaledMatrix(Transform2D.FromRows(stored.Matrix!), entry.PixelSizeUm / storedUm);
             sections.Add(new RenderedSection(entry, null, stored.ZIndex, stored.Status, imageToPlane));
         }
@@ -123,6 +125,13 @@ public static class ApplyStage
         if (missing.Count > 0)
             warnings.Add($"no image for section{(missing.Count == 1 ? "" : "s")} {SectionNumbers.Runs(missing)} (placed in the build); " +
                 (fill == GapFill.None ? "left empty" : "filled from the neighbouring sections"));
+        if (fieldMismatch.Count > 0)
+        {
+            var worst = fieldMismatch.MaxBy(f => Math.Abs(f.Share - 1));
+            warnings.Add(string.Format(CultureInfo.InvariantCulture,
+                "the images of section{0} {1} cover another field than the build's (section {2}: {3:0.###} times as wide at the pixel sizes given); check the pixel size (--pixel-size or the manifest) and that the images were exported whole",
+                fieldMismatch.Count == 1 ? "" : "s", SectionNumbers.Runs(fieldMismatch.Select(f => f.Number)), worst.Number, worst.Share));
+        }
         if (unplaced.Count > 0)
             warnings.Add($"section{(unplaced.Count == 1 ? "" : "s")} {SectionNumbers.Runs(unplaced)} of the image set {(unplaced.Count == 1 ? "has" : "have")} no placement in the build and {(unplaced.Count == 1 ? "was" : "were")} left out");
         var record = new ApplyRecord
@@ -163,6 +172,22 @@ public static class ApplyStage
     /// </summary>
     public static SectionSeries OpenImages(string folderOrManifest, BuildRecord build, SeriesOptions options) =>
         SeriesReader.Open(folderOrManifest, options with { SpacingUm = options.SpacingUm ?? (build.SpacingUm > 0 ? build.SpacingUm : null) });
+
+    /// <summary>
+    /// How many times as wide the other image's field is as the one the build read (pixels × pixel size), when the two
+    /// differ by more than <see cref="FieldTolerance"/> or a pixel; null when they agree or the sidecar did not record the size.
+    /// </summary>
+    private static (int Number, double Share)? OtherField(SectionRecord stored, double storedUm, SectionEntry other)
+    {
+        if (stored.ImageSizePx is not [int width, int height] || width <= 0 || height <= 0 || other.Image is not { } facts) return null;
+        double share = facts.Width * other.PixelSizeUm / (width * storedUm);
+        double shareY = facts.Height * other.PixelSizeUm / (height * storedUm);
+        double slack = FieldTolerance + 1.0 / Math.Min(width, height);
+        return Math.Abs(share - 1) > slack || Math.Abs(shareY - 1) > slack ? (stored.Number, Math.Abs(share - 1) >= Math.Abs(shareY - 1) ? share : shareY) : null;
+    }
+
+    /// <summary>Share by which another image set's field may differ from the build's before apply warns (an export's rounding).</summary>
+    public const double FieldTolerance = 0.02;
 
     /// <summary>
     /// A stored map from one image's pixels to the plane, re-expressed for an image of the same field whose pixels are

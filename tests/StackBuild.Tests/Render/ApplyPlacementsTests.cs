@@ -127,6 +127,7 @@ public sealed class ApplyPlacementsTests(ApplyDemoFixture demo)
         Assert.Equal(SectionOutcome.Gap, left.Status);
         Assert.NotNull(left.FilledFrom);
         Assert.Contains(applied.Record.Warnings, w => w.Contains($"no image for section {demo.Left}", StringComparison.Ordinal));
+        Assert.DoesNotContain(applied.Record.Warnings, w => w.Contains("another field", StringComparison.Ordinal));
         Assert.True(volume.Plane(left.ZIndex).ToArray().Max() > 0.5 * 65535, "the missing section's plane is filled");
     }
 
@@ -139,6 +140,8 @@ public sealed class ApplyPlacementsTests(ApplyDemoFixture demo)
         var s = demo.Build.Record.Sections.First(x => x.Status == SectionOutcome.Aligned && x.Number > demo.Left && !x.Damaged);
         double r = WithTruth(applied.Volume, s);
         Assert.True(r < 0.8, $"correlation {r:0.000} with the pixel size ignored");
+        // And apply says so: the images' field (pixels × the pixel size given) is twice the build's.
+        Assert.Contains(applied.Record.Warnings, w => w.Contains("cover another field than the build's", StringComparison.Ordinal) && w.Contains("2 times as wide", StringComparison.Ordinal));
     }
 
     [Fact]
