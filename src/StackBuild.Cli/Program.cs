@@ -49,6 +49,8 @@ public static class Program
         yield return DemoCommand.Create(console);
         yield return CutCommand.Create(console);
         yield return BuildCommand.Create(console);
+        yield return ApplyCommand.Create(console);
+        yield return PointsCommand.Create(console);
         yield return EvaluateCommand.Create(console);
         yield return ResliceCommand.Create(console);
         yield return ResliceCommand.CreateBenchmark(console);

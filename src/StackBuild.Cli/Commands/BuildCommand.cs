@@ -152,7 +152,7 @@ public static class BuildCommand
                 $"if the qform is the right one, write the template again with matching sform (stackbuild info {path} shows both)"));
     }
 
-    private sealed class SyncProgress(CliOutput console) : IProgress<string>
+    internal sealed class SyncProgress(CliOutput console) : IProgress<string>
     {
         public void Report(string value) => console.Progress(value);
     }
@@ -203,7 +203,7 @@ public static class BuildCommand
             o.WriteLine($"Check    section {number}: {string.Join("; ", reasons)}");
         if (specific.Count > shown) o.WriteLine($"Check    {specific.Count - shown} more section(s): see the report");
         if (estimateOnly.Count > 0)
-            o.WriteLine($"Check    {(estimateOnly.Count == 1 ? "section" : "sections")} {SectionFlags.Runs(estimateOnly)}: estimated placement error above {SectionFlags.EstimatedErrorVoxels} voxels" +
+            o.WriteLine($"Check    {(estimateOnly.Count == 1 ? "section" : "sections")} {SectionNumbers.Runs(estimateOnly)}: estimated placement error above {SectionFlags.EstimatedErrorVoxels} voxels" +
                 (r.Sections.Any(x => x.Template is not null) ? "" : " (without a template the chain's course is unchecked and drifts slowly; a template would measure and remove it)"));
         foreach (var w in r.Warnings) o.WriteLine($"warning: {w}");
         if (!alignRequested)

@@ -19,7 +19,7 @@ public static class EvaluateCommand
         command.SetAction(parse => console.Guard(() =>
         {
             var path = parse.GetValue(sidecar)!;
-            var record = ReadSidecar(path);
+            var record = SidecarFile.Read(path);
             var result = TruthEvaluation.Evaluate(record, SeriesTruth.Read(parse.GetValue(truth)!));
             if (parse.GetValue(json))
             {
@@ -39,29 +39,5 @@ public static class EvaluateCommand
             return CliOutput.ExitOk;
         }));
         return command;
-    }
-
-    internal static BuildRecord ReadSidecar(string path)
-    {
-        try
-        {
-            var record = JsonSerializer.Deserialize<BuildRecord>(File.ReadAllText(path))
-                ?? throw new InputProblemException(path, "the sidecar is empty", "give the .json written beside the volume by 'stackbuild build'");
-            if (record.Sections is null)
-                throw new InputProblemException(path, "the sidecar lists no sections", "give the .json written beside the volume by 'stackbuild build'");
-            foreach (var s in record.Sections)
-                if (s.Matrix is { } m && (m.Length < 2 || m.Take(2).Any(row => row is null || row.Length != 3)))
-                    throw new InputProblemException(path, $"section {s.Number} has a matrix that is not 3×3",
-                        "give the .json written beside the volume by 'stackbuild build', unedited");
-            return record;
-        }
-        catch (JsonException e)
-        {
-            throw new InputProblemException(path, $"not a StackBuild sidecar ({e.Message})", "give the .json written beside the volume by 'stackbuild build'");
-        }
-        catch (Exception e) when (e is IOException or UnauthorizedAccessException)
-        {
-            throw new InputProblemException(path, "the sidecar cannot be read", "check the path and permissions");
-        }
     }
 }

@@ -88,8 +88,7 @@ internal static partial class DemoFiles
         return text.ToString();
     }
 
-    private static string Csv(string field) =>
-        field.IndexOfAny([',', '"', '\n', '\r']) >= 0 ? "\"" + field.Replace("\"", "\"\"") + "\"" : field;
+    private static string Csv(string field) => Series.SeriesManifest.Quote(field);
 
     public static string TruthJson(DemoSpecimen specimen)
     {

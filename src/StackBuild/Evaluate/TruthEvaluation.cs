@@ -57,10 +57,12 @@ public sealed record SectionError(int Number, double ErrorPx, double ErrorUm, do
 
 public sealed record Summary(double Median, double P95, double Max);
 
+/// <param name="Common">The one map truth-plane pixels → output (i, j) fitted over the sections; each section's error is measured against it.</param>
 public sealed record EvaluationResult(
     IReadOnlyList<SectionError> Sections,
     Summary ErrorPx, Summary ErrorUm, Summary RotationDegrees, Summary PairErrorPx, Summary PairRotationDegrees,
-    int MirrorWrong, double DriftMaxPx, double DriftRmsPx, double OutputPixelUm, int Evaluated, int Missing);
+    int MirrorWrong, double DriftMaxPx, double DriftRmsPx, double OutputPixelUm, int Evaluated, int Missing,
+    Transform2D Common = default);
 
 /// <summary>
 /// Compares a build's sidecar with the truth: each placed section's map truth-plane → output plane should be
@@ -140,7 +142,7 @@ public static class TruthEvaluation
             Summarise(good.Select(e => e.ErrorPx)), Summarise(good.Select(e => e.ErrorUm)), Summarise(good.Select(e => e.RotationErrorDegrees)),
             Summarise(pairs.Select(e => e.PairErrorPx!.Value)), Summarise(pairs.Select(e => e.PairRotationDegrees!.Value)),
             errors.Count(e => e.MirrorWrong), errors.Max(e => e.DriftPx), Math.Sqrt(errors.Average(e => e.DriftPx * e.DriftPx)),
-            outUm, errors.Count, missing);
+            outUm, errors.Count, missing, common);
     }
 
     /// <summary>A 5 × 5 grid over the middle 80 % of the plane (where tissue lies).</summary>

@@ -56,6 +56,8 @@ public sealed record SectionRecord
     [JsonPropertyName("volume_z")] public double? VolumeZ { get; init; }
     [JsonPropertyName("position_um")] public double PositionUm { get; init; }
     [JsonPropertyName("pixel_size_um")] public double? PixelSizeUm { get; init; }
+    /// <summary>Width and height (pixels) of the image the build read; with <see cref="PixelSizeUm"/>, the field it shows (apply checks another set against it).</summary>
+    [JsonPropertyName("image_size_px")] public int[]? ImageSizePx { get; init; }
     [JsonPropertyName("damaged")] public bool Damaged { get; init; }
     [JsonPropertyName("matrix")] public double[][]? Matrix { get; init; }
     [JsonPropertyName("note")] public string? Note { get; init; }

@@ -124,6 +124,7 @@ public static class RecordStage
             ZIndex = r.Plane,
             PositionUm = s.PositionUm,
             PixelSizeUm = s.Status == Series.SectionStatus.Gap ? null : s.PixelSizeUm,
+            ImageSizePx = s.Image is { } facts ? [facts.Width, facts.Height] : null,
             Damaged = s.Damaged,
             Mirrored = s.MountedMirrored,
             Note = string.IsNullOrEmpty(s.Note) ? null : s.Note,

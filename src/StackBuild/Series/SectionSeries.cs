@@ -65,3 +65,22 @@ public sealed record SectionSeries(
 {
     public IEnumerable<SectionEntry> Present => Sections.Where(s => s.Status == SectionStatus.Present);
 }
+
+/// <summary>Section numbers written for people.</summary>
+public static class SectionNumbers
+{
+    /// <summary>Section numbers in order as runs: "1–3, 5, 7–60".</summary>
+    public static string Runs(IEnumerable<int> numbers)
+    {
+        var sorted = numbers.Order().ToList();
+        var parts = new List<string>();
+        for (int i = 0; i < sorted.Count; i++)
+        {
+            int j = i;
+            while (j + 1 < sorted.Count && sorted[j + 1] == sorted[j] + 1) j++;
+            parts.Add(j == i ? $"{sorted[i]}" : $"{sorted[i]}–{sorted[j]}");
+            i = j;
+        }
+        return string.Join(", ", parts);
+    }
+}

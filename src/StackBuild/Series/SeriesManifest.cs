@@ -209,6 +209,10 @@ internal sealed record SeriesManifest(string Display, bool HasTable, double? Pix
         }
     }
 
+    /// <summary>One CSV field as written: in double quotes (a quote doubled) when it holds a comma, a quote or a line break.</summary>
+    internal static string Quote(string field) =>
+        field.IndexOfAny([',', '"', '\n', '\r']) >= 0 ? "\"" + field.Replace("\"", "\"\"") + "\"" : field;
+
     /// <summary>Splits one CSV line: commas separate; a field in double quotes may hold commas and "" for a quote.</summary>
     internal static bool TrySplit(string line, out List<string> fields, out string problem)
     {

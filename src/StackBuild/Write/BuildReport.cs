@@ -6,6 +6,7 @@ using StackBuild.IO;
 using StackBuild.Pipeline;
 using StackBuild.Solve;
 using StackBuild.Reslice;
+using StackBuild.Series;
 using StackBuild.Numerics;
 
 namespace StackBuild.Write;
@@ -53,21 +54,6 @@ public static class SectionFlags
 
     /// <summary>How the reason for a large estimated error begins (<see cref="Reasons"/>, <see cref="EstimateOnly"/>).</summary>
     private const string EstimateReason = "estimated placement error";
-
-    /// <summary>Section numbers in order as runs: "1–3, 5, 7–60".</summary>
-    public static string Runs(IEnumerable<int> numbers)
-    {
-        var sorted = numbers.Order().ToList();
-        var parts = new List<string>();
-        for (int i = 0; i < sorted.Count; i++)
-        {
-            int j = i;
-            while (j + 1 < sorted.Count && sorted[j + 1] == sorted[j] + 1) j++;
-            parts.Add(j == i ? $"{sorted[i]}" : $"{sorted[i]}–{sorted[j]}");
-            i = j;
-        }
-        return string.Join(", ", parts);
-    }
 
     /// <summary>A template match weaker than this share of its neighbours' median similarity is flagged.</summary>
     public const double WeakTemplateShare = 0.5;
@@ -260,7 +246,7 @@ public static class BuildReport
             if (estimateOnly.Count > 0)
                 o.Write($"<p class=\"estimate-only\">Flagged only for an estimated placement error above {SectionFlags.EstimatedErrorVoxels} voxels " +
                     (r.Sections.Any(x => x.Template is not null) ? "" : "(without a template the chain's course is unchecked and drifts slowly; a template would measure and remove it)") +
-                    $": {(estimateOnly.Count == 1 ? "section" : "sections")} {SectionFlags.Runs(estimateOnly)}. Their estimates are in the table below.</p>");
+                    $": {(estimateOnly.Count == 1 ? "section" : "sections")} {SectionNumbers.Runs(estimateOnly)}. Their estimates are in the table below.</p>");
         }
         o.Write("</section>");
 

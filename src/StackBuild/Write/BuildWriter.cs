@@ -63,4 +63,26 @@ public static class BuildWriter
         AtomicFile.WriteAllText(paths.Sidecar, sidecar);
         AtomicFile.WriteAllText(paths.Report, report.ToString());
     }
+
+    /// <summary>
+    /// Writes an applied volume and its sidecar (<see cref="ApplyRecord"/>), each atomically, in the image set's bit depth.
+    /// Refuses an output whose sidecar would replace the sidecar the placements came from.
+    /// </summary>
+    public static void WriteApplied(ApplyResult result, BuildOutputPaths paths)
+    {
+        CheckNotReplacing(paths, result.Record.PlacementsFrom);
+        var type = result.InputBitDepth > 8 ? NiftiDataType.UInt16 : NiftiDataType.UInt8;
+        var sidecar = JsonSerializer.Serialize(result.Record, JsonOptions) + "\n";
+        paths.CheckWritable();
+        NiftiFile.Write(paths.Volume, result.Volume, new NiftiWriteOptions { DataType = type, Description = "StackBuild placements applied to another image set" });
+        AtomicFile.WriteAllText(paths.Sidecar, sidecar);
+    }
+
+    /// <summary>Refuses, before any work, an applied volume whose sidecar would replace the sidecar its placements come from.</summary>
+    public static void CheckNotReplacing(BuildOutputPaths paths, string placementsFrom)
+    {
+        if (string.Equals(Path.GetFullPath(paths.Sidecar), Path.GetFullPath(placementsFrom), StringComparison.Ordinal))
+            throw new InputProblemException(paths.Volume, "this output's sidecar would replace the build's sidecar the placements come from",
+                "choose another output name, e.g. the stain's or channel's name");
+    }
 }

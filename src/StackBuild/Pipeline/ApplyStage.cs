@@ -1,0 +1,202 @@
+using System.Globalization;
+using System.Text.Json.Serialization;
+using StackBuild.Geometry;
+using StackBuild.Imaging;
+using StackBuild.IO;
+using StackBuild.Render;
+using StackBuild.Series;
+
+namespace StackBuild.Pipeline;
+
+/// <summary>The sidecar of an applied volume: which images were drawn through which build's placements.</summary>
+public sealed record ApplyRecord
+{
+    [JsonPropertyName("software")] public string Software { get; init; } = "StackBuild";
+    [JsonPropertyName("version")] public string Version { get; init; } = "";
+    [JsonPropertyName("created")] public string Created { get; init; } = "";
+    /// <summary>What was done: always "placements of a build applied to another image set".</summary>
+    [JsonPropertyName("applied")] public string Applied { get; init; } = "placements of a build applied to another image set";
+    /// <summary>The sidecar whose placements were used.</summary>
+    [JsonPropertyName("placements_from")] public string PlacementsFrom { get; init; } = "";
+    /// <summary>The image set (folder or manifest) that was drawn.</summary>
+    [JsonPropertyName("images")] public string Images { get; init; } = "";
+    [JsonPropertyName("dimensions")] public int[] Dimensions { get; init; } = [];
+    [JsonPropertyName("voxel_size_mm")] public double[] VoxelSizeMm { get; init; } = [];
+    [JsonPropertyName("affine")] public double[][] Affine { get; init; } = [];
+    /// <summary>The image set's pixel size, µm (its manifest or --pixel-size).</summary>
+    [JsonPropertyName("pixel_size_um")] public double PixelSizeUm { get; init; }
+    [JsonPropertyName("bit_depth")] public int BitDepth { get; init; }
+    [JsonPropertyName("channel")] public string Channel { get; init; } = "";
+    [JsonPropertyName("interpolation")] public string Interpolation { get; init; } = "";
+    [JsonPropertyName("fill")] public string Fill { get; init; } = "";
+    /// <summary>Sections the build placed that the image set has no image for; their planes were filled as gaps.</summary>
+    [JsonPropertyName("missing_sections")] public List<int> MissingSections { get; init; } = [];
+    [JsonPropertyName("warnings")] public List<string> Warnings { get; init; } = [];
+    [JsonPropertyName("sections")] public List<AppliedSectionRecord> Sections { get; init; } = [];
+}
+
+/// <summary>One section of an applied volume.</summary>
+public sealed record AppliedSectionRecord
+{
+    [JsonPropertyName("number")] public int Number { get; init; }
+    [JsonPropertyName("file")] public string? File { get; init; }
+    /// <summary>aligned or placed (drawn), gap (no placement or no image), excluded or failed.</summary>
+    [JsonPropertyName("status"), JsonConverter(typeof(SidecarWords.StatusConverter))] public SectionOutcome Status { get; init; }
+    [JsonPropertyName("z_index")] public int ZIndex { get; init; }
+    /// <summary>This image's pixel size over the one the placement was stored for (2 = half as many pixels across).</summary>
+    [JsonPropertyName("pixel_ratio")] public double? PixelRatio { get; init; }
+    [JsonPropertyName("matrix")] public double[][]? Matrix { get; init; }
+    [JsonPropertyName("filled")] public string? Filled { get; init; }
+    [JsonPropertyName("filled_from")] public int[]? FilledFrom { get; init; }
+}
+
+/// <summary>An applied volume (intensities in the image set's own units), its record and the image set's bit depth.</summary>
+public sealed record ApplyResult(Volume Volume, ApplyRecord Record, int InputBitDepth);
+
+/// <summary>
+/// Another image set of the same sections (another stain or channel, another export size) drawn through the placements a
+/// build stored in its sidecar, into the same grid and affine as the build's volume. Nothing is registered again.
+/// </summary>
+public static class ApplyStage
+{
+    /// <summary>
+    /// Matches the image set's sections to the sidecar's by number, scales each stored matrix (full-resolution input
+    /// pixels → (i, j)) to the image set's pixel size, and draws them with the build's render
+    /// (<see cref="RenderStage.RenderPlaced"/>): the same interpolation, gap fill and plane resampling the sidecar records.
+    /// A section the build placed but the image set lacks is a gap, filled from its neighbours as the build fills gaps.
+    /// </summary>
+    /// <param name="sidecarPath">The sidecar's path, for messages and the record.</param>
+    /// <param name="channel">How colour images become gray.</param>
+    /// <param name="createdUtc">The run's time, for the record.</param>
+    public static ApplyResult Apply(BuildRecord build, string sidecarPath, SectionSeries other, ISectionImages images, GrayChannel channel,
+        DateTime createdUtc, IProgress<string>? progress = null)
+    {
+        var (nx, ny, _, affine) = SidecarFile.Geometry(build, sidecarPath);
+        var parameters = build.Parameters;
+        if (!(parameters.OutputPixelSizeUm > 0) || !(build.SpacingUm > 0) || build.Sections.Count == 0)
+            throw new InputProblemException(sidecarPath, "the sidecar has no output pixel size, section spacing or sections",
+                "give the .json written beside the volume by 'stackbuild build', unedited");
+        var byNumber = other.Sections.ToDictionary(s => s.Number);
+        var sections = new List<RenderedSection>();
+        var missing = new List<int>();
+        var fieldMismatch = new List<(int Number, double Share)>();
+        foreach (var stored in build.Sections.OrderBy(s => s.Number))
+        {
+            byNumber.TryGetValue(stored.Number, out var entry);
+            bool placed = stored.Status is SectionOutcome.Aligned or SectionOutcome.Placed && stored.Matrix is not null;
+            bool hasImage = entry is { Status: SectionStatus.Present, Image: not null };
+            if (placed && !hasImage) missing.Add(stored.Number);
+            entry ??= new SectionEntry(stored.Number, null, stored.PositionUm, other.PixelSizeUm, SectionStatus.Gap, null, false, "", null);
+            if (!placed || !hasImage)
+            {
+                var status = placed ? SectionOutcome.Gap : stored.Status;
+                sections.Add(new RenderedSection(entry, null, stored.ZIndex, status, null));
+                continue;
+            }
+            double storedUm = stored.PixelSizeUm ?? build.InputPixelSizeUm;
+            if (OtherField(stored, storedUm, entry) is { } field) fieldMismatch.Add(field);
+            var imageToPlane = ScaledMatrix(Transform2D.FromRows(stored.Matrix!), entry.PixelSizeUm / storedUm);
+            sections.Add(new RenderedSection(entry, null, stored.ZIndex, stored.Status, imageToPlane));
+        }
+        var placedNumbers = build.Sections.Where(s => s.Matrix is not null).Select(s => s.Number).ToHashSet();
+        var unplaced = other.Present.Select(s => s.Number).Where(n => !placedNumbers.Contains(n)).ToList();
+        if (!sections.Any(s => s.ImageToPlane is not null))
+            throw new InputProblemException(other.ManifestPath ?? other.Folder,
+                $"none of its sections has a placement in {Path.GetFileName(sidecarPath)} (the build placed sections {SectionNumbers.Runs(placedNumbers.Order())})",
+                "give the images of the same sections, numbered as the build's were (or a manifest that numbers them)");
+
+        int bits = sections.Where(s => s.ImageToPlane is not null).Max(s => s.Entry.Image!.BitsPerChannel);
+        double maxValue = bits > 8 ? 65535 : 255;
+        int planes = build.Sections.Max(s => s.ZIndex) + 1;
+        var resampling = parameters.PlaneResampling;
+        var fill = build.Aligned ? parameters.Fill : GapFill.None;
+        var settings = new RenderSettings(parameters.OutputPixelSizeUm, maxValue, channel, parameters.Interpolation, fill,
+            build.SpacingUm, resampling?.ToUm);
+        // The grid at the section spacing: the stored affine's k column, undone from any resampling along the stack.
+        var atSections = resampling is { } r ? ScaleK(affine, r.FromUm / r.ToUm) : affine;
+        var rendered = RenderStage.RenderPlaced(sections, new Volume(nx, ny, planes, atSections), settings, images, progress);
+        var volume = rendered.Volume;
+        if (volume.Nz != build.Dimensions[2])
+            throw new InputProblemException(sidecarPath, $"its sections give {volume.Nz} planes, but it says the volume has {build.Dimensions[2]}",
+                "give the .json written beside the volume by 'stackbuild build', unedited");
+        volume.Affine = affine; // the build's affine exactly, not one rebuilt through the resampling's scale
+
+        var warnings = new List<string>(other.Warnings);
+        if (missing.Count > 0)
+            warnings.Add($"no image for section{(missing.Count == 1 ? "" : "s")} {SectionNumbers.Runs(missing)} (placed in the build); " +
+                (fill == GapFill.None ? "left empty" : "filled from the neighbouring sections"));
+        if (fieldMismatch.Count > 0)
+        {
+            var worst = fieldMismatch.MaxBy(f => Math.Abs(f.Share - 1));
+            warnings.Add(string.Format(CultureInfo.InvariantCulture,
+                "the images of section{0} {1} cover another field than the build's (section {2}: {3:0.###} times as wide at the pixel sizes given); check the pixel size (--pixel-size or the manifest) and that the images were exported whole",
+                fieldMismatch.Count == 1 ? "" : "s", SectionNumbers.Runs(fieldMismatch.Select(f => f.Number)), worst.Number, worst.Share));
+        }
+        if (unplaced.Count > 0)
+            warnings.Add($"section{(unplaced.Count == 1 ? "" : "s")} {SectionNumbers.Runs(unplaced)} of the image set {(unplaced.Count == 1 ? "has" : "have")} no placement in the build and {(unplaced.Count == 1 ? "was" : "were")} left out");
+        var record = new ApplyRecord
+        {
+            Version = BuildPipeline.Version,
+            Created = createdUtc.ToString("yyyy-MM-ddTHH:mm:ssZ", CultureInfo.InvariantCulture),
+            PlacementsFrom = Path.GetFullPath(sidecarPath),
+            Images = other.ManifestPath ?? other.Folder,
+            Dimensions = [volume.Nx, volume.Ny, volume.Nz],
+            VoxelSizeMm = [affine.VoxelSizes.I, affine.VoxelSizes.J, affine.VoxelSizes.K],
+            Affine = affine.ToRows(),
+            PixelSizeUm = other.PixelSizeUm,
+            BitDepth = bits,
+            Channel = channel.ToString().ToLowerInvariant(),
+            Interpolation = parameters.Interpolation.ToString().ToLowerInvariant(),
+            Fill = fill.ToString().ToLowerInvariant(),
+            MissingSections = missing,
+            Warnings = warnings,
+            Sections = rendered.Sections.Select(s => new AppliedSectionRecord
+            {
+                Number = s.Entry.Number,
+                File = s.Entry.FilePath is { } f ? Path.GetFileName(f) : null,
+                Status = s.Status,
+                ZIndex = s.Plane,
+                PixelRatio = s.ImageToPlane is null ? null : s.Entry.PixelSizeUm / (build.Sections.First(b => b.Number == s.Entry.Number).PixelSizeUm ?? build.InputPixelSizeUm),
+                Matrix = s.ImageToPlane?.ToRows(),
+                Filled = s.Filled?.ToString().ToLowerInvariant(),
+                FilledFrom = s.FilledFrom,
+            }).ToList(),
+        };
+        return new ApplyResult(volume, record, bits);
+    }
+
+    /// <summary>
+    /// Opens the other image set with the series reader's own rules (file-name numbering, or its manifest), its pixel
+    /// size from <paramref name="options"/>, its manifest or its files, as <c>build</c> finds it. The section spacing is
+    /// the build's: the planes come from the sidecar, so the other set need not state it.
+    /// </summary>
+    public static SectionSeries OpenImages(string folderOrManifest, BuildRecord build, SeriesOptions options) =>
+        SeriesReader.Open(folderOrManifest, options with { SpacingUm = options.SpacingUm ?? (build.SpacingUm > 0 ? build.SpacingUm : null) });
+
+    /// <summary>
+    /// How many times as wide the other image's field is as the one the build read (pixels × pixel size), when the two
+    /// differ by more than <see cref="FieldTolerance"/> or a pixel; null when they agree or the sidecar did not record the size.
+    /// </summary>
+    private static (int Number, double Share)? OtherField(SectionRecord stored, double storedUm, SectionEntry other)
+    {
+        if (stored.ImageSizePx is not [int width, int height] || width <= 0 || height <= 0 || other.Image is not { } facts) return null;
+        double share = facts.Width * other.PixelSizeUm / (width * storedUm);
+        double shareY = facts.Height * other.PixelSizeUm / (height * storedUm);
+        double slack = FieldTolerance + 1.0 / Math.Min(width, height);
+        return Math.Abs(share - 1) > slack || Math.Abs(shareY - 1) > slack ? (stored.Number, Math.Abs(share - 1) >= Math.Abs(shareY - 1) ? share : shareY) : null;
+    }
+
+    /// <summary>Share by which another image set's field may differ from the build's before apply warns (an export's rounding).</summary>
+    public const double FieldTolerance = 0.02;
+
+    /// <summary>
+    /// A stored map from one image's pixels to the plane, re-expressed for an image of the same field whose pixels are
+    /// <paramref name="ratio"/> times as large (pixel edges kept, as a scanner's export at another size keeps them).
+    /// </summary>
+    public static Transform2D ScaledMatrix(Transform2D storedToPlane, double ratio) =>
+        Resampler.EdgeAlignedScale(ratio).Then(storedToPlane);
+
+    private static Affine ScaleK(Affine a, double factor) =>
+        Affine.FromRows([a[0, 0], a[0, 1], a[0, 2] * factor, a[0, 3]], [a[1, 0], a[1, 1], a[1, 2] * factor, a[1, 3]],
+            [a[2, 0], a[2, 1], a[2, 2] * factor, a[2, 3]]);
+}
