@@ -113,7 +113,7 @@ public static class MirrorParity
         var blockBefore = new double[count]; // best block ending at or after i (sections 0..b−1 turned, b > i)
         var blockAfter = new double[count];  // best block starting at or before i (sections b..n−1 turned, b ≤ i)
         for (int b = 1; b < count; b++) { before += Turn(b - 1); blockBefore[b - 1] = crossing[b] + before; }
-        if (count > 0) blockBefore[count - 1] = before + Turn(count - 1); // the whole stack turned over: the prior alone
+        if (count > 0) blockBefore[count - 1] = before + Turn(count - 1); // the whole stack turned over: the prior and the votes alone
         for (int i = count - 2; i >= 0; i--) blockBefore[i] = Math.Min(blockBefore[i], blockBefore[i + 1]);
         for (int i = 0; i < count; i++)
             blockAfter[i] = i == 0 ? after[0] : Math.Min(blockAfter[i - 1], crossing[i] + after[i]);
@@ -128,6 +128,7 @@ public static class MirrorParity
             .Select(kv => kv.Key).OrderBy(k2 => k2.Moving).ThenBy(k2 => k2.Fixed).ToList();
         return new ParityResult(flipped, margin, overruled);
     }
+
     /// <summary>Per section and side (0 face up, 1 face down): the face-up prior plus the template's vote for that side.</summary>
     private static double[,] Unary(int count, IReadOnlyList<SideVote?>? votes, bool templateMirrored)
     {
