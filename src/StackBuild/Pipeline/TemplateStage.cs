@@ -50,7 +50,7 @@ public static class TemplateStage
             Unanchored: chain[n].Route != LinkRoute.Failed && chain[n].Part != 0,
             SideUncertain: sideMargin is not null && sideMargin[n] < MirrorParity.UncertainMargin,
             // The link's error from its two routes' disagreement (each route errs; the difference has √2 times their spread).
-            LinkErrorPx: chain[n].AnyRouteDisagreement is double d ? d / Math.Sqrt(2) : null, Scratch: scratch?[n])).ToList()));
+            LinkErrorPx: chain[n].AnyRouteDisagreement is double d ? d / Math.Sqrt(2) : null, Scratch: scratch?[n])).ToList(), GuideOptions));
         var planeToWork = Transform2D.Scale(template.PixelWidthMm * 1000 / workUm, template.PixelHeightMm * 1000 / workUm);
         // A section the chain could not place takes its own template match when the guide accepted it (route 'template').
         var fused = chain.Select((c, n) => c.Route == LinkRoute.Failed
@@ -103,6 +103,9 @@ public static class TemplateStage
         return new TemplateSlices(z, slices, sliceToPlane, firstPlane, direction);
     }
 
+    /// <summary>The guide's settings (the build uses the defaults).</summary>
+    private static readonly TemplateGuideOptions GuideOptions = new();
+
     /// <summary>Sections spread over the stack whose template matches say how the series' face up looks on the template.</summary>
     public const int SideVoteSample = 12;
 
@@ -129,7 +132,8 @@ public static class TemplateStage
         int count = Math.Min(SideVoteSample, with.Count);
         for (int t = 0; t < count; t++) chosen.Add(with[(int)Math.Round((t + 0.5) * with.Count / count - 0.5)]);
         progress?.Report($"template: {chosen.Count} sections matched from scratch for which side is up");
-        var options = new TemplateRegistrationOptions { MeasureOtherMirror = true };
+        // The guide's own registration settings, so that the guide can reuse these matches as its searches from scratch.
+        var options = GuideOptions.Registration with { MeasureOtherMirror = true };
         var matches = new TemplateMatch?[sections.Count];
         Parallel.ForEach(chosen, new ParallelOptions { MaxDegreeOfParallelism = Environment.ProcessorCount },
             n => matches[n] = TemplateRegistration.Register(sections[n].Image, slices.Slices[n]!, null, options));
@@ -140,7 +144,7 @@ public static class TemplateStage
     public static SideVote? SideVoteOf(TemplateMatch m)
     {
         double best = m.Similarity, other = m.OtherMirrorSimilarity ?? best;
-        if (Math.Max(best, other) < new TemplateGuideOptions().MinSimilarity) return null;
+        if (Math.Max(best, other) < GuideOptions.MinSimilarity) return null;
         double lead = SideVoteWeight * (best - other) / Math.Max(best, other);
         return m.Mirrored ? new SideVote(0, lead) : new SideVote(lead, 0);
     }
