@@ -213,6 +213,11 @@ public sealed record SectionTemplateRecord
     [JsonPropertyName("note")] public string? Note { get; init; }
     /// <summary>True when the section was placed by its own template match alone, not by the neighbour chain (the note says why).</summary>
     [JsonPropertyName("placed_by_template")] public bool PlacedByTemplate { get; init; }
+    /// <summary>
+    /// True when the section was left out because nothing placed it: its part of the chain is linked to the rest by no
+    /// confident neighbour match, and no template match in that part was accepted (the note says why); null otherwise.
+    /// </summary>
+    [JsonPropertyName("part_unplaced")] public bool? PartUnplaced { get; init; }
     /// <summary>True when the template's corrections step at this section: the chain link from the section before is likely wrong.</summary>
     [JsonPropertyName("chain_step")] public bool ChainStep { get; init; }
     /// <summary>

@@ -33,9 +33,13 @@ public static class RecordStage
         warnings.AddRange(placements.Warnings);
         warnings.AddRange(grid.Warnings);
         warnings.AddRange(rendered.Warnings);
-        int failed = records.Count(r => r.Status == SectionOutcome.Failed);
-        if (failed > 0) warnings.Add($"{failed} section(s) could not be matched to a neighbour and were left out (status 'failed' in the sidecar): " +
-            string.Join(", ", records.Where(r => r.Status == SectionOutcome.Failed).Select(r => r.Number.ToString(CultureInfo.InvariantCulture))));
+        var unmatched = records.Where(r => r.Status == SectionOutcome.Failed && r.Template?.PartUnplaced != true).ToList();
+        if (unmatched.Count > 0) warnings.Add($"{unmatched.Count} section(s) could not be matched to a neighbour and were left out (status 'failed' in the sidecar): " +
+            string.Join(", ", unmatched.Select(r => r.Number.ToString(CultureInfo.InvariantCulture))));
+        var lost = records.Where(r => r.Template?.PartUnplaced == true).ToList();
+        if (lost.Count > 0) warnings.Add($"{lost.Count} section(s) lie in a part of the stack that no confident neighbour match links to the rest, and their " +
+            "template matches could not place that part either, so they were left out (status 'failed', template.part_unplaced in the sidecar): " +
+            string.Join(", ", lost.Select(r => r.Number.ToString(CultureInfo.InvariantCulture))));
 
         var affine = rendered.Volume.Affine;
         var sizes = affine.VoxelSizes;
@@ -164,7 +168,9 @@ public static class RecordStage
             }).ToList(),
         };
         if (r.Status == SectionOutcome.Failed)
-            return record with { Note = Join(record.Note, "no confident match with a neighbour; plane left empty") };
+            return record with { Note = Join(record.Note, record.Template?.PartUnplaced == true
+                ? "its part of the stack could be placed neither by the neighbours nor by the template; plane left empty"
+                : "no confident match with a neighbour; plane left empty") };
         if (r.ImageToPlane is not { } imageToPlane) return record;
         var chainBefore = placements.ChainBefore;
         return record with
@@ -216,8 +222,9 @@ public static class RecordStage
             ResidualUm = p.ResidualPx * workUm,
             ResidualDegrees = p.ResidualDegrees,
             Outlier = p.Outlier ? p.Reason ?? "outlier" : null,
-            Note = p.PlacedByTemplate || (!p.Outlier && p.Measured is null) ? p.Reason : null,
+            Note = p.PlacedByTemplate || p.Unplaced || (!p.Outlier && p.Measured is null) ? p.Reason : null,
             PlacedByTemplate = p.PlacedByTemplate,
+            PartUnplaced = p.Unplaced ? true : null,
             ChainStep = t.Guide.ChainSteps?.Contains(n) == true,
             // Nothing was corrected for a section left out; one placed by its own match was moved all the way to it.
             CorrectionUm = chain[n].Route == LinkRoute.Failed ? null

@@ -45,18 +45,21 @@ public static class TemplateStage
         slices ??= Slice(plan, sections, progress)!;
         var (z, sliceToPlane, firstPlane, direction) = (slices.Z, slices.SliceToPlane, slices.FirstPlane, slices.Direction);
         progress?.Report("template: matching sections to their slices");
+        var (across, acrossError) = Boundaries(chain);
         var guide = TemplateGuide.Place(new TemplateGuideInput(sections.Sections.Select((w, n) => new TemplateGuideSection(
-            z[n], w.Image, chain[n].ToReference, slices.Slices[n], PartEdge(chain, n) ? 0 : chain[n].Pair?.Confidence ?? 1, ChainFailed: chain[n].Route == LinkRoute.Failed,
+            z[n], w.Image, chain[n].ToReference, slices.Slices[n], across[n], OwnLinkConfidence: chain[n].Pair?.Confidence ?? 1,
+            ChainFailed: chain[n].Route == LinkRoute.Failed,
             Unanchored: chain[n].Route != LinkRoute.Failed && chain[n].Part != 0,
             SideUncertain: sideMargin is not null && sideMargin[n] < MirrorParity.UncertainMargin,
-            // The link's error from its two routes' disagreement (each route errs; the difference has √2 times their spread).
-            LinkErrorPx: chain[n].AnyRouteDisagreement is double d ? d / Math.Sqrt(2) : null, Scratch: scratch?[n])).ToList(), GuideOptions));
+            LinkErrorPx: acrossError[n], Scratch: scratch?[n])).ToList(), GuideOptions));
         var planeToWork = Transform2D.Scale(template.PixelWidthMm * 1000 / workUm, template.PixelHeightMm * 1000 / workUm);
-        // A section the chain could not place takes its own template match when the guide accepted it (route 'template').
+        // A section the chain could not place takes its own template match when the guide accepted it (route 'template'); one
+        // in a part of the chain that neither the chain nor the template could put anywhere is left out (route 'failed').
         var fused = chain.Select((c, n) => c.Route == LinkRoute.Failed
             ? guide.Sections[n].PlacedByTemplate
                 ? new ChainPlacement(guide.Sections[n].SectionToSlice.Then(sliceToPlane).Then(planeToWork), LinkRoute.Template, -1, null, null, 0)
                 : c
+            : guide.Sections[n].Unplaced ? c with { Route = LinkRoute.Failed, LinkedTo = -1 }
             : c with { ToReference = guide.Sections[n].SectionToSlice.Then(sliceToPlane).Then(planeToWork) }).ToList();
         var before = chain.Select((c, n) => c.Route == LinkRoute.Failed ? c
             : c with { ToReference = guide.Sections[n].ChainToSlice.Then(sliceToPlane).Then(planeToWork) }).ToList();
@@ -147,6 +150,41 @@ public static class TemplateStage
         if (Math.Max(best, other) < GuideOptions.MinSimilarity) return null;
         double lead = SideVoteWeight * (best - other) / Math.Max(best, other);
         return m.Mirrored ? new SideVote(0, lead) : new SideVote(lead, 0);
+    }
+
+    /// <summary>
+    /// For each section, the chain across the boundary between it and the placed section before it in stack order: the lowest
+    /// confidence and the largest likely error (working pixels, from the link's two routes' disagreement: each route errs, the
+    /// difference has √2 times their spread; null when unknown) of the pair links that cross that boundary (each section's
+    /// link to the one it was registered to). Below the reference a section is registered to the one after it, so its own
+    /// link describes the boundary after it, not before (taken as the boundary before, a weak link 17 → 19 made the template
+    /// guide split the stack between 16 and 17 and move 17 with the wrong side: the whole head, seed 1, 4.7 px). Confidence 0
+    /// where a new part of the chain begins; 1 for the first placed section and for sections the chain did not place.
+    /// </summary>
+    internal static (double[] Confidence, double?[] ErrorPx) Boundaries(IReadOnlyList<ChainPlacement> chain)
+    {
+        var confidence = new double[chain.Count];
+        var error = new double?[chain.Count];
+        int previous = -1;
+        for (int n = 0; n < chain.Count; n++)
+        {
+            confidence[n] = 1;
+            if (chain[n].Route == LinkRoute.Failed) continue;
+            if (previous >= 0)
+            {
+                if (PartEdge(chain, n)) confidence[n] = 0;
+                for (int j = 0; j < chain.Count; j++)
+                {
+                    var c = chain[j];
+                    if (c.Route == LinkRoute.Failed || c.LinkedTo < 0) continue;
+                    if (!((j <= previous && c.LinkedTo >= n) || (j >= n && c.LinkedTo <= previous))) continue;
+                    confidence[n] = Math.Min(confidence[n], c.Pair?.Confidence ?? 1);
+                    if (c.AnyRouteDisagreement is double d) error[n] = Math.Max(error[n] ?? 0, d / Math.Sqrt(2));
+                }
+            }
+            previous = n;
+        }
+        return (confidence, error);
     }
 
     /// <summary>True where section <paramref name="n"/> belongs to another part of the chain than the placed section before it.</summary>

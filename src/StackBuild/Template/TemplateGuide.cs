@@ -9,7 +9,11 @@ namespace StackBuild.Template;
 /// <param name="ToReference">Section working pixels to the reference frame's working pixels, from the neighbour chain.</param>
 /// <param name="Slice">The template slice at <paramref name="Z"/>, at the working pixel size; null when the template does not reach it.
 /// All slices must share one pixel frame (cut from one template at one pixel size).</param>
-/// <param name="ChainConfidence">Confidence of the chain link from this section to the previous one (1 for the first).</param>
+/// <param name="ChainConfidence">How far the chain can be trusted across the boundary between this section and the previous one
+/// (the confidence of the weakest pair link crossing it; 1 for the first): where the stack is split into separately
+/// corrected stretches.</param>
+/// <param name="OwnLinkConfidence">Confidence of the pair link that placed this section (to whichever neighbour); null = the
+/// same as <paramref name="ChainConfidence"/>. A section hanging on a weak link of its own is searched from scratch.</param>
 /// <param name="ChainFailed">The chain could not place the section (<paramref name="ToReference"/> means nothing); it is
 /// searched on its slice from scratch and placed by that match alone when the match is as good as its neighbours'.</param>
 /// <param name="LinkErrorPx">How far off the chain link from this section to the one before may be (working pixels, one standard
@@ -25,7 +29,12 @@ namespace StackBuild.Template;
 /// <param name="Scratch">The section's match to its slice searched from scratch, when one was already made (for the side
 /// decision); used instead of searching again.</param>
 public sealed record TemplateGuideSection(double Z, GrayImage? Image, Transform2D ToReference, GrayImage? Slice, double ChainConfidence = 1,
-    bool ChainFailed = false, double? LinkErrorPx = null, bool Unanchored = false, bool SideUncertain = false, TemplateMatch? Scratch = null);
+    bool ChainFailed = false, double? LinkErrorPx = null, bool Unanchored = false, bool SideUncertain = false, TemplateMatch? Scratch = null,
+    double? OwnLinkConfidence = null)
+{
+    /// <summary>Confidence of the link that placed this section.</summary>
+    public double OwnConfidence => OwnLinkConfidence ?? ChainConfidence;
+}
 
 public sealed record TemplateGuideOptions
 {
@@ -90,14 +99,18 @@ public sealed record TemplateGuideInput(IReadOnlyList<TemplateGuideSection> Sect
 /// <param name="Measured">The section's own template match, or null (gap, no slice, or not registered).</param>
 /// <param name="ResidualPx">Distance at the section centre between the measurement and the chain placement, slice pixels.</param>
 /// <param name="ResidualDegrees">Angle of the measurement relative to the chain placement.</param>
-/// <param name="DeviationPx">Distance of the measured correction from the local median course (what outliers are judged by).</param>
-/// <param name="CorrectionDegrees">Rotation applied to the chain placement, about the section centre.</param>
-/// <param name="CorrectionX">Shift applied at the section centre, slice pixels.</param>
+/// <param name="DeviationPx">Distance of the measured correction from the local course (what outliers are judged by), at the
+/// stack's common pivot.</param>
+/// <param name="CorrectionDegrees">Rotation applied to the chain placement.</param>
+/// <param name="CorrectionX">How far the correction moves the section centre, slice pixels.</param>
 /// <param name="PlacedByTemplate">True when the section was placed by its own template match alone (searched from scratch),
 /// not by the chain; <paramref name="Reason"/> then says why.</param>
+/// <param name="Unplaced">True when nothing placed the section: it lies in a part of the chain that nothing links to the
+/// reference (<see cref="TemplateGuideSection.Unanchored"/>) and no template match in that part was accepted, so where the
+/// part lies is unknown; <paramref name="Reason"/> says so.</param>
 public sealed record TemplateSectionPlacement(int Index, Transform2D SectionToSlice, Transform2D ChainToSlice, Transform2D? Measured,
     double? Similarity, double Confidence, double? ResidualPx, double? ResidualDegrees, double? DeviationPx, double? DeviationDegrees,
-    bool Outlier, string? Reason, double CorrectionDegrees, double CorrectionX, double CorrectionY, bool PlacedByTemplate = false);
+    bool Outlier, string? Reason, double CorrectionDegrees, double CorrectionX, double CorrectionY, bool PlacedByTemplate = false, bool Unplaced = false);
 
 /// <param name="ReferenceToSlice">The one rigid map from the reference frame onto the template slices' frame.</param>
 /// <param name="GlobalAgreement">Fraction of the globally searched sections that agreed with the chosen map.</param>
@@ -142,8 +155,12 @@ public static class TemplateGuide
         Parallel.ForEach(usable, i => measured[i] = TemplateRegistration.Register(sections[i].Image!, sections[i].Slice!,
             sections[i].Unanchored ? null : chain[i], options.Registration));
 
-        // The correction each measurement asks for: rotation about the section centre (as the chain places it) and a shift there.
+        // The correction each measurement asks for: a rotation about one pivot common to the whole stack and the shift of that
+        // pivot. One pivot for all, because these numbers are smoothed from section to section: a turn about each section's own
+        // centre would mean another map for every section wherever the sections lie at different places on their slides, and
+        // a smooth course of turns of ~10° about centres 50 px apart put neighbours 5–9 px apart (natbrainlab, seed 1).
         var angle = new double[n]; var dx = new double[n]; var dy = new double[n];
+        (double X, double Y) pivot = (0, 0);
         var reason = new string?[n];
         var candidate = new bool[n];
         Corrections();
@@ -156,13 +173,16 @@ public static class TemplateGuide
 
         void Corrections()
         {
+            // The pivot: the median of where the chain puts the section centres (near the tissue's middle on the slices).
+            var placedCentres = usable.Select(i => chain[i].Apply(centres[i].Item1, centres[i].Item2)).ToList();
+            pivot = placedCentres.Count == 0 ? (0, 0) : (Median(placedCentres.Select(c => c.X)), Median(placedCentres.Select(c => c.Y)));
             foreach (int i in usable)
             {
                 var m = measured[i]!;
-                var (qx, qy) = chain[i].Apply(centres[i].Item1, centres[i].Item2);
-                var (mx, my) = m.SectionToSlice.Apply(centres[i].Item1, centres[i].Item2);
+                // chain placement → measured placement, a map of the slice onto itself; where it takes the pivot.
+                var (kx, ky) = chain[i].Inverse().Then(m.SectionToSlice).Apply(pivot.X, pivot.Y);
                 angle[i] = AngleDifference(m.SectionToSlice.RotationDegrees, chain[i].RotationDegrees);
-                dx[i] = mx - qx; dy[i] = my - qy;
+                dx[i] = kx - pivot.X; dy[i] = ky - pivot.Y;
                 reason[i] = null; candidate[i] = false;
                 if (m.Mirrored != chain[i].IsMirrored) reason[i] = "the template match is mirrored against the chain";
                 else if (m.Similarity < options.MinSimilarity) reason[i] = $"similarity {m.Similarity:0.###} below {options.MinSimilarity:0.###}";
@@ -217,7 +237,7 @@ public static class TemplateGuide
         // from scratch; a match as good as its neighbours' and clearly better than the one near the chain placement
         // places it alone (a wrong mirror or turn from a torn section's weak pair registration is undone this way).
         var rescue = new TemplateMatch?[n];
-        var retry = usable.Where(i => !candidate[i] || sections[i].ChainConfidence < options.RescueChainConfidence || sections[i].SideUncertain).Concat(orphans).ToList();
+        var retry = usable.Where(i => !candidate[i] || sections[i].OwnConfidence < options.RescueChainConfidence || sections[i].SideUncertain).Concat(orphans).ToList();
         Parallel.ForEach(retry, i => rescue[i] = sections[i].Scratch ?? TemplateRegistration.Register(sections[i].Image!, sections[i].Slice!, null, options.Registration));
         // An unplaced section is judged against its neighbours' matches whichever way they were found: where the chain
         // failed over a whole stretch, the other unplaced sections' matches from scratch are its neighbours' matches.
@@ -254,7 +274,14 @@ public static class TemplateGuide
             // (a nearly symmetric specimen always has the other mirror close behind in the search from scratch).
             // Where the pairs could not tell the side, the template's side wins whenever its match is the better one.
             bool sideByTemplate = sections[i].SideUncertain && rescue[i]!.Mirrored != chain[i].IsMirrored && found > own;
-            if (found >= options.RescueSimilarityShare * local && (found >= options.RescueMargin * own || sideByTemplate))
+            // The side was decided for the whole stack from every pair and the template's votes together (MirrorParity); a
+            // match from scratch turns it over only where the chain had little to say: the pairs could not tell the side, or
+            // the link itself is weak. (A strongly linked end section whose template match near the chain placement was set
+            // aside found the other mirror 1.7× better from scratch, and was wrong: natbrainlab, seed 1, its last sections.)
+            bool flips = rescue[i]!.Mirrored != chain[i].IsMirrored;
+            bool mayFlip = sections[i].SideUncertain || sections[i].OwnConfidence < options.RescueChainConfidence;
+            if (flips && !mayFlip) rescue[i] = null;
+            else if (found >= options.RescueSimilarityShare * local && (found >= options.RescueMargin * own || sideByTemplate))
                 reason[i] = $"placed by its own template match (similarity {found:0.###}, neighbours' median {local:0.###}; near the chain placement {own:0.###}" +
                     (rescue[i]!.Mirrored != chain[i].IsMirrored ? ", mirrored against the chain" : "") + ")" +
                     (sideByTemplate && found < options.RescueMargin * own ? "; its neighbours could not tell which side is up, the template decided" : "");
@@ -264,6 +291,17 @@ public static class TemplateGuide
         // (d) Fuse: the smoothed correction applied to the chain placement.
         var weight = new double[n];
         foreach (int i in usable) if (candidate[i] && rescue[i] is null) weight[i] = 1;
+        // A step found in the matches whose every match past it was then set aside has nothing left to show it: the part past
+        // it keeps the course before it instead of starting afresh with no correction at all (natbrainlab, seed 1: its last
+        // three sections, a step seen at the first, all three set aside, were left uncorrected 21 px off).
+        foreach (int s in steps.Order().ToList())
+        {
+            if (s == 0 || segment[s] == segment[s - 1]) continue;
+            int id = segment[s];
+            if (Enumerable.Range(s, n - s).Where(i => segment[i] == id).Any(i => weight[i] > 0)) continue;
+            for (int i = s; i < n && segment[i] == id; i++) segment[i] = segment[s - 1];
+            steps.Remove(s);
+        }
         var sa = Smooth(angle, weight, segment, half); var sx = Smooth(dx, weight, segment, half); var sy = Smooth(dy, weight, segment, half);
         if (linkPx is not null && linkDeg is not null)
         {
@@ -279,27 +317,42 @@ public static class TemplateGuide
             sy = CourseSmoother.Smooth(dy, weight, stepPx, Noise(dy, stepPx, MinPx), MinPx);
         }
         var result = new TemplateSectionPlacement[n];
+        // Parts of the chain that nothing links to the reference are placed only through their accepted template matches;
+        // a part with none lies nowhere known (a label atlas's first sections, seed 1: a part of five tiny end sections whose
+        // matches were weak or disagreed with each other was written 120 px off).
+        var measuredSegments = Enumerable.Range(0, n).Where(i => weight[i] > 0).Select(i => segment[i]).ToHashSet();
         for (int i = 0; i < n; i++)
         {
             var (qx, qy) = chain[i].Apply(centres[i].Item1, centres[i].Item2);
-            var fused = chain[i].Then(Transform2D.Rotation(sa[i], qx, qy)).Then(Transform2D.Translation(sx[i], sy[i]));
+            var fused = chain[i].Then(Transform2D.Rotation(sa[i], pivot.X, pivot.Y)).Then(Transform2D.Translation(sx[i], sy[i]));
+            // What the record reports is seen at the section's own centre: where the correction and the measurement move it.
+            var (fx, fy) = fused.Apply(centres[i].Item1, centres[i].Item2);
             if (rescue[i] is { } own)
             {
                 var (ox, oy) = own.SectionToSlice.Apply(centres[i].Item1, centres[i].Item2);
                 bool noChain = sections[i].ChainFailed;
                 result[i] = new TemplateSectionPlacement(i, own.SectionToSlice, chain[i], own.SectionToSlice, own.Similarity, own.Confidence,
                     noChain ? null : double.Hypot(ox - qx, oy - qy), noChain ? null : AngleDifference(own.SectionToSlice.RotationDegrees, chain[i].RotationDegrees),
-                    deviationPx[i], deviationDeg[i], false, reason[i], sa[i], sx[i], sy[i], PlacedByTemplate: true);
+                    deviationPx[i], deviationDeg[i], false, reason[i], sa[i], fx - qx, fy - qy, PlacedByTemplate: true);
                 continue;
             }
             var m = measured[i];
+            if (sections[i].Unanchored && !measuredSegments.Contains(segment[i]))
+            {
+                string lost = "not linked to the rest of the stack by a confident neighbour match, and no template match in its part of the stack was " +
+                              "good enough to place that part" + (m != null && reason[i] != null ? $" (its own: {reason[i]})" : "");
+                result[i] = new TemplateSectionPlacement(i, chain[i], chain[i], m?.SectionToSlice, m?.Similarity, 0, null, null,
+                    deviationPx[i], deviationDeg[i], m != null, lost, 0, 0, 0, Unplaced: true);
+                continue;
+            }
             bool outlier = m != null && !candidate[i];
             double confidence = m == null ? 0 : outlier ? 0 : m.Confidence;
             string? why = m != null ? reason[i] : sections[i].Image == null ? "gap" : sections[i].Slice == null ? "no template slice"
                 : reason[i] ?? "no confident match with a neighbour, and too few template matches nearby to place it";
+            double? residual = m == null ? null : Distance(m.SectionToSlice.Apply(centres[i].Item1, centres[i].Item2), (qx, qy));
             result[i] = new TemplateSectionPlacement(i, fused, chain[i], m?.SectionToSlice, m?.Similarity, confidence,
-                m == null ? null : double.Hypot(dx[i], dy[i]), m == null ? null : angle[i], deviationPx[i], deviationDeg[i],
-                outlier, why, sa[i], sx[i], sy[i]);
+                residual, m == null ? null : angle[i], deviationPx[i], deviationDeg[i],
+                outlier, why, sa[i], fx - qx, fy - qy);
         }
         return new TemplateGuideResult(result, referenceToSlice, referenceToSlice.IsMirrored, agreement,
             usable.Count + orphans.Count(i => rescue[i] is not null), result.Count(r => r.Outlier), [.. steps.Order()]);
@@ -505,6 +558,8 @@ public static class TemplateGuide
     }
 
     private static double AngleDifference(double a, double b) => Angles.Wrap(a - b);
+
+    private static double Distance((double X, double Y) a, (double X, double Y) b) => double.Hypot(a.X - b.X, a.Y - b.Y);
 
     private static double Median(IEnumerable<double> values)
     {

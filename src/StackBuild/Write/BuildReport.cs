@@ -85,7 +85,10 @@ public static class SectionFlags
     public static IReadOnlyList<string> Reasons(SectionRecord s, double disagreementLimitUm, double? voxelUm = null)
     {
         var reasons = new List<string>();
-        if (s.Status == SectionOutcome.Failed) reasons.Add("no confident match with a neighbour: left out of the volume");
+        if (s.Status == SectionOutcome.Failed)
+            reasons.Add(s.Template?.PartUnplaced == true
+                ? "left out of the volume: its part of the stack is linked to the rest by no confident neighbour match, and the template could not place it"
+                : "no confident match with a neighbour: left out of the volume");
         if (s.Confidence is double c && c < LowConfidence)
         {
             reasons.Add(string.Create(CultureInfo.InvariantCulture, $"low registration confidence ({c:0.00})"));

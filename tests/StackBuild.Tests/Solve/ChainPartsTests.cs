@@ -46,6 +46,30 @@ public sealed class ChainPartsTests
     }
 
     [Fact]
+    public void TheTemplateGuideSeesEachWeakLinkAtTheBoundaryItCrosses()
+    {
+        // A weak boundary (every pair across it has confidence 0.33) on each side of the reference: between 3 and 4, and
+        // between 16 and 17. Below the reference a section is registered to one after it, so section 3's own pair is the weak
+        // one; above, section 17's. Either way the boundary the guide must split at lies before section 4 and before 17.
+        static PairResult Weak(int moving, int fixedIndex)
+        {
+            var map = Transform2D.Translation(moving - fixedIndex, 0);
+            int low = Math.Min(moving, fixedIndex), high = Math.Max(moving, fixedIndex);
+            bool weak = (low <= 3 && high >= 4) || (low <= 16 && high >= 17);
+            return new PairResult(new PairHypothesis(map, false, 0, weak ? 0.5 : 0.9, 10), null, weak ? 0.33 : 0.9);
+        }
+        var chain = ChainSolver.Solve(20, Weak, Corners);
+        int reference = chain.ToList().FindIndex(c => c.Route == LinkRoute.Reference);
+        Assert.InRange(reference, 5, 15);
+        var (confidence, _) = StackBuild.Pipeline.TemplateStage.Boundaries(chain);
+        for (int n = 0; n < 20; n++)
+            Assert.Equal(n is 4 or 17 ? 0.33 : n == 0 ? 1 : 0.9, confidence[n], 9);
+        // The pair that placed section 3 is the weak one (registered to 4), while section 4's own pair is strong.
+        Assert.Equal(0.33, chain[3].Pair!.Confidence, 9);
+        Assert.Equal(0.9, chain[4].Pair!.Confidence, 9);
+    }
+
+    [Fact]
     public void ARunTooShortForAPartStaysFailed()
     {
         // Only sections 18 and 19 lie beyond the break: fewer than MinPartSections, so they are left out, not guessed.
