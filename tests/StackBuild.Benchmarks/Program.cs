@@ -12,10 +12,12 @@ public static class Program
 {
     /// <summary>Run: dotnet run -c Release --project tests/StackBuild.Benchmarks -- --filter '*' --job short</summary>
     /// <summary>The accuracy table of whole-specimen series (docs/accuracy.md): dotnet run -c Release --project tests/StackBuild.Benchmarks -- accuracy</summary>
+    /// <summary>The whole build against a general-library pipeline (docs/benchmarks.md): ... -- build-vs-library</summary>
     public static void Main(string[] args)
     {
         if (args.Length > 0 && args[0] == "accuracy") { AccuracyTable.Run(args[1..]); return; }
         if (args.Length > 0 && args[0] == "pairs") { PairDiagnosis.Run(args[1..]); return; }
+        if (args.Length > 0 && args[0] == "build-vs-library") { BuildVsLibrary.Run(args[1..]); return; }
         BenchmarkSwitcher.FromAssembly(typeof(Program).Assembly).Run(args);
     }
 }

@@ -43,6 +43,7 @@ public static class BuildCommand
         var templateReverse = new Option<bool>("--template-reverse") { Description = "Higher section numbers lie at lower template planes" };
         var templateGrid = new Option<bool>("--template-grid") { Description = "Put the volume on the template's own voxels (its voxel size and lattice, cropped to the tissue) instead of the sections' pixel size and spacing" };
         var json = new Option<bool>("--json") { Description = "Print a machine-readable summary instead of text" };
+        var verbose = new Option<bool>("--verbose") { Description = "Also print, on stderr, what each stage of the build cost: wall and CPU time, memory allocated, managed heap and peak resident memory" };
         var noAlign = new Option<bool>("--no-align") { Description = "Place the sections centred without aligning them (the series as scanned)" };
         var workSize = new Option<int>("--work-size") { Description = "Long side in pixels at which sections are registered", DefaultValueFactory = _ => 512 };
         var minConfidence = new Option<double>("--min-confidence") { Description = "Pairs below this confidence (0–1) are not trusted to place a section", DefaultValueFactory = _ => 0.2 };
@@ -64,10 +65,11 @@ public static class BuildCommand
         {
             series, output, manifest, pixelSize, spacing, axes, reference, upright, rotate, mirror, noCrop, margin, centre,
             template, templateAxis, templateFirst, templateReverse, templateGrid,
-            outPixel, voxelSize, channel, interpolation, noAlign, workSize, minConfidence, smoothing, fill, json,
+            outPixel, voxelSize, channel, interpolation, noAlign, workSize, minConfidence, smoothing, fill, json, verbose,
         };
         command.SetAction(parse => console.Guard(() =>
         {
+            var total = System.Diagnostics.Stopwatch.StartNew();
             bool Given(Option option) => parse.GetResult(option) is { Implicit: false };
             bool withTemplate = parse.GetValue(template) is not null;
             if (withTemplate && Given(axes))
@@ -124,10 +126,13 @@ public static class BuildCommand
                     CentreMm = ParsePoint(parse.GetValue(centre)!, "--centre"),
                 },
             };
-            var result = BuildReview.Review(BuildPipeline.Run(options, new SyncProgress(console)));
+            var clock = parse.GetValue(verbose) ? new StageClock() : null;
+            var built = BuildPipeline.Run(options, new SyncProgress(console), clock);
+            var result = StageClock.Time(clock, "review", () => BuildReview.Review(built));
             console.EndProgress();
-            BuildWriter.Write(result, paths);
+            StageClock.Time(clock, "write", () => { BuildWriter.Write(result, paths); return 0; });
             Report(console, result, paths, parse.GetValue(json), alignRequested: options.Align);
+            if (clock is not null) ReportStages(console, clock, total.Elapsed);
             return CliOutput.ExitOk;
         }));
         return command;
@@ -208,6 +213,24 @@ public static class BuildCommand
         foreach (var w in r.Warnings) o.WriteLine($"warning: {w}");
         if (!alignRequested)
             o.WriteLine("Note: sections were placed centred and NOT aligned (--no-align); this volume shows the series as scanned.");
+    }
+
+    /// <summary>
+    /// --verbose: one line per stage (wall and CPU seconds, allocated MB, managed heap MB at its end, peak resident MB so
+    /// far), then the whole command's wall time. CPU above wall means both cores were busy.
+    /// </summary>
+    private static void ReportStages(CliOutput console, StageClock clock, TimeSpan total)
+    {
+        var e = console.Error;
+        static string Mb(long bytes) => (bytes / 1048576.0).ToString("0", CultureInfo.InvariantCulture);
+        static string S(TimeSpan t) => t.TotalSeconds.ToString("0.00", CultureInfo.InvariantCulture);
+        e.WriteLine($"{"stage",-16} {"wall s",8} {"cpu s",8} {"alloc MB",9} {"heap MB",8} {"peak RSS MB",12}");
+        foreach (var s in clock.Stages)
+            e.WriteLine($"{s.Stage,-16} {S(s.Wall),8} {S(s.Cpu),8} {Mb(s.AllocatedBytes),9} {Mb(s.HeapBytes),8} {Mb(s.PeakResidentBytes),12}");
+        var cpu = clock.Stages.Aggregate(TimeSpan.Zero, (sum, s) => sum + s.Cpu);
+        e.WriteLine($"{"all stages",-16} {S(clock.Stages.Aggregate(TimeSpan.Zero, (sum, s) => sum + s.Wall)),8} {S(cpu),8} " +
+            $"{Mb(clock.Stages.Sum(s => s.AllocatedBytes)),9} {"",8} {Mb(clock.Stages.Max(s => s.PeakResidentBytes)),12}");
+        e.WriteLine($"command wall time {S(total)} s (from the options checked to the summary printed)");
     }
 
     internal static double? Positive(double? value, string name)

@@ -19,30 +19,40 @@ public static class BuildPipeline
     /// <summary>Most planes an output volume may have (<see cref="Volume.MaxPlanes"/>).</summary>
     public const int MaxPlanes = Volume.MaxPlanes;
 
-    /// <summary>Builds the series at <see cref="BuildOptions.Input"/> from its files.</summary>
-    public static BuildResult Run(BuildOptions options, IProgress<string>? progress = null) =>
-        Run(options, SeriesReader.Open(options.Input, options.Series), SectionFiles.Instance, progress);
+    /// <summary>
+    /// Builds the series at <see cref="BuildOptions.Input"/> from its files. With a <paramref name="clock"/>, each stage's
+    /// cost is recorded on it (opening the series is the stage "series"); the outputs are the same either way.
+    /// </summary>
+    public static BuildResult Run(BuildOptions options, IProgress<string>? progress = null, StageClock? clock = null) =>
+        Run(options, StageClock.Time(clock, "series", () => SeriesReader.Open(options.Input, options.Series)), SectionFiles.Instance, progress, clock);
 
     /// <summary>
     /// Builds an opened series whose pixels come from <paramref name="images"/> (files, or images in memory). The
     /// template, when the options name one, is read here; the record's <c>created</c> is the one field that depends on
-    /// when the build ran.
+    /// when the build ran. Every stage is timed on <paramref name="clock"/> when one is given, also those that have
+    /// nothing to do in this build (no template, not aligned), so the list of stages is always the same.
     /// </summary>
-    public static BuildResult Run(BuildOptions options, SectionSeries series, ISectionImages images, IProgress<string>? progress = null)
+    public static BuildResult Run(BuildOptions options, SectionSeries series, ISectionImages images, IProgress<string>? progress = null,
+        StageClock? clock = null)
     {
-        PlanStage.Check(options, series);
-        var template = options.Template is { } t ? TemplateVolume.Load(t.Path, t.CutAxis) : null;
-        var plan = PlanStage.Plan(options, series, template);
-        var sections = PrepareStage.Prepare(plan, images, progress);
+        var plan = StageClock.Time(clock, "plan", () =>
+        {
+            PlanStage.Check(options, series);
+            var template = options.Template is { } t ? TemplateVolume.Load(t.Path, t.CutAxis) : null;
+            return PlanStage.Plan(options, series, template);
+        });
+        var sections = StageClock.Time(clock, "prepare", () => PrepareStage.Prepare(plan, images, progress));
         bool align = options.Align && sections.Count > 1;
-        var slices = align ? TemplateStage.Slice(plan, sections, progress) : null; // null without a template
-        var pairs = align ? RegisterStage.Register(plan, sections, slices, progress) : null;
-        var placements = SolveStage.Solve(plan, sections, pairs);
-        placements = TemplateStage.PlaceOnTemplate(plan, sections, placements, slices, pairs?.SideMatches, progress);
-        var framed = FrameStage.Orient(plan, sections, placements, progress);
-        var grid = OutputGrid.Cut(GridRequestFor(plan, sections, framed));
-        var rendered = RenderStage.Render(plan, sections, framed, grid, images, progress);
-        var record = RecordStage.Record(plan, sections, framed, grid, rendered, DateTime.UtcNow);
+        var slices = StageClock.Time(clock, "template slice", () => align ? TemplateStage.Slice(plan, sections, progress) : null); // null without a template
+        var pairs = StageClock.Time(clock, "register", () => align ? RegisterStage.Register(plan, sections, slices, progress) : null);
+        // The solve may register pairs beyond the first three neighbours (PairSet.Pair): their time counts here.
+        var solved = StageClock.Time(clock, "solve", () => SolveStage.Solve(plan, sections, pairs));
+        var placements = StageClock.Time(clock, "template place",
+            () => TemplateStage.PlaceOnTemplate(plan, sections, solved, slices, pairs?.SideMatches, progress));
+        var framed = StageClock.Time(clock, "frame", () => FrameStage.Orient(plan, sections, placements, progress));
+        var grid = StageClock.Time(clock, "grid", () => OutputGrid.Cut(GridRequestFor(plan, sections, framed)));
+        var rendered = StageClock.Time(clock, "render", () => RenderStage.Render(plan, sections, framed, grid, images, progress));
+        var record = StageClock.Time(clock, "record", () => RecordStage.Record(plan, sections, framed, grid, rendered, DateTime.UtcNow));
         return new BuildResult(rendered.Volume, record, plan.InputBitDepth);
     }
 

@@ -44,7 +44,7 @@ internal sealed class PairEngine : IDisposable
     {
         double c = _fixed.Centre;
         var turn = (mirrored ? Transform2D.MirrorX(c) : Transform2D.Identity).Then(Transform2D.Rotation(degrees, c, c));
-        ImageOps.Warp(_moving.Signal, _n, turn, _warped);
+        ImageOps.Warp(_moving.Signal, _n, turn, _warped, _moving.SignalBox);
         SectionCanvas.LoadWindowed(_warped, _fixed.Window, _movingSpectrum);
         _fft.Forward(_movingSpectrum);
         var shift = PhaseCorrelation.Correlate(_fixedSpectrum, _movingSpectrum, _fft, _cross, _surface, upsample, _spectralWeight);
@@ -159,16 +159,18 @@ internal sealed class PairEngine : IDisposable
             double sx = inv.M00 * x0 + inv.M01 * y + inv.M02, sy = inv.M10 * x0 + inv.M11 * y + inv.M12;
             for (int xx = x0; xx <= x1; xx++, sx += inv.M00, sy += inv.M10)
             {
-                float wv = 0, wm = 0;
-                if (sx > -1 && sy > -1 && sx < _n && sy < _n)
+                float wv = 0, wm = 0, tx = 0, ty = 0;
+                int ix = 0, iy = 0;
+                bool onCanvas = sx > -1 && sy > -1 && sx < _n && sy < _n;
+                if (onCanvas)
                 {
-                    int ix = (int)Math.Floor(sx), iy = (int)Math.Floor(sy);
-                    float tx = (float)(sx - ix), ty = (float)(sy - iy);
-                    wv = ImageOps.Bilinear(mi, _n, ix, iy, tx, ty);
-                    wm = ImageOps.Bilinear(mm, _n, ix, iy, tx, ty);
+                    ix = (int)Math.Floor(sx); iy = (int)Math.Floor(sy);
+                    tx = (float)(sx - ix); ty = (float)(sy - iy);
+                    wm = ImageOps.BilinearFast(mm, _n, ix, iy, tx, ty);
                 }
                 int i = y * _n + xx;
-                if (fm[i] <= 0.5f && wm <= 0.5f) continue;
+                if (fm[i] <= 0.5f && wm <= 0.5f) continue; // outside both masks: the moving image is not needed here
+                if (onCanvas) wv = ImageOps.BilinearFast(mi, _n, ix, iy, tx, ty);
                 double a = f[i], b = wv;
                 sa += a; sb += b; saa += a * a; sbb += b * b; sab += a * b;
                 count++;

@@ -70,6 +70,8 @@ internal sealed class SectionCanvas
     public float[] SoftMask { get; }
     /// <summary>What phase correlation sees before the window: the image, times the soft mask when asked.</summary>
     public float[] Signal { get; }
+    /// <summary>Bounding box (inclusive) of the canvas pixels where <see cref="Signal"/> is not zero; (n, n, −1, −1) when there are none.</summary>
+    public (int X0, int Y0, int X1, int Y1) SignalBox { get; }
     /// <summary>Unshifted 2D spectrum of the windowed, mean-removed <see cref="Signal"/>.</summary>
     public Complex32[] Spectrum { get; }
     public PolarSpectrum Polar { get; }
@@ -91,6 +93,7 @@ internal sealed class SectionCanvas
         SoftMask = Place(soft, work.Width, work.Height, ox, oy, size);
         (MaskBox, TissueRadius) = Extent(SoftMask, size, Centre);
         Signal = section.UsesForegroundMask ? Image.Select((v, i) => v * SoftMask[i]).ToArray() : Image;
+        SignalBox = NonZeroBox(Signal, size);
         Window = RadialWindow(size);
         var fft = Fft2D.Create(size, size);
         using var spectrum = new ComplexImage(size, size);
@@ -139,6 +142,18 @@ internal sealed class SectionCanvas
             r2 = Math.Max(r2, (x - centre) * (x - centre) + (y - centre) * (y - centre));
         }
         return ((x0, y0, x1, y1), Math.Sqrt(r2));
+    }
+
+    private static (int, int, int, int) NonZeroBox(float[] values, int n)
+    {
+        int x0 = n, y0 = n, x1 = -1, y1 = -1;
+        for (int y = 0; y < n; y++)
+        for (int x = 0; x < n; x++)
+        {
+            if (values[y * n + x] == 0) continue;
+            x0 = Math.Min(x0, x); x1 = Math.Max(x1, x); y0 = Math.Min(y0, y); y1 = Math.Max(y1, y);
+        }
+        return (x0, y0, x1, y1);
     }
 
     private static (double X, double Y) Centroid(bool[] mask, int w, int h)

@@ -44,6 +44,41 @@ public sealed class BuildCommandTests : IDisposable
         return folder;
     }
 
+    [Theory]
+    [InlineData(false)]
+    [InlineData(true)]
+    public void VerboseBuildPrintsOneLinePerStage(bool align)
+    {
+        var series = MakeSeries();
+        var output = Path.Combine(_dir, "verbose.nii.gz");
+        var (code, _, stderr) = align ? Run("build", series, "-o", output, "--verbose") : Run("build", series, "-o", output, "--verbose", "--no-align");
+        Assert.True(code == 0, stderr);
+        var lines = stderr.Split('\n', StringSplitOptions.RemoveEmptyEntries | StringSplitOptions.TrimEntries);
+        int header = Array.FindIndex(lines, l => l.StartsWith("stage ", StringComparison.Ordinal));
+        Assert.True(header >= 0, stderr);
+        Assert.Equal(["wall", "s", "cpu", "s", "alloc", "MB", "heap", "MB", "peak", "RSS", "MB"], lines[header].Split(' ', StringSplitOptions.RemoveEmptyEntries)[1..]);
+        // Every stage, also those with nothing to do in this build, once and in the order the build runs them.
+        string[] stages = ["series", "plan", "prepare", "template slice", "register", "solve", "template place", "frame", "grid", "render", "record", "review", "write"];
+        for (int i = 0; i < stages.Length; i++)
+        {
+            var line = lines[header + 1 + i];
+            Assert.StartsWith(stages[i] + " ", line);
+            var numbers = line[stages[i].Length..].Split(' ', StringSplitOptions.RemoveEmptyEntries);
+            Assert.Equal(5, numbers.Length);
+            Assert.All(numbers, n => Assert.True(double.TryParse(n, System.Globalization.NumberStyles.Float, System.Globalization.CultureInfo.InvariantCulture, out var v) && v >= 0, line));
+        }
+        Assert.StartsWith("all stages ", lines[header + 1 + stages.Length]);
+        Assert.StartsWith("command wall time ", lines[header + 2 + stages.Length]);
+    }
+
+    [Fact]
+    public void BuildWithoutVerbosePrintsNoStages()
+    {
+        var (code, stdout, stderr) = Run("build", MakeSeries(), "-o", Path.Combine(_dir, "quiet.nii.gz"), "--no-align");
+        Assert.True(code == 0, stderr);
+        Assert.DoesNotContain("all stages", stdout + stderr);
+    }
+
     [Fact]
     public void BuildWritesVolumeWithGeometryAndSidecar()
     {
