@@ -43,7 +43,8 @@ public static class AccuracyRun
     /// <remarks>
     /// ch2's seed-1 cuts were used in development from 2026-12-03 on (docs/accuracy.md), so ch2 is held out only at other
     /// seeds; two volumes nobody had built before were added then: a macaque label atlas on the inia19 grid
-    /// (inia19-NeuroMaps, regions as grey levels) and natbrainlab (a human brain volume of another source).
+    /// (inia19-NeuroMaps, regions as grey levels) and natbrainlab (a human brain volume of another source). Their seed-1
+    /// cuts were used in development from the late evening of 2026-12-03 on, so they too are held out only at other seeds.
     /// </remarks>
     public static IReadOnlyList<AccuracyCase> HeldOutCases =>
     [
