@@ -126,7 +126,7 @@ public static class BuildCommand
             };
             var result = BuildReview.Review(BuildPipeline.Run(options, new SyncProgress(console)));
             console.EndProgress();
-            BuildWriter.Write(result, paths);
+            result = BuildWriter.Write(result, paths);
             Report(console, result, paths, parse.GetValue(json), alignRequested: options.Align);
             return CliOutput.ExitOk;
         }));

@@ -29,7 +29,10 @@ public static class InfoCommand
         command.Options.Add(json);
         command.SetAction(parse => console.Guard(() =>
         {
-            var summary = NiftiSummary.Read(parse.GetValue(file)!);
+            var path = parse.GetValue(file)!;
+            var summary = NiftiSummary.Read(path);
+            // A build's volume is shown only while it is the one its sidecar was written with.
+            StackBuild.Pipeline.SidecarFile.CheckBeside(path);
             console.Out.Write(parse.GetValue(json) ? JsonSerializer.Serialize(summary, Json) + Environment.NewLine : Text(summary));
             return CliOutput.ExitOk;
         }));
