@@ -23,9 +23,20 @@ public static class SidecarFile
                 ?? throw new InputProblemException(path, "the sidecar is empty", Remedy);
             if (record.Sections is null)
                 throw new InputProblemException(path, "the sidecar lists no sections", Remedy);
+            // Fields written as null or missing by an edit: the commands read them without asking again.
+            if (record.Parameters is null || record.Warnings is null || record.Dimensions is null || record.Affine is null || record.VoxelSizeMm is null
+                || record.Sections.Any(s => s is null || s.Pairs?.Any(p => p is null) == true))
+                throw new InputProblemException(path, "the sidecar has a field that is null or missing (parameters, warnings, dimensions, affine, voxel_size_mm or a section)", Remedy);
             foreach (var s in record.Sections)
-                if (s.Matrix is { } m && (m.Length < 2 || m.Take(2).Any(row => row is null || row.Length != 3)))
+            {
+                if (s.Matrix is not { } m) continue;
+                if (m.Length < 2 || m.Take(2).Any(row => row is null || row.Length != 3))
                     throw new InputProblemException(path, $"section {s.Number} has a matrix that is not 3×3", Remedy);
+                // A placement maps the scan onto its plane one to one; points and apply invert it.
+                var map = Transform2D.FromRows(m);
+                if (m.Take(2).SelectMany(row => row).Any(v => !double.IsFinite(v)) || !double.IsFinite(map.Determinant) || !(Math.Abs(map.Determinant) >= 1e-300))
+                    throw new InputProblemException(path, $"section {s.Number} has a matrix that cannot be inverted", Remedy);
+            }
             return record;
         }
         catch (JsonException e)
