@@ -74,6 +74,41 @@ public sealed class ReaderFuzzTests(ITestOutputHelper log) : IDisposable
             }
     }
 
+    /// <summary>The inputs the fuzzing found a failure with (tests/StackBuild.Tests/Fuzz/found), as saved when they failed.</summary>
+    public static TheoryData<string> FoundInputs() =>
+        [.. Directory.GetFiles(Path.Combine(RepositoryPaths.Root, "tests", "StackBuild.Tests", "Fuzz", "found")).Select(f => Path.GetFileName(f)!).Order(StringComparer.Ordinal)];
+
+    /// <summary>Each input the fuzzing found a failure with is now refused with one input problem naming the file, and takes little memory.</summary>
+    [Theory]
+    [MemberData(nameof(FoundInputs))]
+    public void WhatTheFuzzingFoundIsRefused(string name)
+    {
+        var path = Path.Combine(_root, name);
+        File.Copy(Path.Combine(RepositoryPaths.Root, "tests", "StackBuild.Tests", "Fuzz", "found", name), path);
+        long before = GC.GetAllocatedBytesForCurrentThread();
+        var e = Record.Exception(() =>
+        {
+            if (name.EndsWith(".json", StringComparison.Ordinal))
+            {
+                var record = SidecarFile.Read(path);
+                SidecarFile.Geometry(record, path);
+                _ = new PointMapping(record, path);
+            }
+            else
+            {
+                SectionImageReader.Identify(path);
+                SectionImageReader.ReadSection(path, new ImageReadOptions { MaxLongSide = 16 });
+            }
+        });
+        long allocated = GC.GetAllocatedBytesForCurrentThread() - before;
+        log.WriteLine($"{name}: {e?.Message} ({allocated:N0} bytes allocated)");
+        var problem = Assert.IsType<InputProblemException>(e);
+        Assert.StartsWith(path + ": ", problem.Message);
+        Assert.Contains(" — ", problem.Message);
+        Assert.DoesNotContain("System.", problem.Message);
+        Assert.True(allocated < 16 << 20, $"{allocated:N0} bytes allocated");
+    }
+
     /// <summary>Runs one stage of a case; a refusal (the project's own input problem) ends only that stage.</summary>
     private static void Stage(Action read)
     {
