@@ -55,9 +55,19 @@ internal static class TiffSectionFile
         }
         int bytesPerSample = layout.Bits / 8;
         int samplesInBuffer = layout.Planar ? 1 : layout.SamplesPerPixel;
+        // The tile or strip sizes come from the file's tags: a damaged tag must not size the buffers. A block holds at most
+        // the whole image's samples, or 64 MB (tiles may overhang a small image).
+        long blockBytes = (long)blockWidth * samplesInBuffer * bytesPerSample * blockHeight;
+        long libTiffBlock = layout.Tiled ? tiff.TileSize() : tiff.StripSize();
+        long most = Math.Max((long)layout.Width * layout.Height * layout.SamplesPerPixel * bytesPerSample, 64L << 20);
+        if (blockWidth <= 0 || blockHeight <= 0 || libTiffBlock <= 0 || blockBytes > most || libTiffBlock > most
+            || (long)blockHeight * layout.Width > Math.Max((long)layout.Width * layout.Height, 16L << 20))
+            throw new InputProblemException(path,
+                $"its {(layout.Tiled ? "tiles" : "strips")} of {blockWidth} × {blockHeight} pixels do not fit the image of {layout.Width} × {layout.Height} pixels it holds",
+                "its header is damaged; copy the file again from its source or export it again");
         int rowBytes = blockWidth * samplesInBuffer * bytesPerSample;
-        var buffer = new byte[Math.Max(layout.Tiled ? tiff.TileSize() : tiff.StripSize(), checked(rowBytes * blockHeight))];
-        var band = new float[checked(blockHeight * layout.Width)];
+        var buffer = new byte[Math.Max(libTiffBlock, blockBytes)];
+        var band = new float[blockHeight * layout.Width];
         // Interleaved samples come in one decode per block; planar ones in one decode per plane that is needed.
         int[] planes = layout.Planar ? [.. Enumerable.Range(0, tables.Length).Where(s => tables[s] is not null)] : [0];
         for (int y0 = 0; y0 < layout.Height; y0 += blockHeight)
@@ -221,6 +231,8 @@ internal static class TiffSectionFile
             throw new InputProblemException(path, $"is a TIFF with {(format == SampleFormat.IEEEFP ? "floating-point" : "signed")} samples, which is not read", convert);
         if (bits is not 8 and not 16)
             throw new InputProblemException(path, $"is a TIFF with {bits} bits per sample, which is not read", convert);
+        if (samples is < 1 or > 16)
+            throw new InputProblemException(path, $"is a TIFF with {samples} samples per pixel, which is not read", convert);
         bool jpegYCbCr = false;
         Colour colour;
         switch (photometric)
