@@ -189,10 +189,17 @@ internal static class TiffSectionFile
         var table = new byte[(int)entries * entrySize];
         stream.ReadExactly(table);
         stream.Position = 0;
+        var single = new Dictionary<int, ulong>(); // tags with one SHORT, LONG or LONG8 value, as stored in the entry
+        var counts = new Dictionary<int, ulong>();
         for (int e = 0; e < (int)entries; e++)
         {
             var entry = table.AsSpan(e * entrySize, entrySize);
             int tag = (int)U(entry, 2);
+            int type = (int)U(entry[2..], 2);
+            ulong valueCount = big ? U(entry[4..], 8) : U(entry[4..], 4);
+            counts[tag] = valueCount;
+            if (valueCount == 1 && type is 3 or 4 or 16)
+                single[tag] = U(entry[(big ? 12 : 8)..], type == 3 ? 2 : type == 4 ? 4 : 8);
             int typeSize = (int)U(entry[2..], 2) switch
             {
                 1 or 2 or 6 or 7 => 1,
@@ -207,6 +214,39 @@ internal static class TiffSectionFile
             if (count > (ulong)length / (ulong)typeSize || offset > (ulong)length - count * (ulong)typeSize)
                 throw Damaged(path, $"its tag {tag} declares {count:N0} values from byte {offset:N0}, past the end of the {length:N0}-byte file");
         }
+        CheckBlockCount(path, single, counts);
+    }
+
+    /// <summary>
+    /// LibTiff takes memory for as many strip or tile offsets as the image's size implies (a height of 2·10⁹ rows took
+    /// 8 GB, found by fuzzing), whatever the offsets tag lists: refuse a size that needs more strips or tiles than the
+    /// file lists (the list itself was checked against the file's length).
+    /// </summary>
+    private static void CheckBlockCount(string path, Dictionary<int, ulong> single, Dictionary<int, ulong> counts)
+    {
+        const int ImageWidth = 256, ImageLength = 257, SamplesPerPixel = 277, RowsPerStrip = 278, PlanarConfiguration = 284,
+            TileWidth = 322, TileLength = 323, StripOffsets = 273, TileOffsets = 324;
+        if (!single.TryGetValue(ImageWidth, out var width) || !single.TryGetValue(ImageLength, out var height) || width == 0 || height == 0)
+            return; // LibTiff refuses these itself
+        if (width > int.MaxValue || height > int.MaxValue)
+            throw Damaged(path, $"it declares {width} × {height} pixels");
+        ulong planes = single.GetValueOrDefault(PlanarConfiguration, 1UL) == 2 ? Math.Max(1UL, single.GetValueOrDefault(SamplesPerPixel, 1UL)) : 1;
+        double needed; // in floating point: the products of damaged sizes may not fit 64 bits
+        int listTag;
+        string what;
+        if (single.TryGetValue(TileWidth, out var tileWidth) && single.TryGetValue(TileLength, out var tileLength) && tileWidth > 0 && tileLength > 0)
+        {
+            needed = Math.Ceiling((double)width / tileWidth) * Math.Ceiling((double)height / tileLength) * planes;
+            (listTag, what) = (TileOffsets, "tiles");
+        }
+        else
+        {
+            ulong rows = Math.Clamp(single.GetValueOrDefault(RowsPerStrip, height), 1, height);
+            needed = Math.Ceiling((double)height / rows) * planes;
+            (listTag, what) = (StripOffsets, "strips");
+        }
+        if (counts.TryGetValue(listTag, out var listed) && needed > listed)
+            throw Damaged(path, $"its size of {width} × {height} pixels needs {needed:N0} {what}, but it lists {listed:N0}");
     }
 
     private static InputProblemException Damaged(string path, string what) =>

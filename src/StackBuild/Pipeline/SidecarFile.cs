@@ -41,7 +41,11 @@ public static class SidecarFile
         }
         catch (JsonException e)
         {
-            throw new InputProblemException(path, $"not a StackBuild sidecar ({e.Message})", Remedy);
+            // The serializer's own words name .NET types ("could not be converted to System.Double"): say where instead.
+            var detail = e.Path is { Length: > 0 } where && e.Message.Contains("could not be converted", StringComparison.Ordinal)
+                ? $"the value at {where} is not of the kind a sidecar holds there"
+                : e.Message;
+            throw new InputProblemException(path, $"not a StackBuild sidecar ({detail})", Remedy);
         }
         catch (Exception e) when (e is IOException or UnauthorizedAccessException)
         {
@@ -138,9 +142,11 @@ public static class SidecarFile
             name = Text(document.RootElement, "volume");
             sha256 = Text(document.RootElement, "volume_sha256");
         }
-        catch (Exception e) when (e is JsonException or IOException or UnauthorizedAccessException)
+        catch (Exception e) when (e is JsonException or IOException or UnauthorizedAccessException or InvalidOperationException)
         {
-            return; // not a sidecar this can read: the volume is shown on its own
+            // Not a sidecar this can read (InvalidOperationException: a string that is not UTF-8, found by fuzzing): the
+            // volume is shown on its own.
+            return;
         }
         if (sha256 is null) return;
         var named = VolumeOf(sidecar, name);

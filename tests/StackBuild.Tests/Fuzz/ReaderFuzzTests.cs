@@ -90,6 +90,11 @@ public sealed class ReaderFuzzTests(ITestOutputHelper log) : IDisposable
         {
             if (name.EndsWith(".json", StringComparison.Ordinal))
             {
+                // What info does with the sidecar beside a volume: a sidecar it cannot read is passed over.
+                var volume = path[..^".json".Length] + ".nii.gz";
+                File.WriteAllBytes(volume, SidecarVolume);
+                try { SidecarFile.CheckBeside(volume); }
+                catch (InputProblemException) { }
                 var record = SidecarFile.Read(path);
                 SidecarFile.Geometry(record, path);
                 _ = new PointMapping(record, path);
@@ -146,6 +151,18 @@ public sealed class ReaderFuzzTests(ITestOutputHelper log) : IDisposable
             else if (thrown is null) accepted++;
             else kind = $"{thrown.GetType().Name} at {TopFrame(thrown)}";
             if (allocated > AllocationBound) kind = $"allocated {allocated:N0} bytes";
+            // The line a user sees: no .NET type names, and one line per problem.
+            var lines = thrown switch
+            {
+                InputProblemsException many => many.Problems.Select(p => p.Message),
+                InputProblemException one => [one.Message],
+                _ => [],
+            };
+            foreach (var line in lines)
+            {
+                if (line.Contains("System.", StringComparison.Ordinal)) kind ??= "a message names a .NET type";
+                if (line.IndexOfAny(['\n', '\r']) >= 0) kind ??= "a message runs over more than one line";
+            }
             if (kind is null)
             {
                 Directory.Delete(folder, true);
