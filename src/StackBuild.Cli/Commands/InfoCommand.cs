@@ -23,7 +23,8 @@ public static class InfoCommand
         var json = new Option<bool>("--json") { Description = "Print one JSON object with the same fields instead of text" };
         var command = new Command("info",
             "Show what a NIfTI-1 volume holds: size in voxels and mm, voxel size, data type, value range, " +
-            "orientation (axis codes and the voxel-to-mm affine) and description.\n\n" +
+            "orientation (axis codes and the voxel-to-mm affine) and description. A build's volume whose sidecar (the .json of the same " +
+            "name beside it) records another checksum is refused: it was changed or replaced after the build.\n\n" +
             "Examples:\n  stackbuild info volume.nii.gz\n  stackbuild info volume.nii.gz --json");
         command.Arguments.Add(file);
         command.Options.Add(json);
