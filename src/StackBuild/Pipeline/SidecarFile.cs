@@ -41,10 +41,12 @@ public static class SidecarFile
         }
         catch (JsonException e)
         {
-            // The serializer's own words name .NET types ("could not be converted to System.Double"): say where instead.
+            // The serializer's own words name .NET types ("could not be converted to System.Double") or quote the damaged
+            // text itself, bytes and line breaks included (found by fuzzing): say where instead.
+            var line = e.LineNumber is { } l ? $"line {l + 1}, byte {e.BytePositionInLine + 1}" : "";
             var detail = e.Path is { Length: > 0 } where && e.Message.Contains("could not be converted", StringComparison.Ordinal)
                 ? $"the value at {where} is not of the kind a sidecar holds there"
-                : e.Message;
+                : line.Length > 0 ? $"the JSON is not valid at {line}" : "the JSON is not valid";
             throw new InputProblemException(path, $"not a StackBuild sidecar ({detail})", Remedy);
         }
         catch (Exception e) when (e is IOException or UnauthorizedAccessException)
