@@ -37,7 +37,7 @@ public static class ApplyCommand
             paths.CheckWritable();
             BuildWriter.CheckNotReplacing(paths, sidecarPath);
             var gray = BuildCommand.ParseChannel(parse.GetValue(channel)!);
-            var record = SidecarFile.Read(sidecarPath);
+            var record = SidecarFile.ReadWithVolume(sidecarPath, console.Error);
             var series = ApplyStage.OpenImages(parse.GetValue(images)!, record, new SeriesOptions
             {
                 ManifestPath = parse.GetValue(manifest),

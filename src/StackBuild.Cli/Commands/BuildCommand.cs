@@ -130,7 +130,7 @@ public static class BuildCommand
             var built = BuildPipeline.Run(options, new SyncProgress(console), clock);
             var result = StageClock.Time(clock, "review", () => BuildReview.Review(built));
             console.EndProgress();
-            StageClock.Time(clock, "write", () => { BuildWriter.Write(result, paths); return 0; });
+            result = StageClock.Time(clock, "write", () => BuildWriter.Write(result, paths));
             Report(console, result, paths, parse.GetValue(json), alignRequested: options.Align);
             if (clock is not null) ReportStages(console, clock, total.Elapsed);
             return CliOutput.ExitOk;

@@ -19,7 +19,7 @@ public static class EvaluateCommand
         command.SetAction(parse => console.Guard(() =>
         {
             var path = parse.GetValue(sidecar)!;
-            var record = SidecarFile.Read(path);
+            var record = SidecarFile.ReadWithVolume(path, console.Error);
             var result = TruthEvaluation.Evaluate(record, SeriesTruth.Read(parse.GetValue(truth)!));
             if (parse.GetValue(json))
             {

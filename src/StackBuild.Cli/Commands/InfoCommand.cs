@@ -23,13 +23,17 @@ public static class InfoCommand
         var json = new Option<bool>("--json") { Description = "Print one JSON object with the same fields instead of text" };
         var command = new Command("info",
             "Show what a NIfTI-1 volume holds: size in voxels and mm, voxel size, data type, value range, " +
-            "orientation (axis codes and the voxel-to-mm affine) and description.\n\n" +
+            "orientation (axis codes and the voxel-to-mm affine) and description. A build's volume whose sidecar (the .json of the same " +
+            "name beside it) records another checksum is refused: it was changed or replaced after the build.\n\n" +
             "Examples:\n  stackbuild info volume.nii.gz\n  stackbuild info volume.nii.gz --json");
         command.Arguments.Add(file);
         command.Options.Add(json);
         command.SetAction(parse => console.Guard(() =>
         {
-            var summary = NiftiSummary.Read(parse.GetValue(file)!);
+            var path = parse.GetValue(file)!;
+            var summary = NiftiSummary.Read(path);
+            // A build's volume is shown only while it is the one its sidecar was written with.
+            StackBuild.Pipeline.SidecarFile.CheckBeside(path);
             console.Out.Write(parse.GetValue(json) ? JsonSerializer.Serialize(summary, Json) + Environment.NewLine : Text(summary));
             return CliOutput.ExitOk;
         }));

@@ -33,7 +33,7 @@ public static class PointsCommand
             var folder = Path.GetDirectoryName(Path.GetFullPath(outPath))!;
             if (!Directory.Exists(folder))
                 throw new InputProblemException(outPath, "the folder for this output does not exist", "create the folder first or choose another output path");
-            var mapping = new PointMapping(SidecarFile.Read(sidecarPath), sidecarPath);
+            var mapping = new PointMapping(SidecarFile.ReadWithVolume(sidecarPath, console.Error), sidecarPath);
             string text;
             try { text = File.ReadAllText(inPath); }
             catch (Exception e) when (e is IOException or UnauthorizedAccessException)

@@ -8,13 +8,24 @@ public static class AtomicFile
 {
     public static void Write(string path, Action<Stream> write)
     {
+        var temp = WriteTemporary(path, write);
+        DiscardingOnFailure(path, temp, () => File.Move(temp, Path.GetFullPath(path), overwrite: true));
+    }
+
+    /// <summary>
+    /// Writes the file's bytes, flushed to the disk, under a temporary name beside <paramref name="path"/> (hidden, ending in
+    /// <c>.part</c>) and returns that name; the caller renames it into place or discards it. Nothing is left behind when
+    /// writing fails.
+    /// </summary>
+    public static string WriteTemporary(string path, Action<Stream> write)
+    {
         var full = Path.GetFullPath(path);
         var dir = Path.GetDirectoryName(full) ?? ".";
         if (!Directory.Exists(dir))
             throw new InputProblemException(path, "the folder for this output does not exist", "create the folder first or choose another output path");
         if (Directory.Exists(full))
             throw new InputProblemException(path, "this output path is a folder", "give a file name inside it, or another name");
-        var temp = Path.Combine(dir, $".{Path.GetFileName(full)}.{Environment.ProcessId}.{Guid.NewGuid():N}.part");
+        var temp = TemporaryName(full, "part");
         FileStream stream;
         try
         {
@@ -24,27 +35,45 @@ public static class AtomicFile
         {
             throw CannotWriteIn(path, dir, e);
         }
-        try
+        DiscardingOnFailure(path, temp, () =>
         {
             using (stream)
             {
                 write(stream);
                 stream.Flush(flushToDisk: true);
             }
-            File.Move(temp, full, overwrite: true);
+        });
+        return temp;
+    }
+
+    /// <summary>Runs a step on the temporary file <paramref name="temp"/>; if it fails, removes the file and says which output it was.</summary>
+    private static void DiscardingOnFailure(string path, string temp, Action step)
+    {
+        try
+        {
+            step();
         }
         catch (IOException e) when (e is not FileNotFoundException and not DirectoryNotFoundException)
         {
             Discard(temp);
-            // Disk full or a failing device: not the user's input, but say which output it was (exit code 3, README).
-            var reason = e.Message.Replace($" : '{temp}'", "", StringComparison.Ordinal).Replace(temp, "the temporary file", StringComparison.Ordinal).TrimEnd('.');
-            throw new IOException($"{path}: could not be written ({reason}); nothing was left at this path", e);
+            throw CouldNotWrite(path, temp, e);
         }
         catch
         {
             Discard(temp);
             throw;
         }
+    }
+
+    /// <summary>A hidden name beside <paramref name="fullPath"/> that no other run uses: .NAME.PID.GUID.SUFFIX.</summary>
+    internal static string TemporaryName(string fullPath, string suffix) =>
+        Path.Combine(Path.GetDirectoryName(fullPath) ?? ".", $".{Path.GetFileName(fullPath)}.{Environment.ProcessId}.{Guid.NewGuid():N}.{suffix}");
+
+    /// <summary>Disk full or a failing device: not the user's input, but say which output it was (exit code 3, README).</summary>
+    internal static IOException CouldNotWrite(string path, string temp, IOException e)
+    {
+        var reason = e.Message.Replace($" : '{temp}'", "", StringComparison.Ordinal).Replace(temp, "the temporary file", StringComparison.Ordinal).TrimEnd('.');
+        return new IOException($"{path}: could not be written ({reason}); nothing was left at this path", e);
     }
 
     /// <summary>
@@ -69,7 +98,7 @@ public static class AtomicFile
         new(path, $"cannot write in the folder {folder} ({(e is UnauthorizedAccessException ? "permission denied" : e.Message.TrimEnd('.'))})",
             "choose an output folder you may write to", e);
 
-    private static void Discard(string temp)
+    internal static void Discard(string temp)
     {
         try { File.Delete(temp); } catch (IOException) { } catch (UnauthorizedAccessException) { }
     }

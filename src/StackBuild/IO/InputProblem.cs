@@ -21,7 +21,27 @@ public class InputProblemException : Exception
     public static string Format(string? file, string problem, string remedy)
     {
         var head = string.IsNullOrEmpty(file) ? problem : $"{file}: {problem}";
-        return string.IsNullOrEmpty(remedy) ? head : $"{head} — {remedy}";
+        return Printable(string.IsNullOrEmpty(remedy) ? head : $"{head} — {remedy}");
+    }
+
+    /// <summary>
+    /// The message as one printable line: control characters quoted from a damaged file (a carriage return inside a
+    /// manifest field, found by fuzzing) are written as escapes such as \r and \u0001.
+    /// </summary>
+    private static string Printable(string text)
+    {
+        if (!text.Any(char.IsControl)) return text;
+        var line = new System.Text.StringBuilder(text.Length + 8);
+        foreach (char c in text)
+            line.Append(c switch
+            {
+                '\r' => "\\r",
+                '\n' => "\\n",
+                '\t' => "\\t",
+                _ when char.IsControl(c) => $"\\u{(int)c:x4}",
+                _ => c.ToString(),
+            });
+        return line.ToString();
     }
 }
 

@@ -30,7 +30,10 @@ public sealed record ImageReadOptions
     public int? MaxLongSide { get; init; }
 
     /// <summary>Images whose header declares more pixels than this are refused before anything is allocated.</summary>
-    public long MaxPixels { get; init; } = 2_000_000_000;
+    public long MaxPixels { get; init; } = DefaultMaxPixels;
+
+    /// <summary>The default <see cref="MaxPixels"/>.</summary>
+    public const long DefaultMaxPixels = 2_000_000_000;
 }
 
 /// <summary>
@@ -79,7 +82,7 @@ public static class SectionImageReader
             if (format is null)
                 throw new InputProblemException(path, "is not a readable PNG, TIFF or JPEG image (its header is not recognised)",
                     "replace it with a readable image or move it out of the series folder");
-            return format.Name switch
+            var facts = format.Name switch
             {
                 "TIFF" => TiffSectionFile.Identify(path, stream),
                 "PNG" => IdentifyPng(path, stream),
@@ -87,10 +90,14 @@ public static class SectionImageReader
                 _ => throw new InputProblemException(path, $"is a {format.Name} image, which is not read as a section image",
                     "convert it to PNG or TIFF"),
             };
+            if (facts.Width <= 0 || facts.Height <= 0)
+                throw new InputProblemException(path, $"declares {facts.Width} × {facts.Height} pixels, an image with nothing in it",
+                    "its header is damaged; copy the file again from its source or export it again");
+            return facts;
         }
         catch (Exception e) when (IsDecoderFailure(e))
         {
-            throw new InputProblemException(path, $"cannot be read as an image ({e.Message.TrimEnd('.')})",
+            throw new InputProblemException(path, $"cannot be read as an image ({Detail(e)})",
                 "replace it with a readable image or move it out of the series folder", e);
         }
     }
@@ -121,7 +128,7 @@ public static class SectionImageReader
         }
         catch (Exception e) when (IsDecoderFailure(e))
         {
-            throw new InputProblemException(path, $"cannot be decoded ({e.Message.TrimEnd('.')})",
+            throw new InputProblemException(path, $"cannot be decoded ({Detail(e)})",
                 "check that the file is complete (copy it again) or export it again", e);
         }
         return new LoadedSection(sink.Finish(), factor);
@@ -136,12 +143,46 @@ public static class SectionImageReader
                 "check that the file is not damaged; if the size is right, export the section smaller");
     }
 
+    /// <summary>
+    /// Refuses an image whose declared size could not come out of a file this small even at its format's greatest
+    /// compression, before the decoder takes memory for its pixels: a damaged header (or a decompression bomb) would
+    /// otherwise make the decoder allocate for the declared size before it finds the data missing.
+    /// </summary>
+    /// <param name="decodedBytes">Bytes the decoder produces for the declared size.</param>
+    /// <param name="maxExpansion">Most decoded bytes one stored byte can give in this format.</param>
+    /// <param name="compression">The format's compression, for the message.</param>
+    internal static void CheckSizeFitsFile(string path, ImageFacts facts, double decodedBytes, long fileLength, double maxExpansion, string compression)
+    {
+        const double headerSlack = 1 << 16; // headers, palettes and tables, which hold no pixels
+        // Beyond the size limit the limit's own message says more (CheckSize, when the pixels are read).
+        if (decodedBytes <= maxExpansion * fileLength + headerSlack || facts.PixelCount > ImageReadOptions.DefaultMaxPixels) return;
+        throw new InputProblemException(path,
+            $"declares {facts.Width} × {facts.Height} pixels, which a file of {fileLength:N0} bytes cannot hold even at the greatest {compression} compression ({maxExpansion:N0}:1)",
+            "its header is damaged or the file was cut short; copy the file again from its source or export it again");
+    }
+
     internal static FileStream OpenRead(string path) =>
         new(path, FileMode.Open, FileAccess.Read, FileShare.Read, 1 << 16);
 
     private static bool IsDecoderFailure(Exception e) =>
         e is ImageFormatException or NotSupportedException or InvalidDataException or EndOfStreamException
-            or IndexOutOfRangeException or ArgumentException or InvalidOperationException;
+            or IndexOutOfRangeException or ArgumentException or InvalidOperationException
+        || e is not OutOfMemoryException && ThrownInsideADecoder(e);
+
+    /// <summary>The decoder's own words for a format problem; for a failure inside it (a null, an overflow), no .NET type names.</summary>
+    private static string Detail(Exception e) =>
+        e is ImageFormatException or NotSupportedException or InvalidDataException or EndOfStreamException or ArgumentException or InvalidOperationException
+            ? e.Message.TrimEnd('.')
+            : "the decoder failed on its damaged structure";
+
+    /// <summary>
+    /// True when the exception passed through ImageSharp or LibTiff: a decoder that trips over a damaged file (an
+    /// overflow, a null, a bad cast in its own code, all found by fuzzing) is a problem with the file, not with StackBuild.
+    /// StackBuild's own failures do not pass through them and still surface as such.
+    /// </summary>
+    private static bool ThrownInsideADecoder(Exception e) =>
+        new System.Diagnostics.StackTrace(e, false).GetFrames().Any(f =>
+            f.GetMethod()?.DeclaringType?.Assembly is { } a && (a == typeof(Image).Assembly || a == typeof(BitMiracle.LibTiff.Classic.Tiff).Assembly));
 
     private static ImageFacts IdentifyPng(string path, Stream stream)
     {
@@ -150,7 +191,20 @@ public static class SectionImageReader
         int bits = png.BitDepth == PngBitDepth.Bit16 ? 16 : 8;
         int channels = png.ColorType is PngColorType.Grayscale or PngColorType.GrayscaleWithAlpha ? 1 : 3;
         if (png.ColorType == PngColorType.Palette) bits = 8;
-        return new ImageFacts(info.Width, info.Height, bits, channels, "PNG");
+        var facts = new ImageFacts(info.Width, info.Height, bits, channels, "PNG");
+        // Each row is a filter byte and its samples (PNG specification, ISO/IEC 15948 §7.2), all deflated; deflate gives at
+        // most about 1032 bytes for one (zlib's technical notes).
+        int samples = png.ColorType switch
+        {
+            PngColorType.GrayscaleWithAlpha => 2,
+            PngColorType.Rgb => 3,
+            PngColorType.RgbWithAlpha => 4,
+            _ => 1,
+        };
+        int storedBits = png.BitDepth is { } depth ? (int)depth : 8;
+        double rowBytes = 1 + Math.Ceiling((double)info.Width * samples * storedBits / 8);
+        CheckSizeFitsFile(path, facts, rowBytes * info.Height, stream.Length, 1032, "deflate");
+        return facts;
     }
 
     private static ImageFacts IdentifyJpeg(string path, Stream stream)
@@ -162,7 +216,11 @@ public static class SectionImageReader
             throw new InputProblemException(path, "is a CMYK JPEG (print colours), which is not read as a section image",
                 "convert it to RGB or gray (PNG or TIFF)");
         int channels = colour == JpegColorType.Luminance || colour is null && info.PixelType?.BitsPerPixel == 8 ? 1 : 3;
-        return new ImageFacts(info.Width, info.Height, 8, channels, "JPEG");
+        var facts = new ImageFacts(info.Width, info.Height, 8, channels, "JPEG");
+        // A Huffman-coded scan spends at least one bit on every 8 × 8 block (ITU-T T.81 F.1.2): 512 pixels a byte. Arithmetic
+        // coding can spend less, so the bound is eight times looser than that.
+        CheckSizeFitsFile(path, facts, (double)info.Width * info.Height, stream.Length, 4096, "JPEG");
+        return facts;
     }
 
     /// <summary>

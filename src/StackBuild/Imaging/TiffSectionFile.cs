@@ -1,3 +1,4 @@
+using System.Buffers.Binary;
 using System.Runtime.InteropServices;
 using BitMiracle.LibTiff.Classic;
 using StackBuild.IO;
@@ -26,7 +27,12 @@ internal static class TiffSectionFile
         var layout = ReadLayout(path, tiff);
         CheckDataInsideFile(path, tiff, layout.Tiled, stream.Length);
         int channels = layout.Colour is Colour.Gray or Colour.GrayInverted ? 1 : 3;
-        return new ImageFacts(layout.Width, layout.Height, layout.Bits, channels, layout.Tiled ? TiledFormat : "TIFF");
+        var facts = new ImageFacts(layout.Width, layout.Height, layout.Bits, channels, layout.Tiled ? TiledFormat : "TIFF");
+        var compression = (Compression)tiff.GetFieldDefaulted(TiffTag.COMPRESSION)[0].ToInt();
+        if (MaxExpansion(compression) is { } expansion)
+            SectionImageReader.CheckSizeFitsFile(path, facts, (double)layout.Width * layout.Height * layout.SamplesPerPixel * (layout.Bits / 8),
+                stream.Length, expansion, compression.ToString());
+        return facts;
     }
 
     public static void Read(string path, GrayChannel channel, BoxDownsampler sink)
@@ -49,9 +55,19 @@ internal static class TiffSectionFile
         }
         int bytesPerSample = layout.Bits / 8;
         int samplesInBuffer = layout.Planar ? 1 : layout.SamplesPerPixel;
+        // The tile or strip sizes come from the file's tags: a damaged tag must not size the buffers. A block holds at most
+        // the whole image's samples, or 64 MB (tiles may overhang a small image).
+        long blockBytes = (long)blockWidth * samplesInBuffer * bytesPerSample * blockHeight;
+        long libTiffBlock = layout.Tiled ? tiff.TileSize() : tiff.StripSize();
+        long most = Math.Max((long)layout.Width * layout.Height * layout.SamplesPerPixel * bytesPerSample, 64L << 20);
+        if (blockWidth <= 0 || blockHeight <= 0 || libTiffBlock <= 0 || blockBytes > most || libTiffBlock > most
+            || (long)blockHeight * layout.Width > Math.Max((long)layout.Width * layout.Height, 16L << 20))
+            throw new InputProblemException(path,
+                $"its {(layout.Tiled ? "tiles" : "strips")} of {blockWidth} × {blockHeight} pixels do not fit the image of {layout.Width} × {layout.Height} pixels it holds",
+                "its header is damaged; copy the file again from its source or export it again");
         int rowBytes = blockWidth * samplesInBuffer * bytesPerSample;
-        var buffer = new byte[Math.Max(layout.Tiled ? tiff.TileSize() : tiff.StripSize(), checked(rowBytes * blockHeight))];
-        var band = new float[checked(blockHeight * layout.Width)];
+        var buffer = new byte[Math.Max(libTiffBlock, blockBytes)];
+        var band = new float[blockHeight * layout.Width];
         // Interleaved samples come in one decode per block; planar ones in one decode per plane that is needed.
         int[] planes = layout.Planar ? [.. Enumerable.Range(0, tables.Length).Where(s => tables[s] is not null)] : [0];
         for (int y0 = 0; y0 < layout.Height; y0 += blockHeight)
@@ -132,10 +148,109 @@ internal static class TiffSectionFile
 
     private static Tiff Open(string path, Stream stream)
     {
+        CheckFirstDirectory(path, stream);
         QuietErrors.Last = null;
         var tiff = Tiff.ClientOpen(path, "r", stream, new TiffStream());
         return tiff ?? throw Failed(path, "the TIFF structure cannot be read");
     }
+
+    /// <summary>
+    /// Refuses a first image directory whose entries, or the values a tag declares, run past the end of the file, before
+    /// LibTiff reads it: LibTiff takes memory for as many values as a tag declares (a damaged count took 950 MB for a
+    /// 664-byte file) before it finds them missing. Layout from the TIFF 6.0 specification §2 and BigTIFF.
+    /// </summary>
+    private static void CheckFirstDirectory(string path, Stream stream)
+    {
+        long length = stream.Length;
+        var head = new byte[16];
+        stream.Position = 0;
+        int got = stream.ReadAtLeast(head, head.Length, throwOnEndOfStream: false);
+        stream.Position = 0;
+        if (got < 8) throw Damaged(path, $"the file ends after {got} bytes, inside the TIFF header");
+        bool little = head[0] == (byte)'I';
+        ulong U(ReadOnlySpan<byte> b, int size) => size switch
+        {
+            2 => little ? BinaryPrimitives.ReadUInt16LittleEndian(b) : BinaryPrimitives.ReadUInt16BigEndian(b),
+            4 => little ? BinaryPrimitives.ReadUInt32LittleEndian(b) : BinaryPrimitives.ReadUInt32BigEndian(b),
+            _ => little ? BinaryPrimitives.ReadUInt64LittleEndian(b) : BinaryPrimitives.ReadUInt64BigEndian(b),
+        };
+        bool big = U(head.AsSpan(2), 2) == 43;
+        if (big && got < 16) throw Damaged(path, $"the file ends after {got} bytes, inside the BigTIFF header");
+        ulong directory = big ? U(head.AsSpan(8), 8) : U(head.AsSpan(4), 4);
+        int countSize = big ? 8 : 2, entrySize = big ? 20 : 12, inline = big ? 8 : 4;
+        if (directory > (ulong)length - (ulong)countSize)
+            throw Damaged(path, $"its first image directory starts at byte {directory:N0}, past the end of the {length:N0}-byte file");
+        var countBytes = new byte[countSize];
+        stream.Position = (long)directory;
+        stream.ReadExactly(countBytes);
+        ulong entries = U(countBytes, countSize);
+        if (entries > ((ulong)length - directory - (ulong)countSize) / (ulong)entrySize)
+            throw Damaged(path, $"its first image directory declares {entries:N0} entries, more than the {length:N0}-byte file holds");
+        var table = new byte[(int)entries * entrySize];
+        stream.ReadExactly(table);
+        stream.Position = 0;
+        var single = new Dictionary<int, ulong>(); // tags with one SHORT, LONG or LONG8 value, as stored in the entry
+        var counts = new Dictionary<int, ulong>();
+        for (int e = 0; e < (int)entries; e++)
+        {
+            var entry = table.AsSpan(e * entrySize, entrySize);
+            int tag = (int)U(entry, 2);
+            int type = (int)U(entry[2..], 2);
+            ulong valueCount = big ? U(entry[4..], 8) : U(entry[4..], 4);
+            counts[tag] = valueCount;
+            if (valueCount == 1 && type is 3 or 4 or 16)
+                single[tag] = U(entry[(big ? 12 : 8)..], type == 3 ? 2 : type == 4 ? 4 : 8);
+            int typeSize = (int)U(entry[2..], 2) switch
+            {
+                1 or 2 or 6 or 7 => 1,
+                3 or 8 => 2,
+                4 or 9 or 11 or 13 => 4,
+                5 or 10 or 12 or 16 or 17 or 18 => 8,
+                _ => 0, // a type LibTiff does not know: it skips the entry
+            };
+            ulong count = big ? U(entry[4..], 8) : U(entry[4..], 4);
+            if (typeSize == 0 || count <= (ulong)(inline / typeSize)) continue;
+            ulong offset = big ? U(entry[12..], 8) : U(entry[8..], 4);
+            if (count > (ulong)length / (ulong)typeSize || offset > (ulong)length - count * (ulong)typeSize)
+                throw Damaged(path, $"its tag {tag} declares {count:N0} values from byte {offset:N0}, past the end of the {length:N0}-byte file");
+        }
+        CheckBlockCount(path, single, counts);
+    }
+
+    /// <summary>
+    /// LibTiff takes memory for as many strip or tile offsets as the image's size implies (a height of 2·10⁹ rows took
+    /// 8 GB, found by fuzzing), whatever the offsets tag lists: refuse a size that needs more strips or tiles than the
+    /// file lists (the list itself was checked against the file's length).
+    /// </summary>
+    private static void CheckBlockCount(string path, Dictionary<int, ulong> single, Dictionary<int, ulong> counts)
+    {
+        const int ImageWidth = 256, ImageLength = 257, SamplesPerPixel = 277, RowsPerStrip = 278, PlanarConfiguration = 284,
+            TileWidth = 322, TileLength = 323, StripOffsets = 273, TileOffsets = 324;
+        if (!single.TryGetValue(ImageWidth, out var width) || !single.TryGetValue(ImageLength, out var height) || width == 0 || height == 0)
+            return; // LibTiff refuses these itself
+        if (width > int.MaxValue || height > int.MaxValue)
+            throw Damaged(path, $"it declares {width} × {height} pixels");
+        ulong planes = single.GetValueOrDefault(PlanarConfiguration, 1UL) == 2 ? Math.Max(1UL, single.GetValueOrDefault(SamplesPerPixel, 1UL)) : 1;
+        double needed; // in floating point: the products of damaged sizes may not fit 64 bits
+        int listTag;
+        string what;
+        if (single.TryGetValue(TileWidth, out var tileWidth) && single.TryGetValue(TileLength, out var tileLength) && tileWidth > 0 && tileLength > 0)
+        {
+            needed = Math.Ceiling((double)width / tileWidth) * Math.Ceiling((double)height / tileLength) * planes;
+            (listTag, what) = (TileOffsets, "tiles");
+        }
+        else
+        {
+            ulong rows = Math.Clamp(single.GetValueOrDefault(RowsPerStrip, height), 1, height);
+            needed = Math.Ceiling((double)height / rows) * planes;
+            (listTag, what) = (StripOffsets, "strips");
+        }
+        if (counts.TryGetValue(listTag, out var listed) && needed > listed)
+            throw Damaged(path, $"its size of {width} × {height} pixels needs {needed:N0} {what}, but it lists {listed:N0}");
+    }
+
+    private static InputProblemException Damaged(string path, string what) =>
+        new(path, $"the TIFF structure cannot be read ({what})", "check that the file is complete (copy it again) or export it again");
 
     private static Layout ReadLayout(string path, Tiff tiff)
     {
@@ -156,6 +271,8 @@ internal static class TiffSectionFile
             throw new InputProblemException(path, $"is a TIFF with {(format == SampleFormat.IEEEFP ? "floating-point" : "signed")} samples, which is not read", convert);
         if (bits is not 8 and not 16)
             throw new InputProblemException(path, $"is a TIFF with {bits} bits per sample, which is not read", convert);
+        if (samples is < 1 or > 16)
+            throw new InputProblemException(path, $"is a TIFF with {samples} samples per pixel, which is not read", convert);
         bool jpegYCbCr = false;
         Colour colour;
         switch (photometric)
@@ -178,6 +295,22 @@ internal static class TiffSectionFile
                 "save it again uncompressed or with LZW, Deflate or JPEG compression");
         return new Layout(width, height, bits, samples, planar, colour, tiled, jpegYCbCr);
     }
+
+    /// <summary>
+    /// Most decoded bytes one stored byte gives under a compression scheme: none 1; PackBits 64 (a two-byte run of 128);
+    /// Deflate about 1032 (zlib's technical notes); LZW 4096 (a code of at least 9 bits emits at most one 4096-entry
+    /// table string; rounded up); JPEG as for JPEG files, one byte per 4096 pixels of up to 4 samples. Null for schemes
+    /// this does not bound.
+    /// </summary>
+    private static double? MaxExpansion(Compression compression) => compression switch
+    {
+        Compression.NONE => 1,
+        Compression.PACKBITS => 64,
+        Compression.DEFLATE or Compression.ADOBE_DEFLATE => 1032,
+        Compression.LZW => 4096,
+        Compression.JPEG or Compression.OJPEG => 4 * 4096,
+        _ => null,
+    };
 
     /// <summary>
     /// Refuses a file whose strips or tiles, as its tags place them, run past its end: a copy cut short. (A TIFF cut

@@ -73,6 +73,25 @@ public static class NiftiFile
     /// </summary>
     public static void Write(string path, Volume volume, NiftiWriteOptions? options = null)
     {
+        var (header, voxels) = Prepare(volume, options);
+        WriteFile(path, header, voxels);
+    }
+
+    /// <summary>
+    /// Writes <paramref name="volume"/> as NIfTI-1 into <paramref name="file"/> (gzip-compressed when
+    /// <paramref name="compress"/>), for a caller that puts the file in place itself (see <see cref="OutputSet"/>).
+    /// </summary>
+    public static void Write(Stream file, bool compress, Volume volume, NiftiWriteOptions? options = null)
+    {
+        var (header, voxels) = Prepare(volume, options);
+        WriteStream(file, compress, header, voxels);
+    }
+
+    /// <summary>True when a NIfTI file at <paramref name="path"/> is written gzip-compressed (the name ends in ".gz").</summary>
+    public static bool CompressedName(string path) => path.EndsWith(".gz", StringComparison.OrdinalIgnoreCase);
+
+    private static (NiftiHeader Header, Action<Stream> WriteVoxels) Prepare(Volume volume, NiftiWriteOptions? options)
+    {
         options ??= new NiftiWriteOptions();
         var type = options.DataType;
         if (type == NiftiDataType.Rgb24)
@@ -88,7 +107,7 @@ public static class NiftiFile
         if (NiftiDataTypes.IsInteger(type))
             (header.SclSlope, header.SclInter) = NiftiScaling.Choose(voxels, type);
 
-        WriteFile(path, header, stream =>
+        return (header, stream =>
         {
             switch (type)
             {
@@ -164,23 +183,22 @@ public static class NiftiFile
         };
     }
 
-    private static void WriteFile(string path, NiftiHeader header, Action<Stream> writeVoxels)
+    private static void WriteFile(string path, NiftiHeader header, Action<Stream> writeVoxels) =>
+        AtomicFile.Write(path, file => WriteStream(file, CompressedName(path), header, writeVoxels));
+
+    private static void WriteStream(Stream file, bool compress, NiftiHeader header, Action<Stream> writeVoxels)
     {
-        bool compress = path.EndsWith(".gz", StringComparison.OrdinalIgnoreCase);
-        AtomicFile.Write(path, file =>
+        var output = compress ? new GZipStream(file, CompressionLevel.Optimal, leaveOpen: true) : file;
+        try
         {
-            var output = compress ? new GZipStream(file, CompressionLevel.Optimal, leaveOpen: true) : file;
-            try
-            {
-                output.Write(header.ToBytes());
-                output.Write(stackalloc byte[4]); // extension flag: no extensions (nifti1.h "extender")
-                writeVoxels(output);
-            }
-            finally
-            {
-                if (compress) output.Dispose();
-            }
-        });
+            output.Write(header.ToBytes());
+            output.Write(stackalloc byte[4]); // extension flag: no extensions (nifti1.h "extender")
+            writeVoxels(output);
+        }
+        finally
+        {
+            if (compress) output.Dispose();
+        }
     }
 
     private static void WriteFloats(Stream stream, float[] voxels)

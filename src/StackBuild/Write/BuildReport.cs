@@ -164,7 +164,7 @@ public static class BuildReport
             <style>{Css}</style>
             </head><body>
             <header><h1>Build report <span class="file">{E(volumeName)}</span></h1>
-            <p class="sub">StackBuild {E(r.Version)} · built {E(r.Created)} · input {E(r.Input)}</p></header>
+            <p class="sub">StackBuild {E(r.Version)} · built {E(r.Created)} · input {E(r.Input)}{(r.VolumeSha256 is { } sha256 ? $" · volume SHA-256 <code>{E(sha256)}</code>" : "")}</p></header>
             <p class="caution"><strong>For research use only.</strong> This volume was rebuilt automatically from
             serial sections. Check the flagged sections and the planes below before drawing conclusions; the error
             estimates are heuristic and not calibrated intervals.</p>

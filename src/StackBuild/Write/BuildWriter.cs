@@ -39,43 +39,67 @@ public sealed record BuildOutputPaths(string Volume, string Sidecar)
     }
 }
 
-/// <summary>Writes a build's volume, sidecar and report, each atomically.</summary>
+/// <summary>
+/// Writes a build's volume, sidecar and report as one set (<see cref="OutputSet"/>): all three are written under temporary
+/// names first, then renamed into place volume, report, sidecar. The sidecar names the volume file and its SHA-256, so a
+/// volume replaced or changed after the build, or a set cut short between its renames, is recognised by every command
+/// that reads the sidecar (<see cref="SidecarFile.CheckVolume"/>).
+/// </summary>
 public static class BuildWriter
 {
     public static readonly JsonSerializerOptions JsonOptions = new() { WriteIndented = true };
 
     /// <summary>
-    /// Writes the three files from the result as given: it computes nothing. Review the build first
-    /// (<see cref="BuildReview.Review(BuildResult)"/>) for the sidecar and the report to carry each section's estimated
-    /// placement error and flags.
+    /// Writes the three files from the result as given: it computes nothing but the volume file's checksum. Review the build
+    /// first (<see cref="BuildReview.Review(BuildResult)"/>) for the sidecar and the report to carry each section's estimated
+    /// placement error and flags. Returns the result with the record as written (the volume's name and checksum in it).
     /// </summary>
-    public static void Write(BuildResult result, BuildOutputPaths paths)
+    /// <param name="beforeRename">Called with each output path just before its file is renamed into place (for tests).</param>
+    public static BuildResult Write(BuildResult result, BuildOutputPaths paths, Action<string>? beforeRename = null)
     {
         var type = result.InputBitDepth > 8 ? NiftiDataType.UInt16 : NiftiDataType.UInt8;
         var description = result.Record.Aligned ? "StackBuild aligned section series" : "StackBuild section series (unaligned)";
-        // Everything that can fail for reasons other than the disk is done in memory first, so a failure leaves
-        // no new file; each file is then written to a temporary name and renamed.
-        var sidecar = JsonSerializer.Serialize(result.Record, JsonOptions) + "\n";
-        var report = new StringWriter();
-        BuildReport.Render(report, result, Path.GetFileName(paths.Volume));
         paths.CheckWritable();
-        NiftiFile.Write(paths.Volume, result.Volume, new NiftiWriteOptions { DataType = type, Description = description });
-        AtomicFile.WriteAllText(paths.Sidecar, sidecar);
-        AtomicFile.WriteAllText(paths.Report, report.ToString());
+        using var set = new OutputSet(beforeRename);
+        var volume = set.Stage(paths.Volume, s => NiftiFile.Write(s, NiftiFile.CompressedName(paths.Volume), result.Volume,
+            new NiftiWriteOptions { DataType = type, Description = description }));
+        var written = result with
+        {
+            Record = result.Record with { Volume = Path.GetFileName(paths.Volume), VolumeSha256 = SidecarFile.Sha256(volume) },
+        };
+        var report = new StringWriter();
+        BuildReport.Render(report, written, Path.GetFileName(paths.Volume));
+        set.Stage(paths.Report, s => WriteText(s, report.ToString()));
+        set.Stage(paths.Sidecar, s => WriteText(s, JsonSerializer.Serialize(written.Record, JsonOptions) + "\n"));
+        set.Commit();
+        return written;
     }
 
     /// <summary>
-    /// Writes an applied volume and its sidecar (<see cref="ApplyRecord"/>), each atomically, in the image set's bit depth.
-    /// Refuses an output whose sidecar would replace the sidecar the placements came from.
+    /// Writes an applied volume and its sidecar (<see cref="ApplyRecord"/>) as one set, as <see cref="Write"/> does, in the
+    /// image set's bit depth. Refuses an output whose sidecar would replace the sidecar the placements came from.
     /// </summary>
-    public static void WriteApplied(ApplyResult result, BuildOutputPaths paths)
+    public static ApplyResult WriteApplied(ApplyResult result, BuildOutputPaths paths, Action<string>? beforeRename = null)
     {
         CheckNotReplacing(paths, result.Record.PlacementsFrom);
         var type = result.InputBitDepth > 8 ? NiftiDataType.UInt16 : NiftiDataType.UInt8;
-        var sidecar = JsonSerializer.Serialize(result.Record, JsonOptions) + "\n";
         paths.CheckWritable();
-        NiftiFile.Write(paths.Volume, result.Volume, new NiftiWriteOptions { DataType = type, Description = "StackBuild placements applied to another image set" });
-        AtomicFile.WriteAllText(paths.Sidecar, sidecar);
+        using var set = new OutputSet(beforeRename);
+        var volume = set.Stage(paths.Volume, s => NiftiFile.Write(s, NiftiFile.CompressedName(paths.Volume), result.Volume,
+            new NiftiWriteOptions { DataType = type, Description = "StackBuild placements applied to another image set" }));
+        var written = result with
+        {
+            Record = result.Record with { Volume = Path.GetFileName(paths.Volume), VolumeSha256 = SidecarFile.Sha256(volume) },
+        };
+        set.Stage(paths.Sidecar, s => WriteText(s, JsonSerializer.Serialize(written.Record, JsonOptions) + "\n"));
+        set.Commit();
+        return written;
+    }
+
+    private static void WriteText(Stream stream, string text)
+    {
+        using var writer = new StreamWriter(stream, new System.Text.UTF8Encoding(false), 1 << 16, leaveOpen: true);
+        writer.Write(text);
     }
 
     /// <summary>Refuses, before any work, an applied volume whose sidecar would replace the sidecar its placements come from.</summary>

@@ -307,6 +307,26 @@ public class SectionImageReaderTests
     }
 
     [Fact]
+    public void AnImageDeclaringMorePixelsThanItsBytesCanHoldIsRefusedBeforeDecoding()
+    {
+        using var dir = new SectionImageTempFolder();
+        // Within the 2·10⁹-pixel limit, but 1.35·10⁹ bytes of deflated rows cannot come from a file of a few dozen bytes.
+        var bomb = dir.File("bomb.png");
+        SectionImageTestFiles.Gray8Png(bomb, 20, 10, (x, y) => 1);
+        SectionImageTestFiles.PatchPngSize(bomb, 30_000, 45_000);
+        long before = GC.GetAllocatedBytesForCurrentThread();
+        var e = Assert.Throws<InputProblemException>(() => SectionImageReader.ReadGray(bomb));
+        Assert.True(GC.GetAllocatedBytesForCurrentThread() - before < 16 << 20);
+        Assert.Equal($"{bomb}: declares 30000 × 45000 pixels, which a file of {new FileInfo(bomb).Length:N0} bytes cannot hold even at the greatest deflate " +
+            "compression (1,032:1) — its header is damaged or the file was cut short; copy the file again from its source or export it again", e.Message);
+
+        // The same image at its true size is read.
+        var honest = dir.File("honest.png");
+        SectionImageTestFiles.Gray8Png(honest, 20, 10, (x, y) => 1);
+        Assert.Equal(20, SectionImageReader.ReadGray(honest).Width);
+    }
+
+    [Fact]
     public void DamagedTiledTiffIsAProblem()
     {
         using var dir = new SectionImageTempFolder();

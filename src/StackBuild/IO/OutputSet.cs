@@ -1,0 +1,97 @@
+namespace StackBuild.IO;
+
+/// <summary>
+/// Files that belong together (a volume, its sidecar, its report), put in place together or not at all.
+/// </summary>
+/// <remarks>
+/// Every file is first written in full under a temporary name in its own folder (<see cref="Stage"/>); only then are they
+/// renamed into place, in the order they were staged (<see cref="Commit"/>). A file already at an output path is kept under
+/// a hidden backup name until the whole set is in place, so when a rename fails the files already renamed are taken back
+/// and the earlier set is restored as it was. Stage the file that vouches for the others last (the sidecar, which names
+/// the volume and its checksum): if the process is killed between two renames, the paths hold the earlier set with some
+/// of its files replaced by new ones, and the last file, still the earlier one, does not match them.
+/// Disposing a set that was not committed removes its temporary files.
+/// </remarks>
+public sealed class OutputSet : IDisposable
+{
+    private readonly List<(string Path, string Temporary)> _staged = [];
+    private readonly Action<string>? _beforeRename;
+    private bool _committed;
+
+    /// <param name="beforeRename">Called with each output path just before its file is renamed into place (tests use it to
+    /// make a rename fail part-way).</param>
+    public OutputSet(Action<string>? beforeRename = null) => _beforeRename = beforeRename;
+
+    /// <summary>Writes one file of the set under a temporary name beside <paramref name="path"/>; returns that name.</summary>
+    public string Stage(string path, Action<Stream> write)
+    {
+        if (_committed) throw new InvalidOperationException("The set is already in place.");
+        var temporary = AtomicFile.WriteTemporary(path, write);
+        _staged.Add((path, temporary));
+        return temporary;
+    }
+
+    /// <summary>
+    /// Renames every staged file into place, in the order staged. On failure, the files already renamed are taken back
+    /// (an earlier file at the path is restored, a new one removed), every temporary file is removed, and the error is
+    /// thrown as an <see cref="IOException"/> naming the output that failed.
+    /// </summary>
+    public void Commit()
+    {
+        if (_committed) throw new InvalidOperationException("The set is already in place.");
+        var done = new List<(string Path, string? Backup)>();
+        int next = 0;
+        try
+        {
+            for (; next < _staged.Count; next++)
+            {
+                var (path, temporary) = _staged[next];
+                _beforeRename?.Invoke(path);
+                string? backup = null;
+                if (File.Exists(path))
+                {
+                    // A second name for the earlier file (a hard link where the file system has them), then one rename
+                    // over it: the path never lacks a file.
+                    backup = AtomicFile.TemporaryName(path, "old");
+                    File.Replace(temporary, path, backup, ignoreMetadataErrors: true);
+                }
+                else
+                {
+                    File.Move(temporary, path, overwrite: false);
+                }
+                done.Add((path, backup));
+            }
+        }
+        catch (Exception e) when (e is IOException or UnauthorizedAccessException)
+        {
+            var failed = _staged[next].Path;
+            for (int i = done.Count - 1; i >= 0; i--)
+            {
+                var (path, backup) = done[i];
+                try
+                {
+                    if (backup is not null) File.Move(backup, path, overwrite: true);
+                    else File.Delete(path);
+                }
+                catch (Exception undo) when (undo is IOException or UnauthorizedAccessException)
+                {
+                    // Nothing more can be done here; the error below names the output that failed.
+                }
+            }
+            for (int i = next; i < _staged.Count; i++) AtomicFile.Discard(_staged[i].Temporary);
+            _staged.Clear();
+            throw new IOException($"{failed}: could not be put in place ({e.Message.TrimEnd('.')}); the outputs were left as they were before this run", e);
+        }
+        _committed = true;
+        foreach (var (_, backup) in done)
+            if (backup is not null) AtomicFile.Discard(backup);
+    }
+
+    /// <summary>Removes the temporary files of a set that was not put in place.</summary>
+    public void Dispose()
+    {
+        if (_committed) return;
+        foreach (var (_, temporary) in _staged) AtomicFile.Discard(temporary);
+        _staged.Clear();
+    }
+}

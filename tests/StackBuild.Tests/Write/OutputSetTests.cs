@@ -1,0 +1,106 @@
+using System.Security.Cryptography;
+using System.Text;
+using StackBuild.IO;
+using Xunit;
+
+namespace StackBuild.Tests;
+
+/// <summary>
+/// <see cref="OutputSet"/>: files put in place together or not at all. A failure while a file is written or while the files
+/// are renamed must leave the output paths as they were (nothing new; an earlier set byte for byte) and no temporary file.
+/// </summary>
+public sealed class OutputSetTests : IDisposable
+{
+    private readonly string _folder = Directory.CreateTempSubdirectory("sb-outputset-").FullName;
+
+    public void Dispose()
+    {
+        try { Directory.Delete(_folder, true); } catch (IOException) { }
+    }
+
+    private string[] Paths => [Path.Combine(_folder, "v.nii"), Path.Combine(_folder, "v.report.html"), Path.Combine(_folder, "v.json")];
+
+    private static Action<Stream> Text(string text) => s => s.Write(Encoding.UTF8.GetBytes(text));
+
+    private SortedDictionary<string, string> Snapshot() =>
+        new(Directory.GetFiles(_folder).ToDictionary(f => Path.GetFileName(f), f => Convert.ToHexString(SHA256.HashData(File.ReadAllBytes(f)))),
+            StringComparer.Ordinal);
+
+    private void WriteOldSet()
+    {
+        foreach (var p in Paths) File.WriteAllText(p, "old " + Path.GetFileName(p));
+    }
+
+    [Fact]
+    public void AllFilesAppearOnCommitAndNoneBefore()
+    {
+        using var set = new OutputSet();
+        foreach (var p in Paths) set.Stage(p, Text("new " + Path.GetFileName(p)));
+        Assert.All(Paths, p => Assert.False(File.Exists(p)));
+        Assert.Equal(3, Directory.GetFiles(_folder, "*.part").Length); // the staged files, hidden beside the outputs
+        set.Commit();
+        Assert.All(Paths, p => Assert.Equal("new " + Path.GetFileName(p), File.ReadAllText(p)));
+        Assert.Equal(Paths.Select(p => Path.GetFileName(p)).Order(StringComparer.Ordinal), Snapshot().Keys); // no temporary or backup left
+    }
+
+    [Fact]
+    public void ACommitReplacesAnEarlierSetAndRemovesTheBackups()
+    {
+        WriteOldSet();
+        using (var set = new OutputSet())
+        {
+            foreach (var p in Paths) set.Stage(p, Text("new " + Path.GetFileName(p)));
+            set.Commit();
+        }
+        Assert.All(Paths, p => Assert.Equal("new " + Path.GetFileName(p), File.ReadAllText(p)));
+        Assert.Equal(3, Directory.GetFiles(_folder).Length);
+    }
+
+    [Theory]
+    [InlineData(0)]
+    [InlineData(1)]
+    [InlineData(2)]
+    public void ARenameFailingPartWayLeavesNothingNew(int failing)
+    {
+        var before = Snapshot();
+        var set = new OutputSet(path => { if (path == Paths[failing]) throw new IOException("simulated failure"); });
+        foreach (var p in Paths) set.Stage(p, Text("new"));
+        var e = Assert.Throws<IOException>(set.Commit);
+        set.Dispose();
+        Assert.StartsWith(Paths[failing] + ": could not be put in place (simulated failure)", e.Message);
+        Assert.Equal(before, Snapshot()); // empty: no output, no .part, no backup
+        Assert.Empty(Directory.GetFiles(_folder));
+    }
+
+    [Theory]
+    [InlineData(0)]
+    [InlineData(1)]
+    [InlineData(2)]
+    public void ARenameFailingPartWayRestoresTheEarlierSet(int failing)
+    {
+        WriteOldSet();
+        var before = Snapshot();
+        using var set = new OutputSet(path => { if (path == Paths[failing]) throw new IOException("simulated failure"); });
+        foreach (var p in Paths) set.Stage(p, Text("new"));
+        Assert.Throws<IOException>(set.Commit);
+        Assert.Equal(before, Snapshot()); // the old files, byte for byte, and nothing else
+    }
+
+    [Fact]
+    public void AFileFailingWhileWrittenLeavesNoTemporaryFiles()
+    {
+        WriteOldSet();
+        var before = Snapshot();
+        using (var set = new OutputSet())
+        {
+            set.Stage(Paths[0], Text("new"));
+            set.Stage(Paths[1], Text("new"));
+            Assert.Throws<IOException>(() => set.Stage(Paths[2], s =>
+            {
+                s.Write(new byte[100]);
+                throw new IOException("No space left on device");
+            }));
+        } // not committed: disposing removes what was staged
+        Assert.Equal(before, Snapshot());
+    }
+}
