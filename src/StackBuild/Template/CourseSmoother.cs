@@ -79,7 +79,7 @@ public static class CourseSmoother
         }
         if (differences.Count < 3) return floor * floor;
         double centre = Numerics.Quantiles.Median(differences);
-        double spread = 1.4826 * Numerics.Quantiles.Median(differences.Select(d => Math.Abs(d - centre)).ToList());
+        double spread = Numerics.Quantiles.RobustSigma(differences.Select(d => Math.Abs(d - centre)));
         double variance = (spread * spread - Numerics.Quantiles.Median(stepVariances)) / 2;
         return Math.Max(floor * floor, variance);
     }
