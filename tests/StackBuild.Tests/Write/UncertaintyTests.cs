@@ -53,6 +53,25 @@ public sealed class UncertaintyTests(ITestOutputHelper output)
     }
 
     [Fact]
+    public void WithATemplateASectionPastTheLastUsedMatchCarriesTheLinksInBetween()
+    {
+        // A template-guided chain 1–6 (each registered to the one before, route disagreements 20, 40, 60 … µm): the template
+        // matches of 1–3 were used (misfit 10 µm each), those of 4–6 set aside. The template's course reaches 6 only through
+        // the links of 4 and 5, so their errors add to its estimate; 4, next to a used match, carries none of them.
+        SectionRecord Guided(int number, bool used) => Link(number, number == 1 ? null : number - 1, 1, 1e12, 20 * number * Math.Sqrt(2)) with
+        {
+            ZIndex = number,
+            Template = new SectionTemplateRecord { Matched = true, MisfitUm = 10, Outlier = used ? null : "set aside" },
+        };
+        var record = Record(Guided(1, true), Guided(2, true), Guided(3, true), Guided(4, false), Guided(5, false), Guided(6, false));
+        var e = Uncertainty.Estimate(record);
+        double template2 = 10 * 10 / 3.0; // RMS misfit of the three used matches, over √3
+        Assert.Equal(Math.Sqrt(e[4].LinkUm * e[4].LinkUm + template2), e[4].AccumulatedUm, 6);
+        Assert.Equal(Math.Sqrt(e[6].LinkUm * e[6].LinkUm + template2 + e[4].LinkUm * e[4].LinkUm + e[5].LinkUm * e[5].LinkUm), e[6].AccumulatedUm, 6);
+        Assert.Equal(120, e[6].LinkUm, 3); // the route disagreement 120√2 µm, of which each route is taken to carry 1/√2
+    }
+
+    [Fact]
     public void DriftIsARandomWalkSeenAfterOneGlobalFit()
     {
         // The drift term's variance N/3 − t + t²/N is the continuous limit of a discrete random walk of unit steps with
