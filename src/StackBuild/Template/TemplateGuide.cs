@@ -342,7 +342,7 @@ public static class TemplateGuide
                 string lost = "not linked to the rest of the stack by a confident neighbour match, and no template match in its part of the stack was " +
                               "good enough to place that part" + (m != null && reason[i] != null ? $" (its own: {reason[i]})" : "");
                 result[i] = new TemplateSectionPlacement(i, chain[i], chain[i], m?.SectionToSlice, m?.Similarity, 0, null, null,
-                    deviationPx[i], deviationDeg[i], m != null, lost, 0, 0, 0, Unplaced: true);
+                    deviationPx[i], deviationDeg[i], false, lost, 0, 0, 0, Unplaced: true);
                 continue;
             }
             bool outlier = m != null && !candidate[i];
