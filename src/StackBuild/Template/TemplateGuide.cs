@@ -273,17 +273,17 @@ public static class TemplateGuide
             // Here the alternative that matters is the chain's own placement, so the margin over it is the distinctness test
             // (a nearly symmetric specimen always has the other mirror close behind in the search from scratch).
             // Where the pairs could not tell the side, the template's side wins whenever its match is the better one.
-            bool sideByTemplate = sections[i].SideUncertain && rescue[i]!.Mirrored != chain[i].IsMirrored && found > own;
+            bool flips = rescue[i]!.Mirrored != chain[i].IsMirrored;
+            bool sideByTemplate = sections[i].SideUncertain && flips && found > own;
             // The side was decided for the whole stack from every pair and the template's votes together (MirrorParity); a
             // match from scratch turns it over only where the chain had little to say: the pairs could not tell the side, or
             // the link itself is weak. (A strongly linked end section whose template match near the chain placement was set
             // aside found the other mirror 1.7× better from scratch, and was wrong: natbrainlab, seed 1, its last sections.)
-            bool flips = rescue[i]!.Mirrored != chain[i].IsMirrored;
             bool mayFlip = sections[i].SideUncertain || sections[i].OwnConfidence < options.RescueChainConfidence;
             if (flips && !mayFlip) rescue[i] = null;
             else if (found >= options.RescueSimilarityShare * local && (found >= options.RescueMargin * own || sideByTemplate))
                 reason[i] = $"placed by its own template match (similarity {found:0.###}, neighbours' median {local:0.###}; near the chain placement {own:0.###}" +
-                    (rescue[i]!.Mirrored != chain[i].IsMirrored ? ", mirrored against the chain" : "") + ")" +
+                    (flips ? ", mirrored against the chain" : "") + ")" +
                     (sideByTemplate && found < options.RescueMargin * own ? "; its neighbours could not tell which side is up, the template decided" : "");
             else rescue[i] = null;
         }
