@@ -8,7 +8,9 @@ namespace StackBuild.Benchmarks;
 /// extent by <c>stackbuild cut</c>'s defaults (every 2nd plane), built plain and with a template made from the same
 /// volume. Options: <c>--only NAME</c> runs the cases whose name contains NAME; <c>--work DIR</c> keeps the series there;
 /// <c>--seed N</c> cuts every case with seed N (placements, face-down and lost sections; the development seed is 1);
-/// <c>--held-out</c> adds the cases never looked at during development (<see cref="AccuracyRun.HeldOutCases"/>).
+/// <c>--held-out</c> adds the cases never looked at during development (<see cref="AccuracyRun.HeldOutCases"/>);
+/// <c>--upscale F</c> cuts F scan pixels per voxel (larger scans); <c>--single-level</c> registers without the half-size
+/// search (<see cref="Register.RegistrationOptions.CoarseToFine"/> off), for comparison.
 /// </summary>
 public static class AccuracyTable
 {
@@ -16,7 +18,8 @@ public static class AccuracyTable
     {
         string? only = null, work = null;
         int? seed = null;
-        bool heldOut = false, plainToo = true, templateToo = true;
+        bool heldOut = false, plainToo = true, templateToo = true, coarseToFine = true;
+        double upscale = 1;
         for (int i = 0; i < args.Length; i++)
         {
             if (args[i] == "--only" && i + 1 < args.Length) only = args[++i];
@@ -25,7 +28,9 @@ public static class AccuracyTable
             else if (args[i] == "--held-out") heldOut = true;
             else if (args[i] == "--template-only") plainToo = false;
             else if (args[i] == "--plain-only") templateToo = false;
-            else throw new ArgumentException($"unknown option {args[i]}: use --only NAME, --work DIR, --seed N, --held-out, --template-only, --plain-only");
+            else if (args[i] == "--upscale" && i + 1 < args.Length) upscale = double.Parse(args[++i], System.Globalization.CultureInfo.InvariantCulture);
+            else if (args[i] == "--single-level") coarseToFine = false;
+            else throw new ArgumentException($"unknown option {args[i]}: use --only NAME, --work DIR, --seed N, --held-out, --template-only, --plain-only, --upscale F, --single-level");
         }
         bool keep = work is not null;
         work ??= Directory.CreateTempSubdirectory("sb-accuracy-").FullName;
@@ -34,7 +39,8 @@ public static class AccuracyTable
         var progress = new Progress<string>(Console.Error.WriteLine);
         try
         {
-            var cases = AccuracyRun.PublicCases.Concat(heldOut ? AccuracyRun.HeldOutCases : []).Select(c => seed is int s ? c with { Seed = s } : c);
+            var cases = AccuracyRun.PublicCases.Concat(heldOut ? AccuracyRun.HeldOutCases : []).Select(c => seed is int s ? c with { Seed = s } : c)
+                .Select(c => c with { Upscale = upscale, CoarseToFine = coarseToFine });
             foreach (var c in cases.Where(c => only is null || c.Name.Contains(only, StringComparison.OrdinalIgnoreCase)))
             {
                 var these = AccuracyRun.Run(c, work, progress, plainToo, templateToo);

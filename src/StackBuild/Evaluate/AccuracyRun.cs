@@ -10,7 +10,11 @@ using StackBuild.Write;
 namespace StackBuild.Evaluate;
 
 /// <summary>One volume cut along one axis, built plain and with a template made from the same volume.</summary>
-public sealed record AccuracyCase(string VolumePath, char Axis, int Every = 2, int Seed = 1, bool BrightField = false, int Bits = 8)
+/// <param name="Upscale">Scan pixels per voxel along each side (the cut's pixel size is the voxel size divided by it); 1 gives
+/// one scan pixel per voxel, larger values give the larger scans a lab's working size sees (a few hundred pixels of tissue).</param>
+/// <param name="CoarseToFine">The registration option <see cref="Register.RegistrationOptions.CoarseToFine"/> for the builds.</param>
+public sealed record AccuracyCase(string VolumePath, char Axis, int Every = 2, int Seed = 1, bool BrightField = false, int Bits = 8,
+    double Upscale = 1, bool CoarseToFine = true)
 {
     public string Name => $"{Path.GetFileName(VolumePath).Replace(".nii.gz", "").Replace(".nii", "")} {Axis}";
 }
@@ -72,7 +76,9 @@ public static class AccuracyRun
     public static IReadOnlyList<AccuracyRow> Run(AccuracyCase c, string workFolder, IProgress<string>? progress = null, bool plain = true, bool guided = true)
     {
         var volume = NiftiFile.Read(c.VolumePath).ToVolume();
-        var series = VolumeCutter.Cut(volume, new CutOptions { Axis = c.Axis, Every = c.Every, Seed = c.Seed, BrightField = c.BrightField, Bits = c.Bits }, c.VolumePath);
+        var (vi, vj, vk) = volume.Affine.VoxelSizes;
+        double? pixelUm = c.Upscale == 1 ? null : Math.Min(vi, Math.Min(vj, vk)) * 1000 / c.Upscale; // the volumes here have cubic voxels
+        var series = VolumeCutter.Cut(volume, new CutOptions { Axis = c.Axis, Every = c.Every, Seed = c.Seed, BrightField = c.BrightField, Bits = c.Bits, PixelSizeUm = pixelUm }, c.VolumePath);
         string folder = Path.Combine(workFolder, c.Name.Replace(' ', '-'));
         if (Directory.Exists(folder)) Directory.Delete(folder, true);
         VolumeCutter.Write(series, folder);
@@ -87,6 +93,7 @@ public static class AccuracyRun
             var options = new BuildOptions
             {
                 Input = folder,
+                Registration = new Register.RegistrationOptions { CoarseToFine = c.CoarseToFine },
                 // Template plane of the first section: the template's planes are 2-voxel blocks, so volume plane k lies at (k − 0.5)/2.
                 Template = withTemplate ? new TemplateOptions { Path = templatePath, CutAxis = c.Axis, FirstPlane = (series.Sections[0].Plane - 0.5) / 2 } : null,
             };

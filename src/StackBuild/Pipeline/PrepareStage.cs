@@ -3,6 +3,7 @@ using StackBuild.Imaging;
 using StackBuild.IO;
 using StackBuild.Register;
 using StackBuild.Series;
+using StackBuild.Solve;
 
 namespace StackBuild.Pipeline;
 
@@ -45,6 +46,9 @@ public static class PrepareStage
             progress?.Report($"loading: {Interlocked.Increment(ref done)}/{present.Count} sections");
         });
         double common = loaded.Max(l => l.Entry.PixelSizeUm * l.Section.Downsample);
+        // Registration canvases for the sections being registered on every thread and the few before each: pairs reach
+        // MirrorParity.MaxReach sections back and are handed out in series order.
+        var canvases = new CanvasCache((MirrorParity.MaxReach + 2) * Math.Max(2, Environment.ProcessorCount));
         var result = new WorkingSection[present.Count];
         Parallel.For(0, present.Count, new ParallelOptions { MaxDegreeOfParallelism = Environment.ProcessorCount }, n =>
         {
@@ -65,7 +69,7 @@ public static class PrepareStage
                 throw new InputProblemException(entry.FilePath,
                     $"is only {image.Width}×{image.Height} pixels at the registration pixel size ({common:0.###} µm), too small to register",
                     "check this section's pixel size against the others, or leave it out with exclude=yes in the manifest");
-            var prepared = options.Align ? SectionRegistration.PrepareUnreduced(image, options.Registration) : null;
+            var prepared = options.Align ? SectionRegistration.PrepareUnreduced(image, options.Registration, canvases) : null;
             result[n] = new WorkingSection(entry, fullToWork, image, prepared);
         });
         return new PreparedSections(result, common);

@@ -32,8 +32,25 @@ internal sealed class PairEngine : IDisposable
         _movingSpectrum = new ComplexImage(_n, _n);
         _cross = new ComplexImage(_n, _n);
         _surface = new ComplexImage(_n, _n);
-        _warped = new float[_n * _n];
-        _spectralWeight = lowPass > 0 ? PhaseCorrelation.GaussianSpectralWeight(_n, _n, lowPass) : null;
+        _warped = TakeWarpBuffer(_n);
+        _spectralWeight = lowPass > 0 ? Weights.GetOrAdd((_n, lowPass), k => PhaseCorrelation.GaussianSpectralWeight(k.Item1, k.Item1, k.Item2)) : null;
+    }
+
+    /// <summary>The spectral weights, one per canvas size and low-pass (read only, shared by every engine).</summary>
+    private static readonly System.Collections.Concurrent.ConcurrentDictionary<(int, double), float[]> Weights = new();
+
+    // Each thread keeps the warp buffers of its last engines for the next pair: a pair's buffers are several megabytes, and
+    // allocating them anew for each of hundreds of pairs only grows the large-object heap between collections.
+    [ThreadStatic] private static List<float[]>? _spareWarpBuffers;
+
+    private static float[] TakeWarpBuffer(int n)
+    {
+        var spare = _spareWarpBuffers;
+        int i = spare?.FindIndex(b => b.Length == n * n) ?? -1;
+        if (i < 0) return new float[n * n];
+        var buffer = spare![i];
+        spare.RemoveAt(i);
+        return buffer;
     }
 
     /// <summary>
@@ -97,7 +114,13 @@ internal sealed class PairEngine : IDisposable
     /// angle that moves the tissue's edge by one pixel, halved whenever none improves, down to 1/32 px (Kolda, Lewis &amp;
     /// Torczon 2003, SIAM Review 45:385, §3).
     /// </summary>
-    public Evaluation Polish(Evaluation start)
+    public Evaluation Polish(Evaluation start) => Polish(start, 1, 1.0 / 32);
+
+    /// <summary>
+    /// <see cref="Polish(Evaluation)"/> with the compass starting at <paramref name="startStep"/> pixels (and the angle step
+    /// that moves the tissue's edge as far) and stopping below <paramref name="minStep"/>.
+    /// </summary>
+    public Evaluation Polish(Evaluation start, double startStep, double minStep)
     {
         double c = _fixed.Centre;
         var mirror = start.Mirrored ? Transform2D.MirrorX(c) : Transform2D.Identity;
@@ -109,10 +132,10 @@ internal sealed class PairEngine : IDisposable
         double[] p = [x, dx0, dy0];
         double best = Ncc(Map(p[0], p[1], p[2]));
         double radius = Math.Max(4, Math.Max(_fixed.TissueRadius, _moving.TissueRadius));
-        double step = 1, angleStep = 180 / Math.PI / radius;
+        double step = startStep, angleStep = startStep * 180 / Math.PI / radius;
         // At most MaxPolishEvaluations NCC evaluations: each move must raise the NCC, but a long walk on a nearly flat slope
         // is cut off rather than left to run.
-        for (int evaluations = 0; step >= 1.0 / 32 && evaluations < MaxPolishEvaluations; evaluations += 6)
+        for (int evaluations = 0; step >= minStep && evaluations < MaxPolishEvaluations; evaluations += 6)
         {
             bool moved = false;
             for (int axis = 0; axis < 3; axis++)
@@ -128,6 +151,18 @@ internal sealed class PairEngine : IDisposable
         }
         if (best <= start.Ncc) return start;
         return start with { Degrees = Normalise(p[0]), CanvasMap = Map(p[0], p[1], p[2]), Ncc = best };
+    }
+
+    /// <summary>
+    /// An evaluation made on the <see cref="SectionCanvas.Half"/> canvases of this engine's two, brought to this engine's
+    /// canvases: the same angle, the map conjugated by <see cref="SectionCanvas.ToHalf"/> (its translation doubled), its NCC
+    /// measured here; the phase correlation's shift (and with it the peak-to-sidelobe ratio) is kept from
+    /// <paramref name="shiftHere"/> when given, else from the half.
+    /// </summary>
+    public Evaluation FromHalf(Evaluation half, ShiftEstimate? shiftHere = null)
+    {
+        var map = SectionCanvas.ToHalf.Then(half.CanvasMap).Then(SectionCanvas.ToHalf.Inverse());
+        return half with { CanvasMap = map, Shift = shiftHere ?? half.Shift, Ncc = Ncc(map) };
     }
 
     /// <summary>
@@ -185,6 +220,9 @@ internal sealed class PairEngine : IDisposable
 
     public void Dispose()
     {
+        // ImageOps.Warp writes every pixel of the warp buffer before it is read, so it can serve the next pair as it is.
+        var spare = _spareWarpBuffers ??= [];
+        if (spare.Count < 4) spare.Add(_warped);
         _fixedSpectrum.Dispose();
         _movingSpectrum.Dispose();
         _cross.Dispose();

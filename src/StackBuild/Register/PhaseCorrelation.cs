@@ -227,9 +227,11 @@ public static class PhaseCorrelation
         var tIm = new double[h * size];
         nint address = (nint)cross.Pointer;
         int half = w / 2;
-        Parallel.For(0, h, () => (new double[size], new double[size]), (ky, _, acc) =>
+        // One thread: pairs are registered in parallel already, so a parallel loop here only adds its overhead.
+        var aRe = new double[size];
+        var aIm = new double[size];
+        for (int ky = 0; ky < h; ky++)
         {
-            var (aRe, aIm) = acc;
             Array.Clear(aRe);
             Array.Clear(aIm);
             var row = (Complex32*)address + (long)ky * w;
@@ -247,8 +249,7 @@ public static class PhaseCorrelation
             }
             Array.Copy(aRe, 0, tRe, ky * size, size);
             Array.Copy(aIm, 0, tIm, ky * size, size);
-            return acc;
-        }, _ => { });
+        }
         // Step 2: Re out[i, j] = Re Σ_ky e^(2πi·fy·y_i/h)·T[ky, j].
         double best = double.NegativeInfinity;
         int bi = 0, bj = 0;

@@ -28,10 +28,19 @@ public sealed class PreparedSection
     /// <summary>Full-resolution pixel coordinates to working-image pixel coordinates.</summary>
     public Transform2D FullToWork => Preprocessing.ScaleMap(Scale);
 
-    internal SectionCanvas Canvas { get; }
+    /// <summary>
+    /// The section on its registration canvas: made when first asked for and kept, or, when the section was prepared with
+    /// a <see cref="CanvasCache"/>, kept only while it is among that cache's most recently used (a build holds a few
+    /// sections' canvases, not every section's; one asked for again later is made again, the same).
+    /// </summary>
+    internal SectionCanvas Canvas => _cache is null ? _own.Value : _cache.Get(this);
     internal bool UsesForegroundMask { get; }
+    internal int CanvasSize { get; }
 
-    internal PreparedSection(int fullWidth, int fullHeight, double scale, GrayImage work, bool inverted, bool useForegroundMask)
+    private readonly CanvasCache? _cache;
+    private readonly Lazy<SectionCanvas> _own;
+
+    internal PreparedSection(int fullWidth, int fullHeight, double scale, GrayImage work, bool inverted, bool useForegroundMask, CanvasCache? cache = null)
     {
         FullWidth = fullWidth;
         FullHeight = fullHeight;
@@ -41,7 +50,9 @@ public sealed class PreparedSection
         UsesForegroundMask = useForegroundMask;
         TissueMask = Preprocessing.TissueMask(work.Pixels, work.Width, work.Height);
         TissueFraction = TissueMask.Count(t => t) / (double)TissueMask.Length;
-        Canvas = new SectionCanvas(this, Fft2D.PaddedSize(Math.Max(work.Width, work.Height)));
+        CanvasSize = Fft2D.PaddedSize(Math.Max(work.Width, work.Height));
+        _cache = cache;
+        _own = new Lazy<SectionCanvas>(() => new SectionCanvas(this, CanvasSize));
     }
 
     /// <summary>The same section at a smaller working scale (for pairing with a section prepared at that scale).</summary>
@@ -50,6 +61,45 @@ public sealed class PreparedSection
         var work = ImageOps.Reduce(WorkImage, scale / Scale,
             Math.Max(1, (int)Math.Round(FullWidth * scale)), Math.Max(1, (int)Math.Round(FullHeight * scale)));
         return new PreparedSection(FullWidth, FullHeight, scale, work, Inverted, UsesForegroundMask);
+    }
+}
+
+/// <summary>
+/// The registration canvases of the sections most recently used, at most <see cref="Capacity"/> of them (least recently
+/// used dropped first). A canvas is about a dozen working images' worth of memory (image, mask, signal, spectrum, the
+/// half-size level), so a build that kept every section's would hold far more than its output volume; pairs are
+/// registered in series order, between sections a few apart, so a small cache makes almost every canvas once.
+/// Thread-safe; two threads asking for the same missing canvas wait for one making of it.
+/// </summary>
+public sealed class CanvasCache(int capacity)
+{
+    public int Capacity { get; } = Math.Max(2, capacity);
+
+    private readonly object _gate = new();
+    private readonly LinkedList<(PreparedSection Section, Lazy<SectionCanvas> Canvas)> _recent = new();
+
+    /// <summary>How many canvases were made (for tests and the stage breakdown).</summary>
+    public int Made => _made;
+    private int _made;
+
+    internal SectionCanvas Get(PreparedSection section)
+    {
+        Lazy<SectionCanvas> canvas;
+        lock (_gate)
+        {
+            var node = _recent.First;
+            while (node is not null && !ReferenceEquals(node.Value.Section, section)) node = node.Next;
+            if (node is not null) _recent.Remove(node);
+            else node = new LinkedListNode<(PreparedSection, Lazy<SectionCanvas>)>((section, new Lazy<SectionCanvas>(() =>
+            {
+                Interlocked.Increment(ref _made);
+                return new SectionCanvas(section, section.CanvasSize);
+            })));
+            _recent.AddFirst(node);
+            while (_recent.Count > Capacity) _recent.RemoveLast();
+            canvas = node.Value.Canvas;
+        }
+        return canvas.Value;
     }
 }
 
@@ -74,12 +124,23 @@ internal sealed class SectionCanvas
     public (int X0, int Y0, int X1, int Y1) SignalBox { get; }
     /// <summary>Unshifted 2D spectrum of the windowed, mean-removed <see cref="Signal"/>.</summary>
     public Complex32[] Spectrum { get; }
+    /// <summary>The log-polar magnitude spectrum (for rotation candidates); not made for a <see cref="Half"/>.</summary>
     public PolarSpectrum Polar { get; }
     public float[] Window { get; }
     /// <summary>Bounding box (inclusive) of the canvas pixels whose soft mask is above 0.5; (n, n, −1, −1) when there are none.</summary>
     public (int X0, int Y0, int X1, int Y1) MaskBox { get; }
     /// <summary>Largest distance of such a pixel from the canvas centre (0 when there are none).</summary>
     public double TissueRadius { get; }
+
+    /// <summary>
+    /// The same canvas at half the size (2×2 area averages; canvas pixel i of it covers pixels 2i and 2i + 1 here, so the
+    /// centres correspond), where hypotheses are searched before they are polished here; null when the size is odd or
+    /// under <see cref="MinHalfSize"/>. It has no <see cref="Polar"/> spectrum and no half of its own.
+    /// </summary>
+    public SectionCanvas? Half { get; }
+
+    /// <summary>Smallest canvas size that gets a <see cref="Half"/>.</summary>
+    public const int MinHalfSize = 128;
 
     public SectionCanvas(PreparedSection section, int size)
     {
@@ -95,12 +156,56 @@ internal sealed class SectionCanvas
         Signal = section.UsesForegroundMask ? Image.Select((v, i) => v * SoftMask[i]).ToArray() : Image;
         SignalBox = NonZeroBox(Signal, size);
         Window = RadialWindow(size);
+        Spectrum = WindowedSpectrum(Signal, Window, size);
+        Polar = PolarSpectrum.FromSpectrum(Spectrum, size);
+        if (size % 2 == 0 && size >= MinHalfSize)
+        {
+            int h = size / 2;
+            var halfImage = HalveArea(Image, size);
+            var halfMask = HalveArea(SoftMask, size);
+            Half = new SectionCanvas(h, FullToCanvas.Then(ToHalf), halfImage, halfMask,
+                section.UsesForegroundMask ? HalveArea(Signal, size) : halfImage);
+        }
+    }
+
+    private SectionCanvas(int size, Transform2D fullToCanvas, float[] image, float[] softMask, float[] signal)
+    {
+        Size = size;
+        FullToCanvas = fullToCanvas;
+        Image = image;
+        SoftMask = softMask;
+        (MaskBox, TissueRadius) = Extent(SoftMask, size, Centre);
+        Signal = signal;
+        SignalBox = NonZeroBox(Signal, size);
+        Window = RadialWindow(size);
+        Spectrum = WindowedSpectrum(Signal, Window, size);
+        Polar = null!;
+    }
+
+    /// <summary>Coordinates on this canvas → coordinates on <see cref="Half"/>: x ↦ (x − ½)/2.</summary>
+    public static Transform2D ToHalf => new(0.5, 0, -0.25, 0, 0.5, -0.25);
+
+    private static Complex32[] WindowedSpectrum(float[] signal, float[] window, int size)
+    {
         var fft = Fft2D.Create(size, size);
         using var spectrum = new ComplexImage(size, size);
-        LoadWindowed(Signal, Window, spectrum);
+        LoadWindowed(signal, window, spectrum);
         fft.Forward(spectrum);
-        Spectrum = spectrum.Span.ToArray();
-        Polar = PolarSpectrum.FromSpectrum(Spectrum, size);
+        return spectrum.Span.ToArray();
+    }
+
+    /// <summary>2×2 block means of an n×n image (n even).</summary>
+    private static float[] HalveArea(float[] source, int n)
+    {
+        int h = n / 2;
+        var half = new float[h * h];
+        for (int y = 0; y < h; y++)
+        {
+            int r0 = 2 * y * n, r1 = r0 + n;
+            for (int x = 0; x < h; x++)
+                half[y * h + x] = 0.25f * (source[r0 + 2 * x] + source[r0 + 2 * x + 1] + source[r1 + 2 * x] + source[r1 + 2 * x + 1]);
+        }
+        return half;
     }
 
     /// <summary>Writes (signal − mean)·window into the real parts of <paramref name="target"/>.</summary>
@@ -117,7 +222,12 @@ internal sealed class SectionCanvas
     /// A radially symmetric Tukey window (flat to 75 % of the half-size, cosine taper to 0 at the inscribed
     /// circle): unlike a separable one it does not change when the content turns, which the rotation estimate relies on.
     /// </summary>
-    private static float[] RadialWindow(int n)
+    private static float[] RadialWindow(int n) => Windows.GetOrAdd(n, MakeRadialWindow);
+
+    /// <summary>One window per canvas size, shared by every canvas of that size (read only).</summary>
+    private static readonly System.Collections.Concurrent.ConcurrentDictionary<int, float[]> Windows = new();
+
+    private static float[] MakeRadialWindow(int n)
     {
         var w = new float[n * n];
         double c = (n - 1) / 2.0, radius = n / 2.0;

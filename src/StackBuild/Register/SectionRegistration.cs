@@ -26,6 +26,11 @@ public sealed record RegistrationOptions
     public int RotationCandidates { get; init; } = 3;
     /// <summary>The angle refinement stops once its step is below this (degrees); steps go 0.5°, 0.1°, 0.02°.</summary>
     public double AngleTolerance { get; init; } = 0.05;
+    /// <summary>
+    /// Search and refine hypotheses on half-size canvases, then polish at the working size (when both sections' tissue is
+    /// large enough); false does every step at the working size, as before this option existed (for comparison).
+    /// </summary>
+    public bool CoarseToFine { get; init; } = true;
 }
 
 /// <summary>
@@ -93,6 +98,11 @@ public static class SectionRegistration
 {
     private const double CoarseUpsample = 1; // whole pixels suffice to rank hypotheses; the best two are refined
     private const double DistinctDegrees = 10;
+    /// <summary>Both sections' tissue must reach this far from the half canvas's centre (half pixels) for the search to run there.</summary>
+    private const double MinHalfTissueRadius = 64;
+    /// <summary>The half-size polish stops below this step (half pixels); the polish at full size starts at <see cref="FinePolishStartStep"/>.</summary>
+    private const double HalfPolishMinStep = 0.125;
+    private const double FinePolishStartStep = 0.0625;
 
     /// <summary>
     /// Preprocessing done once per section; the result is reused for every pair it is part of. The image is reduced
@@ -105,9 +115,12 @@ public static class SectionRegistration
     /// As <see cref="Prepare(GrayImage, RegistrationOptions)"/> for an image already at its registration pixel size (a
     /// build brings every section to one such size first): it is not reduced, whatever the work size.
     /// </summary>
-    public static PreparedSection PrepareUnreduced(GrayImage workImage, RegistrationOptions options) => Prepare(workImage, 1.0, options);
+    /// <param name="canvases">When given, the section's registration canvas is kept only while the cache holds it (see
+    /// <see cref="PreparedSection"/>); otherwise it is kept with the section.</param>
+    public static PreparedSection PrepareUnreduced(GrayImage workImage, RegistrationOptions options, CanvasCache? canvases = null) =>
+        Prepare(workImage, 1.0, options, canvases);
 
-    private static PreparedSection Prepare(GrayImage fullResolution, double scale, RegistrationOptions options)
+    private static PreparedSection Prepare(GrayImage fullResolution, double scale, RegistrationOptions options, CanvasCache? canvases = null)
     {
         var work = Preprocessing.Reduce(fullResolution, scale);
         bool invert = options.Polarity switch
@@ -118,7 +131,7 @@ public static class SectionRegistration
         };
         if (invert) for (int i = 0; i < work.Pixels.Length; i++) work.Pixels[i] = -work.Pixels[i];
         Preprocessing.NormaliseRobust(work.Pixels);
-        return new PreparedSection(fullResolution.Width, fullResolution.Height, scale, work, invert, options.ForegroundMask);
+        return new PreparedSection(fullResolution.Width, fullResolution.Height, scale, work, invert, options.ForegroundMask, canvases);
     }
 
     /// <summary>
@@ -133,18 +146,34 @@ public static class SectionRegistration
             if (fixedSection.Scale > moving.Scale) fixedSection = fixedSection.AtScale(moving.Scale);
             else moving = moving.AtScale(fixedSection.Scale);
         }
-        int n = Math.Max(fixedSection.Canvas.Size, moving.Canvas.Size);
-        var fixedCanvas = fixedSection.Canvas.Size == n ? fixedSection.Canvas : new SectionCanvas(fixedSection, n);
-        var movingCanvas = moving.Canvas.Size == n ? moving.Canvas : new SectionCanvas(moving, n);
+        int n = Math.Max(fixedSection.CanvasSize, moving.CanvasSize);
+        var fixedCanvas = fixedSection.CanvasSize == n ? fixedSection.Canvas : new SectionCanvas(fixedSection, n);
+        var movingCanvas = moving.CanvasSize == n ? moving.Canvas : new SectionCanvas(moving, n);
         using var engine = new PairEngine(fixedCanvas, movingCanvas, options.LowPass);
+        // Coarse to fine: hypotheses are searched and their angles refined on the half-size canvases when both sections'
+        // tissue is large enough there, then polished here; small sections (a specimen's ends) stay at this size throughout.
+        bool useHalf = options.CoarseToFine && fixedCanvas.Half is { } fh && movingCanvas.Half is { } mh && Math.Min(fh.TissueRadius, mh.TissueRadius) >= MinHalfTissueRadius;
+        using var half = useHalf ? new PairEngine(fixedCanvas.Half!, movingCanvas.Half!, options.LowPass) : null;
+        var search = half ?? engine;
+        // A hypothesis found by the search brought here (NCC measured here, so every NCC compared below is at one size).
+        PairEngine.Evaluation Here(PairEngine.Evaluation e) => half is null ? e : engine.FromHalf(e);
+        // A refined hypothesis polished: on the half canvases to an eighth of their pixel, then here from a sixteenth of a
+        // pixel down, with the peak-to-sidelobe ratio of this size's phase correlation at the angle found.
+        PairEngine.Evaluation Finish(PairEngine.Evaluation refined)
+        {
+            if (half is null) return engine.Polish(refined);
+            var coarsePolished = half.Polish(refined, 1, HalfPolishMinStep);
+            var shift = engine.Evaluate(coarsePolished.Mirrored, coarsePolished.Degrees, CoarseUpsample).Shift;
+            return engine.Polish(engine.FromHalf(coarsePolished, shift), FinePolishStartStep, 1.0 / 32);
+        }
 
         bool[] mirrors = options.KnownMirrored is { } known ? [known && options.AllowMirror] : options.AllowMirror ? [false, true] : [false];
         var coarse = new List<PairEngine.Evaluation>();
         foreach (bool mirrored in mirrors)
         foreach (var (degrees, _) in PolarSpectrum.CandidateAngles(fixedCanvas.Polar, movingCanvas.Polar, mirrored, Math.Max(1, options.RotationCandidates)))
         {
-            coarse.Add(engine.Evaluate(mirrored, degrees, CoarseUpsample));
-            coarse.Add(engine.Evaluate(mirrored, degrees + 180, CoarseUpsample));
+            coarse.Add(search.Evaluate(mirrored, degrees, CoarseUpsample));
+            coarse.Add(search.Evaluate(mirrored, degrees + 180, CoarseUpsample));
         }
         coarse.Sort((a, b) => b.Ncc.CompareTo(a.Ncc));
         double step = PolarSpectrum.DegreesPerBin;
@@ -155,17 +184,19 @@ public static class SectionRegistration
         foreach (bool mirrored in mirrors)
         {
             var first = coarse.First(e => e.Mirrored == mirrored);
-            var refined = engine.Polish(engine.Refine(first, step, options.AngleTolerance, options.UpsampleFactor));
+            var refined = Finish(search.Refine(first, step, options.AngleTolerance, options.UpsampleFactor));
             var second = coarse.FirstOrDefault(e => e.Mirrored == mirrored && IsDistinct(e, refined));
-            perMirror.Add((ToHypothesis(refined, fixedCanvas, movingCanvas), second?.Ncc, second));
+            perMirror.Add((ToHypothesis(refined, fixedCanvas, movingCanvas), second is null ? null : Here(second).Ncc, second));
         }
         perMirror.Sort((a, b) => b.Best.Ncc.CompareTo(a.Best.Ncc));
         var (bestHypothesis, sameRunnerUpNcc, sameRunnerUp) = perMirror[0];
         var other = perMirror.Count > 1 ? perMirror[1] : default;
+        PairEngine.Evaluation? sameRunnerUpHere = null;
         if (sameRunnerUp is not null)
         {
-            var refinedSame = engine.Refine(sameRunnerUp, step, options.AngleTolerance, options.UpsampleFactor);
-            if (refinedSame.Ncc > bestHypothesis.Ncc) refinedSame = engine.Polish(refinedSame);
+            var refinedSearch = search.Refine(sameRunnerUp, step, options.AngleTolerance, options.UpsampleFactor);
+            var refinedSame = Here(refinedSearch);
+            if (refinedSame.Ncc > bestHypothesis.Ncc) refinedSame = Finish(refinedSearch);
             sameRunnerUpNcc = refinedSame.Ncc;
             if (refinedSame.Ncc > bestHypothesis.Ncc)
             {
@@ -173,12 +204,12 @@ public static class SectionRegistration
                 sameRunnerUpNcc = bestHypothesis.Ncc;
                 bestHypothesis = ToHypothesis(refinedSame, fixedCanvas, movingCanvas);
             }
-            sameRunnerUp = refinedSame;
+            sameRunnerUpHere = refinedSame;
         }
         // The runner-up overall: the better of the other mirror's best and this mirror's distinct runner-up.
         PairHypothesis? runnerUp = other.Best;
-        if (sameRunnerUp is not null && (runnerUp is null || sameRunnerUp.Ncc > runnerUp.Ncc))
-            runnerUp = ToHypothesis(sameRunnerUp, fixedCanvas, movingCanvas);
+        if (sameRunnerUpHere is not null && (runnerUp is null || sameRunnerUpHere.Ncc > runnerUp.Ncc))
+            runnerUp = ToHypothesis(sameRunnerUpHere, fixedCanvas, movingCanvas);
         return new PairResult(bestHypothesis, runnerUp, Confidence(bestHypothesis.Ncc, runnerUp?.Ncc))
         {
             OtherMirror = other.Best,
