@@ -22,9 +22,17 @@ public static class PairDiagnosis
             throw new ArgumentException("use: pairs VOLUME.nii.gz AXIS SEED FROM TO [EVERY]  (e.g. pairs /usr/share/mricron/templates/ch2bet.nii.gz k 7 1 16)");
         int seed = int.Parse(args[2], CultureInfo.InvariantCulture), from = int.Parse(args[3], CultureInfo.InvariantCulture), to = int.Parse(args[4], CultureInfo.InvariantCulture);
         int every = args.Length > 5 ? int.Parse(args[5], CultureInfo.InvariantCulture) : 2;
+        // Optional after EVERY: "bright" (bright-field), "16" (16-bit), "upscale F" (F scan pixels per voxel), as the accuracy table cuts.
+        bool bright = args.Skip(6).Contains("bright");
+        int bits = args.Skip(6).Contains("16") ? 16 : 8;
+        int at = Array.IndexOf(args, "upscale");
+        double upscale = at > 5 && at + 1 < args.Length ? double.Parse(args[at + 1], CultureInfo.InvariantCulture) : 1;
         var volume = NiftiFile.Read(args[0]).ToVolume();
-        var series = VolumeCutter.Cut(volume, new CutOptions { Axis = args[1][0], Every = every, Seed = seed }, args[0]);
-        var options = new RegistrationOptions();
+        var (vi, vj, vk) = volume.Affine.VoxelSizes;
+        double? pixelUm = upscale == 1 ? null : Math.Min(vi, Math.Min(vj, vk)) * 1000 / upscale;
+        var series = VolumeCutter.Cut(volume, new CutOptions { Axis = args[1][0], Every = every, Seed = seed, BrightField = bright, Bits = bits, PixelSizeUm = pixelUm }, args[0]);
+        // Working pixels = scan pixels: no reduction, whatever the canvas.
+        var options = new RegistrationOptions { WorkSize = 1 << 16 };
         var prepared = new SortedDictionary<int, PreparedSection>();
         for (int n = Math.Max(1, from); n <= Math.Min(to, series.Sections.Count); n++)
             if (series.Scans[n - 1] is { } scan) prepared[n] = SectionRegistration.Prepare(scan, options);

@@ -46,6 +46,11 @@ public sealed record SectionRecord
     /// reference has route part-reference. Without a template, where the part lies relative to the rest is unknown.
     /// </summary>
     [JsonPropertyName("part")] public int? Part { get; init; }
+    /// <summary>
+    /// Without a template, the one match across the break that places the section's part relative to the rest (the part's
+    /// best, however weak); null in part 0 and in template builds.
+    /// </summary>
+    [JsonPropertyName("part_joined_by")] public PartJoinRecord? PartJoinedBy { get; init; }
     /// <summary>How far apart (µm, mean over the corners) the placements through the first and second neighbour are.</summary>
     [JsonPropertyName("route_disagreement_um")] public double? RouteDisagreementUm { get; init; }
     /// <summary>The best clearly different hypothesis (other mirror or a rotation over 10° away), for close calls.</summary>
@@ -260,3 +265,9 @@ public sealed record HypothesisRecord(
     [property: JsonPropertyName("rotation_deg")] double RotationDegrees,
     [property: JsonPropertyName("ncc")] double Ncc,
     [property: JsonPropertyName("flips_side")] bool FlipsSide = false);
+
+/// <summary>The pair that places a part of the stack: section <see cref="Section"/> (in the part) matched onto <see cref="Onto"/>, with that match's confidence.</summary>
+public sealed record PartJoinRecord(
+    [property: JsonPropertyName("section")] int Section,
+    [property: JsonPropertyName("onto")] int Onto,
+    [property: JsonPropertyName("confidence")] double Confidence);

@@ -150,6 +150,8 @@ public static class RecordStage
             RegisteredTo = place.LinkedTo >= 0 ? sections[place.LinkedTo].Entry.Number : null,
             Route = place.Route,
             Part = place.Part != 0 && place.Route != LinkRoute.Failed ? place.Part : null,
+            PartJoinedBy = place.Part != 0 && place.Route != LinkRoute.Failed && placements.PartJoins.FirstOrDefault(j => j.Part == place.Part) is { } join
+                ? new PartJoinRecord(sections[join.Moving].Entry.Number, sections[join.Fixed].Entry.Number, Math.Round(join.Confidence, 4)) : null,
             RouteDisagreementUm = place.RouteDisagreement is { } d ? d * workUm : null,
             RunnerUp = pair?.RunnerUp is { } ru ? new HypothesisRecord(ru.Mirrored, ru.RotationDegrees, ru.Ncc, ru.Mirrored != pair.Best.Mirrored) : null,
             DriftCorrectionUm = smoothing is null || place.Route is LinkRoute.Failed or LinkRoute.Template || place.Part != 0 ? null : smoothing.CorrectionPx[n] * workUm,

@@ -20,6 +20,9 @@ namespace StackBuild.Pipeline;
 public sealed record Placements(IReadOnlyList<ChainPlacement> Chain, IReadOnlyList<ChainPlacement>? ChainBefore, SmoothingResult? Smoothing,
     ParityResult? Parity, bool FaceFlipped, bool Aligned, IReadOnlyList<string> Warnings, TemplatePlacement? OnTemplate = null)
 {
+    /// <summary>The parts of the stack that hang on one weak match (<see cref="ChainSolver.JoinParts"/>; builds without a template).</summary>
+    public IReadOnlyList<PartJoin> PartJoins { get; init; } = [];
+
     /// <summary>Index (in the prepared sections) of the section the chain was built from.</summary>
     public int ReferenceIndex => ChainPlacements.ReferenceIndex(Chain);
 
@@ -49,9 +52,13 @@ public static class SolveStage
             return new Placements(placed, null, null, null, false, false, options.Align ? ["only one section: nothing to align"] : []);
         }
         var chain = ChainSolver.Solve(sections.Count, pairs.Pair, i => Corners(sections[i].Image), options.Chain);
+        // Without a template nothing else can say where a part the chain could not link lies: it hangs on its best match
+        // across the break, however weak (a template build leaves the parts to the template, which places them by itself).
+        IReadOnlyList<PartJoin> joins = [];
+        if (options.Template is null) (chain, joins) = ChainSolver.JoinParts(chain, pairs.Pair);
         chain = FaceMajorityUp(chain, sections, out bool faceFlipped);
         if (options.Solver != PlacementSolver.Smoothing || sections.Count <= 2)
-            return new Placements(chain, null, null, pairs.Parity, faceFlipped, true, []);
+            return new Placements(chain, null, null, pairs.Parity, faceFlipped, true, []) { PartJoins = joins };
 
         // The solve weighs first- and second-neighbour pairs; the third-neighbour ones only serve the mirror decision.
         var observations = pairs.Pairs.Where(kv => kv.Key.Moving - kv.Key.Fixed <= 2).Select(kv => new PairObservation(kv.Key.Moving, kv.Key.Fixed, kv.Value))
@@ -61,7 +68,7 @@ public static class SolveStage
             ChainPlacements.ReferenceIndex(chain), observations, i => SamplePoints(sections[i].Image), options.Smoothing with { MinConfidence = options.Chain.MinConfidence });
         var solved = smoothing.ToReference;
         var smoothed = chain.Select((c, i) => c.Route == LinkRoute.Failed || c.Part != 0 ? c : c with { ToReference = solved[i] }).ToList();
-        return new Placements(smoothed, chain, smoothing, pairs.Parity, faceFlipped, true, []);
+        return new Placements(smoothed, chain, smoothing, pairs.Parity, faceFlipped, true, []) { PartJoins = joins };
     }
 
     /// <summary>The centre and the corners of the middle half of a section: where the solver measures disagreement.</summary>

@@ -41,6 +41,9 @@ public enum LinkRoute
 public sealed record ChainPlacement(Transform2D ToReference, LinkRoute Route, int LinkedTo, PairResult? Pair, double? RouteDisagreement,
     double PathConfidence = 1, int Part = 0, double? AnyRouteDisagreement = null);
 
+/// <summary>Part <paramref name="Part"/> of the stack placed through the pair (<paramref name="Moving"/> in the part, <paramref name="Fixed"/> outside it; indices in stack order) of confidence <paramref name="Confidence"/>.</summary>
+public sealed record PartJoin(int Part, int Moving, int Fixed, double Confidence);
+
 public sealed record ChainOptions
 {
     /// <summary>A pair whose confidence is below this is not trusted for placing a section.</summary>
@@ -184,6 +187,51 @@ public static class ChainSolver
         if (usable.Count > 1 && usable[1].Path > chosen.Path + options.PreferNearestMargin) chosen = usable[1];
         return new ChainPlacement(chosen.ToReference, chosen.Route, chosen.Index, chosen.Result, disagreement, chosen.Path,
             AnyRouteDisagreement: anyDisagreement);
+    }
+
+    /// <summary>
+    /// Without a template nothing else says where a part of the stack lies (<see cref="Solve"/> chains each part to a
+    /// reference of its own), so each part is joined to the rest through its best match across the break: of every pair
+    /// of sections within <see cref="MaxReach"/> positions, one in the part and one already joined, the one of highest
+    /// confidence (then NCC), however weak. Parts are joined best match first; a part with no pair across whose NCC is
+    /// above zero stays where it was. The sections keep their <see cref="ChainPlacement.Part"/>, so reports still say
+    /// the part hangs on a weak match.
+    /// </summary>
+    public static (IReadOnlyList<ChainPlacement> Chain, IReadOnlyList<PartJoin> Joins) JoinParts(IReadOnlyList<ChainPlacement> chain,
+        Func<int, int, PairResult> pair)
+    {
+        var placed = chain.ToArray();
+        var joined = placed.Select(p => p.Route != LinkRoute.Failed && p.Part == 0).ToArray();
+        var joins = new List<PartJoin>();
+        while (true)
+        {
+            (int Moving, int Fixed, Transform2D Map, PairResult Result)? best = null;
+            for (int i = 0; i < placed.Length; i++)
+            {
+                if (placed[i].Route == LinkRoute.Failed || placed[i].Part == 0 || joined[i]) continue;
+                for (int j = Math.Max(0, i - MaxReach); j <= Math.Min(placed.Length - 1, i + MaxReach); j++)
+                {
+                    if (!joined[j]) continue;
+                    var (map, result) = Oriented(pair, i, j);
+                    if (result.Best.Ncc <= 0) continue;
+                    if (best is not { } b || result.Confidence > b.Result.Confidence
+                        || (result.Confidence == b.Result.Confidence && result.Best.Ncc > b.Result.Best.Ncc))
+                        best = (i, j, map, result);
+                }
+            }
+            if (best is not { } join) break;
+            int part = placed[join.Moving].Part;
+            // The part's frame → the joined frame, through the one pair: section i's own placement undone, then the pair's map.
+            var correction = placed[join.Moving].ToReference.Inverse().Then(join.Map).Then(placed[join.Fixed].ToReference);
+            for (int s = 0; s < placed.Length; s++)
+            {
+                if (placed[s].Route == LinkRoute.Failed || placed[s].Part != part) continue;
+                placed[s] = placed[s] with { ToReference = placed[s].ToReference.Then(correction) };
+                joined[s] = true;
+            }
+            joins.Add(new PartJoin(part, join.Moving, join.Fixed, join.Result.Confidence));
+        }
+        return (placed, joins);
     }
 
     /// <summary>The map from section <paramref name="moving"/> to <paramref name="target"/>; registered later-onto-earlier and inverted when needed, so each pair is computed once.</summary>

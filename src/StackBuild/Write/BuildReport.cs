@@ -102,7 +102,10 @@ public static class SectionFlags
         if (s.RouteDisagreementUm is double d && d > disagreementLimitUm)
             reasons.Add(string.Create(CultureInfo.InvariantCulture, $"placements through the first and second neighbour differ by {d:0} µm"));
         if (s.Part is int part && s.Status == SectionOutcome.Aligned && s.Template is null)
-            reasons.Add(s.Route == LinkRoute.PartReference
+            reasons.Add(s.PartJoinedBy is { } join
+                ? string.Create(CultureInfo.InvariantCulture,
+                    $"in part {part} of the stack, which no trusted match links to the rest: it was placed by its best match across the break alone (section {join.Section} onto {join.Onto}, confidence {join.Confidence:0.00}), so where the part lies relative to the rest is uncertain — check that boundary, or a template would place it")
+                : s.Route == LinkRoute.PartReference
                 ? $"nothing matched across the sections before or after this stretch, so it was chained to this section as a part of its own (part {part}): where the part lies relative to the rest is unknown — a template would place it"
                 : $"in part {part} of the stack, which nothing linked to the rest: where the part lies relative to the rest is unknown — a template would place it");
         if (voxelUm is double v && s.EstimatedErrorUm is double estimate && estimate > EstimatedErrorVoxels * v && s.Status == SectionOutcome.Aligned)

@@ -70,6 +70,46 @@ public sealed class ChainPartsTests
     }
 
     [Fact]
+    public void WithoutATemplateAPartHangsOnItsBestMatchAcrossTheBreak()
+    {
+        // Across the break between 11 and 12 every pair is below the chain's trust (0.2): 12 onto 11 says the truth with
+        // confidence 0.15; every other pair across says the part lies 50 px further on, with confidence 0.05.
+        static PairResult Crossing(int moving, int fixedIndex)
+        {
+            bool crosses = fixedIndex < 12 && moving >= 12;
+            bool best = moving == 12 && fixedIndex == 11;
+            var map = Transform2D.Translation(moving - fixedIndex + (crosses && !best ? 50 : 0), 0);
+            double confidence = !crosses ? 0.9 : best ? 0.15 : 0.05;
+            return new PairResult(new PairHypothesis(map, false, 0, crosses ? 0.25 : 0.9, 10), null, confidence);
+        }
+        var chain = ChainSolver.Solve(20, Crossing, Corners);
+        Assert.Equal(1, chain[15].Part);
+        var (joined, joins) = ChainSolver.JoinParts(chain, Crossing);
+        Assert.Equal(new PartJoin(1, 12, 11, 0.15), Assert.Single(joins));
+        // Every section now lies (i − j, 0) from every other, across the break too; the part keeps its number for the flags.
+        var (x0, _) = joined[0].ToReference.Apply(0, 0);
+        for (int i = 0; i < 20; i++)
+            Assert.Equal(i, joined[i].ToReference.Apply(0, 0).X - x0, 9);
+        Assert.All(joined.Skip(12), c => Assert.Equal(1, c.Part));
+    }
+
+    [Fact]
+    public void APartWithNothingAcrossTheBreakIsNotJoined()
+    {
+        // The pairs across the break (NCC 0.05 in Pair, but the join needs some match: here none is above zero).
+        static PairResult Nothing(int moving, int fixedIndex)
+        {
+            bool crosses = fixedIndex < 12 && moving >= 12;
+            var map = Transform2D.Translation(moving - fixedIndex, 0);
+            return new PairResult(new PairHypothesis(map, false, 0, crosses ? -0.1 : 0.9, 10), null, crosses ? 0 : 0.9);
+        }
+        var chain = ChainSolver.Solve(20, Nothing, Corners);
+        var (joined, joins) = ChainSolver.JoinParts(chain, Nothing);
+        Assert.Empty(joins);
+        Assert.Equal(chain, joined);
+    }
+
+    [Fact]
     public void ARunTooShortForAPartStaysFailed()
     {
         // Only sections 18 and 19 lie beyond the break: fewer than MinPartSections, so they are left out, not guessed.
