@@ -28,7 +28,10 @@ public static class Program
                 stderr.WriteLine($"error: {message} — see '{commandName} --help'");
             return CliOutput.ExitCommandLine;
         }
-        return parsed.Invoke(config);
+        // FFTW's plans from earlier runs (the core touches no such file itself); new ones are kept for the next run.
+        FftPlanCache.Load();
+        try { return parsed.Invoke(config); }
+        finally { FftPlanCache.Save(); }
     }
 
     /// <summary>--version: the version and the FFT in use (FFTW when Debian's libfftw3-single3 is installed).</summary>

@@ -15,10 +15,15 @@ public static class Program
     /// <summary>The whole build against a general-library pipeline (docs/benchmarks.md): ... -- build-vs-library</summary>
     public static void Main(string[] args)
     {
-        if (args.Length > 0 && args[0] == "accuracy") { AccuracyTable.Run(args[1..]); return; }
-        if (args.Length > 0 && args[0] == "pairs") { PairDiagnosis.Run(args[1..]); return; }
-        if (args.Length > 0 && args[0] == "build-vs-library") { BuildVsLibrary.Run(args[1..]); return; }
-        BenchmarkSwitcher.FromAssembly(typeof(Program).Assembly).Run(args);
+        FftPlanCache.Load(); // as the command line does: FFTW's plans from earlier runs
+        try
+        {
+            if (args.Length > 0 && args[0] == "accuracy") { AccuracyTable.Run(args[1..]); return; }
+            if (args.Length > 0 && args[0] == "pairs") { PairDiagnosis.Run(args[1..]); return; }
+            if (args.Length > 0 && args[0] == "build-vs-library") { BuildVsLibrary.Run(args[1..]); return; }
+            BenchmarkSwitcher.FromAssembly(typeof(Program).Assembly).Run(args);
+        }
+        finally { FftPlanCache.Save(); }
     }
 }
 

@@ -57,16 +57,6 @@ public sealed class GrayImage
         return border[border.Count / 2];
     }
 
-    /// <summary>Bilinear sample at (x, y) in pixel coordinates; <paramref name="outside"/> beyond the edge.</summary>
-    public float SampleBilinear(double x, double y, float outside = 0f)
-    {
-        if (x < -0.5 || y < -0.5 || x > Width - 0.5 || y > Height - 0.5) return outside;
-        double fx = Math.Clamp(x, 0, Width - 1), fy = Math.Clamp(y, 0, Height - 1);
-        int x0 = Math.Min((int)fx, Width - 2 < 0 ? 0 : Width - 2), y0 = Math.Min((int)fy, Height - 2 < 0 ? 0 : Height - 2);
-        int x1 = Math.Min(x0 + 1, Width - 1), y1 = Math.Min(y0 + 1, Height - 1);
-        double tx = fx - x0, ty = fy - y0;
-        double top = Pixels[y0 * Width + x0] * (1 - tx) + Pixels[y0 * Width + x1] * tx;
-        double bottom = Pixels[y1 * Width + x0] * (1 - tx) + Pixels[y1 * Width + x1] * tx;
-        return (float)(top * (1 - ty) + bottom * ty);
-    }
+    /// <summary>Bilinear sample at (x, y) in pixel coordinates; <paramref name="outside"/> beyond the edge (<see cref="Bilinear.Sample"/>).</summary>
+    public float SampleBilinear(double x, double y, float outside = 0f) => Bilinear.Sample(this, x, y, outside);
 }

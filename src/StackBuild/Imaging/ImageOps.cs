@@ -1,5 +1,3 @@
-using System.Runtime.CompilerServices;
-using System.Runtime.InteropServices;
 using StackBuild.Geometry;
 using StackBuild.Imaging;
 
@@ -121,7 +119,7 @@ internal static class ImageOps
                 if (sx > -1 && sy > -1 && sx < n && sy < n)
                 {
                     int x0 = (int)Math.Floor(sx), y0 = (int)Math.Floor(sy);
-                    v = Bilinear(source, n, x0, y0, (float)(sx - x0), (float)(sy - y0));
+                    v = Bilinear.Canvas(source, n, x0, y0, (float)(sx - x0), (float)(sy - y0));
                 }
                 output[y * n + x] = v;
             }
@@ -148,34 +146,10 @@ internal static class ImageOps
                 if (sx > -1 && sy > -1 && sx < n && sy < n && sx >= loX && sx < hiX && sy >= loY && sy < hiY)
                 {
                     int x0 = (int)Math.Floor(sx), y0 = (int)Math.Floor(sy);
-                    v = BilinearFast(source, n, x0, y0, (float)(sx - x0), (float)(sy - y0));
+                    v = Bilinear.CanvasFast(source, n, x0, y0, (float)(sx - x0), (float)(sy - y0));
                 }
                 output[y * n + x] = v;
             }
         }
     }
-
-    /// <summary>
-    /// <see cref="Bilinear"/>, the same arithmetic, with the four neighbours read without bounds checks when all lie
-    /// inside the image.
-    /// </summary>
-    internal static float BilinearFast(ReadOnlySpan<float> s, int n, int x0, int y0, float tx, float ty)
-    {
-        if ((uint)x0 >= (uint)(n - 1) || (uint)y0 >= (uint)(n - 1) || s.Length < n * n) return Bilinear(s, n, x0, y0, tx, ty);
-        ref float r = ref Unsafe.Add(ref MemoryMarshal.GetReference(s), y0 * n + x0);
-        float a = r, b = Unsafe.Add(ref r, 1);
-        float c = Unsafe.Add(ref r, n), d = Unsafe.Add(ref r, n + 1);
-        return (a + (b - a) * tx) * (1 - ty) + (c + (d - c) * tx) * ty;
-    }
-
-    /// <summary>Bilinear sample of an n×n image at (x0 + tx, y0 + ty), 0 outside.</summary>
-    internal static float Bilinear(ReadOnlySpan<float> s, int n, int x0, int y0, float tx, float ty)
-    {
-        float a = At(s, n, x0, y0), b = At(s, n, x0 + 1, y0);
-        float c = At(s, n, x0, y0 + 1), d = At(s, n, x0 + 1, y0 + 1);
-        return (a + (b - a) * tx) * (1 - ty) + (c + (d - c) * tx) * ty;
-    }
-
-    private static float At(ReadOnlySpan<float> s, int n, int x, int y) =>
-        (uint)x < (uint)n && (uint)y < (uint)n ? s[y * n + x] : 0f;
 }

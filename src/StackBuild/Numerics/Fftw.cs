@@ -7,8 +7,8 @@ namespace StackBuild.Numerics;
 /// FFTW 3 single precision (Debian libfftw3-single3) through P/Invoke. One forward and one inverse plan per
 /// size, made once with FFTW_MEASURE under a lock (FFTW's planner is not thread-safe) and kept for the life of
 /// the process; transforms run with <c>fftwf_execute_dft</c> on the caller's aligned buffers, which is
-/// thread-safe. Wisdom is loaded from and saved to the user's cache folder so later runs plan instantly;
-/// failures to read or write it are ignored.
+/// thread-safe. Planning touches no file: the program's edge loads and saves FFTW's wisdom (<see cref="FftPlanCache"/>)
+/// so later runs plan instantly.
 /// </summary>
 internal static unsafe class Fftw
 {
@@ -19,7 +19,7 @@ internal static unsafe class Fftw
 
     private static readonly Lock PlannerLock = new();
     private static readonly Dictionary<(int W, int H), (nint Forward, nint Inverse)> Plans = [];
-    private static bool _wisdomLoaded;
+    private static int _plansSinceExport;
     private static readonly Lazy<(bool Ok, string Version)> Probe = new(ProbeLibrary);
 
     public static bool IsAvailable => Probe.Value.Ok;
@@ -44,49 +44,41 @@ internal static unsafe class Fftw
         lock (PlannerLock)
         {
             if (Plans.TryGetValue((width, height), out var plans)) return plans;
-            if (!_wisdomLoaded)
-            {
-                _wisdomLoaded = true;
-                var path = WisdomPath();
-                if (path != null && File.Exists(path)) fftwf_import_wisdom_from_filename(path);
-            }
             // FFTW_MEASURE overwrites the arrays while planning: plan on scratch buffers first, fill later.
             using var scratch = new ComplexImage(width, height);
             nint f = fftwf_plan_dft_2d(height, width, scratch.Pointer, scratch.Pointer, ForwardSign, Measure);
             nint b = fftwf_plan_dft_2d(height, width, scratch.Pointer, scratch.Pointer, BackwardSign, Measure);
             if (f == 0 || b == 0) throw new InvalidOperationException($"FFTW could not plan a {width}×{height} transform.");
             Plans[(width, height)] = (f, b);
-            SaveWisdom();
+            _plansSinceExport++;
             return (f, b);
         }
     }
 
-    private static void SaveWisdom()
+    /// <summary>Adds the wisdom in the file at <paramref name="path"/> to FFTW's; false when there is none or it cannot be read.</summary>
+    internal static bool ImportWisdom(string path)
     {
-        var path = WisdomPath();
-        if (path == null) return;
-        try
-        {
-            Directory.CreateDirectory(Path.GetDirectoryName(path)!);
-            var temp = $"{path}.{Environment.ProcessId}.part";
-            if (fftwf_export_wisdom_to_filename(temp) != 0) File.Move(temp, path, overwrite: true);
-            else File.Delete(temp);
-        }
-        catch (IOException) { }
-        catch (UnauthorizedAccessException) { }
+        if (!IsAvailable || !File.Exists(path)) return false;
+        lock (PlannerLock) return fftwf_import_wisdom_from_filename(path) != 0;
     }
 
-    /// <summary>$XDG_CACHE_HOME/stackbuild/fftwf-wisdom, else ~/.cache/stackbuild/fftwf-wisdom; null when neither is known.</summary>
-    internal static string? WisdomPath()
+    /// <summary>
+    /// Writes FFTW's wisdom to <paramref name="path"/> (through a temporary file and a rename) when plans were made since
+    /// the last export; false when nothing was written. I/O failures are the caller's.
+    /// </summary>
+    internal static bool ExportWisdom(string path)
     {
-        var cache = Environment.GetEnvironmentVariable("XDG_CACHE_HOME");
-        if (string.IsNullOrEmpty(cache))
+        if (!IsAvailable) return false;
+        lock (PlannerLock)
         {
-            var home = Environment.GetFolderPath(Environment.SpecialFolder.UserProfile);
-            if (string.IsNullOrEmpty(home)) return null;
-            cache = Path.Combine(home, ".cache");
+            if (_plansSinceExport == 0) return false;
+            Directory.CreateDirectory(Path.GetDirectoryName(Path.GetFullPath(path))!);
+            var temp = $"{path}.{Environment.ProcessId}.part";
+            if (fftwf_export_wisdom_to_filename(temp) == 0) { File.Delete(temp); return false; }
+            File.Move(temp, path, overwrite: true);
+            _plansSinceExport = 0;
+            return true;
         }
-        return Path.Combine(cache, "stackbuild", "fftwf-wisdom");
     }
 
     private sealed class FftwFft2D(int width, int height, nint forward, nint inverse) : IFft2D

@@ -33,4 +33,14 @@ public static class Quantiles
 
     /// <summary>Robust standard deviation: <see cref="MadToSigma"/> × the <see cref="Median"/> of deviations that are already absolute. NaN for none.</summary>
     public static double RobustSigma(IEnumerable<double> absoluteDeviations) => MadToSigma * Median(absoluteDeviations);
+
+    /// <summary>
+    /// <see cref="MadToSigma"/> × the upper middle of deviations that are already absolute (for an even count the larger of
+    /// the two middle values, not their mean; a slightly more cautious scale for outlier cut-offs over few values). 0 for none.
+    /// </summary>
+    public static double RobustSigmaUpper(IEnumerable<double> absoluteDeviations)
+    {
+        var sorted = absoluteDeviations.OrderBy(v => v).ToArray();
+        return sorted.Length == 0 ? 0 : MadToSigma * sorted[sorted.Length / 2];
+    }
 }

@@ -201,11 +201,11 @@ internal sealed class PairEngine : IDisposable
                 {
                     ix = (int)Math.Floor(sx); iy = (int)Math.Floor(sy);
                     tx = (float)(sx - ix); ty = (float)(sy - iy);
-                    wm = ImageOps.BilinearFast(mm, _n, ix, iy, tx, ty);
+                    wm = Bilinear.CanvasFast(mm, _n, ix, iy, tx, ty);
                 }
                 int i = y * _n + xx;
                 if (fm[i] <= 0.5f && wm <= 0.5f) continue; // outside both masks: the moving image is not needed here
-                if (onCanvas) wv = ImageOps.BilinearFast(mi, _n, ix, iy, tx, ty);
+                if (onCanvas) wv = Bilinear.CanvasFast(mi, _n, ix, iy, tx, ty);
                 double a = f[i], b = wv;
                 sa += a; sb += b; saa += a * a; sbb += b * b; sab += a * b;
                 count++;

@@ -1,5 +1,6 @@
 using MathNet.Numerics;
 using MathNet.Numerics.IntegralTransforms;
+using StackBuild.Imaging;
 
 namespace StackBuild.Register;
 
@@ -49,7 +50,7 @@ internal sealed class PolarSpectrum
             for (int a = 0; a < Angles; a++)
             {
                 double phi = a * DegreesPerBin * Math.PI / 180;
-                row[a] = SamplePeriodic(magnitude, n, rho * Math.Cos(phi), rho * Math.Sin(phi));
+                row[a] = Bilinear.Periodic(magnitude, n, rho * Math.Cos(phi), rho * Math.Sin(phi));
             }
             Standardise(row);
         }
@@ -79,16 +80,6 @@ internal sealed class PolarSpectrum
         Fourier.Forward(c, FourierOptions.NoScaling);
         return c;
     }
-
-    private static double SamplePeriodic(float[] m, int n, double x, double y)
-    {
-        int x0 = (int)Math.Floor(x), y0 = (int)Math.Floor(y);
-        double tx = x - x0, ty = y - y0;
-        double At(int xx, int yy) => m[Mod(yy, n) * n + Mod(xx, n)];
-        return (At(x0, y0) * (1 - tx) + At(x0 + 1, y0) * tx) * (1 - ty) + (At(x0, y0 + 1) * (1 - tx) + At(x0 + 1, y0 + 1) * tx) * ty;
-    }
-
-    private static int Mod(int a, int n) => ((a % n) + n) % n;
 
     /// <summary>
     /// Candidate angles θ (degrees, in [0°, 180°)) by which the moving image, mirrored first when asked, is

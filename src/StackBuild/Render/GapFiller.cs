@@ -51,8 +51,8 @@ public static class GapFiller
         for (int x = 0; x < width; x++)
         {
             int i = y * width + x;
-            float fromA = options.CubicBlend ? SampleCubic(a, x - t * u[i], y - t * v[i]) : SampleClamped(a, x - t * u[i], y - t * v[i]);
-            float fromB = options.CubicBlend ? SampleCubic(b, x + (1 - t) * u[i], y + (1 - t) * v[i]) : SampleClamped(b, x + (1 - t) * u[i], y + (1 - t) * v[i]);
+            float fromA = options.CubicBlend ? SampleCubic(a, x - t * u[i], y - t * v[i]) : Bilinear.SampleEdgeClamped(a, x - t * u[i], y - t * v[i]);
+            float fromB = options.CubicBlend ? SampleCubic(b, x + (1 - t) * u[i], y + (1 - t) * v[i]) : Bilinear.SampleEdgeClamped(b, x + (1 - t) * u[i], y + (1 - t) * v[i]);
             result[i] = wa * fromA + wb * fromB;
             residual.Pixels[i] = (fromB - fromA) * (fromB - fromA);
         }
@@ -205,13 +205,13 @@ public static class GapFiller
             {
                 int i = y * w + x;
                 double xa = x - t * u[i], ya = y - t * v[i], xb = x + (1 - t) * u[i], yb = y + (1 - t) * v[i];
-                float bxyv = SampleClamped(hessian.Bxy, xb, yb), axyv = SampleClamped(hessian.Axy, xa, ya);
-                hxx[i] = tb * SampleClamped(hessian.Bxx, xb, yb) + ta * SampleClamped(hessian.Axx, xa, ya);
+                float bxyv = Bilinear.SampleEdgeClamped(hessian.Bxy, xb, yb), axyv = Bilinear.SampleEdgeClamped(hessian.Axy, xa, ya);
+                hxx[i] = tb * Bilinear.SampleEdgeClamped(hessian.Bxx, xb, yb) + ta * Bilinear.SampleEdgeClamped(hessian.Axx, xa, ya);
                 hxy[i] = tb * bxyv + ta * axyv;
                 hyx[i] = hxy[i];
-                hyy[i] = tb * SampleClamped(hessian.Byy, xb, yb) + ta * SampleClamped(hessian.Ayy, xa, ya);
-                rx[i] = SampleClamped(bx, xb, yb) - SampleClamped(ax, xa, ya);
-                ry[i] = SampleClamped(by, xb, yb) - SampleClamped(ay, xa, ya);
+                hyy[i] = tb * Bilinear.SampleEdgeClamped(hessian.Byy, xb, yb) + ta * Bilinear.SampleEdgeClamped(hessian.Ayy, xa, ya);
+                rx[i] = Bilinear.SampleEdgeClamped(bx, xb, yb) - Bilinear.SampleEdgeClamped(ax, xa, ya);
+                ry[i] = Bilinear.SampleEdgeClamped(by, xb, yb) - Bilinear.SampleEdgeClamped(ay, xa, ya);
             }
         }
         for (int y = 0; y < h; y++)
@@ -220,9 +220,9 @@ public static class GapFiller
             int i = y * w + x;
             double xa = x - t * u[i], ya = y - t * v[i], xb = x + (1 - t) * u[i], yb = y + (1 - t) * v[i];
             // d/dd [b(x + (1 − t)d) − a(x − t·d)] = (1 − t)∇b + t∇a at the warped positions.
-            gx[i] = tb * SampleClamped(bx, xb, yb) + ta * SampleClamped(ax, xa, ya);
-            gy[i] = tb * SampleClamped(by, xb, yb) + ta * SampleClamped(ay, xa, ya);
-            it[i] = SampleClamped(b, xb, yb) - SampleClamped(a, xa, ya);
+            gx[i] = tb * Bilinear.SampleEdgeClamped(bx, xb, yb) + ta * Bilinear.SampleEdgeClamped(ax, xa, ya);
+            gy[i] = tb * Bilinear.SampleEdgeClamped(by, xb, yb) + ta * Bilinear.SampleEdgeClamped(ay, xa, ya);
+            it[i] = Bilinear.SampleEdgeClamped(b, xb, yb) - Bilinear.SampleEdgeClamped(a, xa, ya);
         }
         var du = new float[n];
         var dv = new float[n];
@@ -288,21 +288,6 @@ public static class GapFiller
             gy.Pixels[y * w + x] = (image.Pixels[yd * w + x] - image.Pixels[yu * w + x]) / Math.Max(1, yd - yu);
         }
         return (gx, gy);
-    }
-
-    /// <summary>Bilinear sample with positions outside the image moved to its nearest edge (no made-up zeros at the border).</summary>
-    private static float SampleClamped(GrayImage image, double x, double y)
-    {
-        int w = image.Width, h = image.Height;
-        if (!double.IsFinite(x) || !double.IsFinite(y)) return image.Pixels[0];
-        double fx = Math.Clamp(x, 0, w - 1), fy = Math.Clamp(y, 0, h - 1);
-        int x0 = Math.Min((int)fx, Math.Max(0, w - 2)), y0 = Math.Min((int)fy, Math.Max(0, h - 2));
-        int x1 = Math.Min(x0 + 1, w - 1), y1 = Math.Min(y0 + 1, h - 1);
-        float tx = (float)(fx - x0), ty = (float)(fy - y0);
-        var p = image.Pixels;
-        float top = p[y0 * w + x0] + (p[y0 * w + x1] - p[y0 * w + x0]) * tx;
-        float bottom = p[y1 * w + x0] + (p[y1 * w + x1] - p[y1 * w + x0]) * tx;
-        return top + (bottom - top) * ty;
     }
 
     /// <summary>Cubic convolution (<see cref="CubicConvolution"/>) with positions outside the image moved to its nearest edge.</summary>

@@ -231,8 +231,7 @@ public static class SmoothingSolver
             }));
         }
         var closure = triangles.Select(Closure).ToArray();
-        var sorted = closure.OrderBy(v => v).ToArray();
-        double cutoff = Math.Max(options.MinCutoffPx, options.TukeyC * Quantiles.MadToSigma * sorted[sorted.Length / 2]);
+        double cutoff = Math.Max(options.MinCutoffPx, options.TukeyC * Quantiles.RobustSigmaUpper(closure));
         bool Bad(int t) => Closure(triangles[t]) > cutoff;
 
         var ofPair = new Dictionary<int, List<int>>();
@@ -320,14 +319,11 @@ public static class SmoothingSolver
         triangles <= 0 ? double.PositiveInfinity : IndependentSlowShare + options.SlowClosureMargin / Math.Sqrt(triangles);
 
     /// <summary>
-    /// <see cref="Quantiles.MadToSigma"/> × the median residual of the pairs in use (a consistent estimate of σ for Gaussian
-    /// residuals); the median here is the upper middle value, not interpolated.
+    /// <see cref="Quantiles.RobustSigmaUpper"/> of the residuals of the pairs in use (a consistent estimate of σ for Gaussian
+    /// residuals).
     /// </summary>
-    private static double RobustScale(double[] residual, List<PairObservation> usable, double minConfidence)
-    {
-        var r = residual.Where((_, k) => usable[k].Result.Confidence >= minConfidence).OrderBy(v => v).ToArray();
-        return r.Length == 0 ? 0 : Quantiles.MadToSigma * r[r.Length / 2];
-    }
+    private static double RobustScale(double[] residual, List<PairObservation> usable, double minConfidence) =>
+        Quantiles.RobustSigmaUpper(residual.Where((_, k) => usable[k].Result.Confidence >= minConfidence));
 
     /// <summary>Jacobian row of a reference-frame point q of section i with respect to (θᵢ, txᵢ, tyᵢ).</summary>
     private static (double Theta, double Tx) RowX((double X, double Y) q, (double X, double Y) c) => (-(q.Y - c.Y), 1);

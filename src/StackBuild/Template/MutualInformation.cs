@@ -84,7 +84,6 @@ public static class HistogramMutualInformation
     {
         var s = scaledSlice.Pixels;
         int count = 0;
-        double xMax = sliceWidth - 1, yMax = sliceHeight - 1;
         for (int y = 0; y < height; y += stride)
         {
             var (sx, sy) = sectionToSlice.Apply(0, y);
@@ -93,17 +92,7 @@ public static class HistogramMutualInformation
             for (int x = 0; x < width; x += stride, sx += dx, sy += dy)
             {
                 if (sx < -0.5 || sy < -0.5 || sx > sliceWidth - 0.5 || sy > sliceHeight - 0.5) continue;
-                // Bilinear sample, clamped within half a pixel of the edge (GrayImage.SampleBilinear's rule).
-                double fx = sx < 0 ? 0 : sx > xMax ? xMax : sx, fy = sy < 0 ? 0 : sy > yMax ? yMax : sy;
-                int x0 = (int)fx, y0 = (int)fy;
-                if (x0 > sliceWidth - 2) x0 = Math.Max(0, sliceWidth - 2);
-                if (y0 > sliceHeight - 2) y0 = Math.Max(0, sliceHeight - 2);
-                int x1 = Math.Min(x0 + 1, sliceWidth - 1), y1 = Math.Min(y0 + 1, sliceHeight - 1);
-                double tx = fx - x0, ty = fy - y0;
-                int r0 = y0 * sliceWidth, r1 = y1 * sliceWidth;
-                double top = s[r0 + x0] + (s[r0 + x1] - s[r0 + x0]) * tx;
-                double bottom = s[r1 + x0] + (s[r1 + x1] - s[r1 + x0]) * tx;
-                double u = top + (bottom - top) * ty;
+                double u = Bilinear.SampleInside(s, sliceWidth, sliceHeight, sx, sy); // within half a pixel of the edge: tested above
                 int b0 = (int)u;
                 if (b0 >= bins - 1) b0 = bins - 1;
                 double f = u - b0;
