@@ -127,7 +127,7 @@ public sealed record ApplyGrid(int Nx, int Ny, double OutputPixelUm, Transform2D
         if (!(Math.Max(gx, gy) <= MaxVoxelsPerAxis))
             throw new InputProblemException(option,
                 $"{outUm.ToString("0.###", CultureInfo.InvariantCulture)} µm over the build's {nx} × {ny} voxels of {buildPixelUm.ToString("0.###", CultureInfo.InvariantCulture)} µm would give {gx:0} × {gy:0} voxels in a plane, more than NIfTI-1 stores ({MaxVoxelsPerAxis} per axis)",
-                $"give {option} a size of at least {(Math.Max(nx, ny) * buildPixelUm / MaxVoxelsPerAxis).ToString("0.###", CultureInfo.InvariantCulture)} µm");
+                $"give {option} a size of at least {RoundedUp(Math.Max(nx, ny) * buildPixelUm / MaxVoxelsPerAxis)} µm");
         CheckPlanes((int)gx, (int)gy, planes, sectionSpacingUm, planeUm, option);
         var gridToBuild = Resampler.EdgeAlignedScale(1 / r);
         var a = atSections;
@@ -138,6 +138,9 @@ public sealed record ApplyGrid(int Nx, int Ny, double OutputPixelUm, Transform2D
             [a[2, 0] * s, a[2, 1] * s, a[2, 2], a[2, 3] + a[2, 0] * tx + a[2, 1] * ty]);
         return new ApplyGrid((int)gx, (int)gy, outUm, Resampler.EdgeAlignedScale(r), affine, planeUm);
     }
+
+    /// <summary>A smallest size for a message, rounded up to 0.001 µm so that the size shown is itself accepted.</summary>
+    private static string RoundedUp(double um) => (Math.Ceiling(um * 1000 * (1 + 1e-12)) / 1000).ToString("0.###", CultureInfo.InvariantCulture);
 
     /// <summary>NIfTI-1 stores each dimension as a signed 16-bit number.</summary>
     public const int MaxVoxelsPerAxis = short.MaxValue;
@@ -151,7 +154,7 @@ public sealed record ApplyGrid(int Nx, int Ny, double OutputPixelUm, Transform2D
         if (count > MaxVoxelsPerAxis)
             throw new InputProblemException("--voxel-size",
                 $"{planeUm!.Value.ToString("0.###", CultureInfo.InvariantCulture)} µm between planes would give {count} planes, more than NIfTI-1 stores ({MaxVoxelsPerAxis})",
-                $"give --voxel-size a size of at least {((planes - 1) * sectionSpacingUm / (MaxVoxelsPerAxis - 1)).ToString("0.###", CultureInfo.InvariantCulture)} µm");
+                $"give --voxel-size a size of at least {RoundedUp((planes - 1) * sectionSpacingUm / (MaxVoxelsPerAxis - 1))} µm");
         if ((long)nx * ny * Math.Max(count, planes) > Array.MaxLength)
             throw new InputProblemException(sizeOption, $"the volume would have {nx} × {ny} × {Math.Max(count, planes)} voxels, more than fits in memory",
                 $"give {sizeOption} a larger size");

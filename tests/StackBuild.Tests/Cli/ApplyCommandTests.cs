@@ -68,6 +68,31 @@ public sealed class ApplyCommandTests(ApplyDemoFixture demo)
     }
 
     [Fact]
+    public void VoxelSizeSetsThePlaneSpacingAndTheInPlaneSizeAsBuildTakesIt()
+    {
+        var output = Path.Combine(demo.Folder, "voxel-25.nii.gz");
+        var (code, _, err) = CliRun.Run("apply", demo.Paths.Sidecar, "--images", demo.SeriesA, "-o", output, "--voxel-size", "25");
+        Assert.True(code == 0, err);
+        var header = StackBuild.Nifti.NiftiFile.ReadHeader(output);
+        var (i, j, k) = header.Affine.VoxelSizes;
+        Assert.Equal(0.025, i, 1e-7);
+        Assert.Equal(0.025, j, 1e-7);
+        Assert.Equal(0.025, k, 1e-7);
+        // Planes 25 µm apart from the first section's to the last's (the demo's sections are 50 µm apart).
+        int planes = demo.Build.Record.Sections.Max(s => s.ZIndex) + 1;
+        Assert.Equal((planes - 1) * 2 + 1, header.Shape[2]);
+
+        var tooMany = Path.Combine(demo.Folder, "planes-too-many.nii.gz");
+        var (refused, _, message) = CliRun.Run("apply", demo.Paths.Sidecar, "--images", demo.SeriesA, "-o", tooMany,
+            "--output-pixel-size", "20", "--voxel-size", "0.01");
+        Assert.Equal(1, refused);
+        var line = Assert.Single(message.Split('\n', StringSplitOptions.RemoveEmptyEntries));
+        Assert.StartsWith("error: --voxel-size: ", line);
+        Assert.Contains("more than NIfTI-1 stores (32767)", line);
+        Assert.False(File.Exists(tooMany));
+    }
+
+    [Fact]
     public void AGridOverTheNiftiLimitSaysWhichSizeWouldDo()
     {
         var output = Path.Combine(demo.Folder, "too-fine.nii.gz");
