@@ -27,6 +27,8 @@ public sealed record ApplyRecord
     [JsonPropertyName("dimensions")] public int[] Dimensions { get; init; } = [];
     [JsonPropertyName("voxel_size_mm")] public double[] VoxelSizeMm { get; init; } = [];
     [JsonPropertyName("affine")] public double[][] Affine { get; init; } = [];
+    /// <summary>The grid the set was drawn into: the build's, or one of another voxel size over the same extent.</summary>
+    [JsonPropertyName("grid")] public AppliedGridRecord? Grid { get; init; }
     /// <summary>The image set's pixel size, µm (its manifest or --pixel-size).</summary>
     [JsonPropertyName("pixel_size_um")] public double PixelSizeUm { get; init; }
     [JsonPropertyName("bit_depth")] public int BitDepth { get; init; }
@@ -54,6 +56,111 @@ public sealed record AppliedSectionRecord
     [JsonPropertyName("filled_from")] public int[]? FilledFrom { get; init; }
 }
 
+/// <summary>The grid of an applied volume beside the build's: voxel sizes, and which point of the build's grid was kept.</summary>
+public sealed record AppliedGridRecord
+{
+    /// <summary>"the build's" when the build's grid was used; "another voxel size over the build's extent" otherwise.</summary>
+    [JsonPropertyName("grid")] public string Grid { get; init; } = "";
+    [JsonPropertyName("output_pixel_size_um")] public double OutputPixelSizeUm { get; init; }
+    /// <summary>Distance between planes, µm (the section spacing, or the --voxel-size the planes were resampled to).</summary>
+    [JsonPropertyName("plane_spacing_um")] public double PlaneSpacingUm { get; init; }
+    [JsonPropertyName("build_output_pixel_size_um")] public double BuildOutputPixelSizeUm { get; init; }
+    [JsonPropertyName("build_plane_spacing_um")] public double BuildPlaneSpacingUm { get; init; }
+    [JsonPropertyName("build_dimensions")] public int[] BuildDimensions { get; init; } = [];
+    /// <summary>What stays where the build put it, in words (<see cref="ApplyGrid.KeptWords"/>).</summary>
+    [JsonPropertyName("kept")] public string Kept { get; init; } = "";
+}
+
+/// <summary>
+/// The voxel size an applied volume is drawn at; null fields keep the build's. The names and meaning are <c>build</c>'s:
+/// <see cref="OutputPixelSizeUm"/> is the in-plane size (--output-pixel-size); <see cref="VoxelSizeUm"/> is the plane
+/// spacing and, unless <see cref="OutputPixelSizeUm"/> is given, the in-plane size too (--voxel-size).
+/// </summary>
+public sealed record ApplyGridOptions
+{
+    public double? OutputPixelSizeUm { get; init; }
+    public double? VoxelSizeUm { get; init; }
+}
+
+/// <summary>
+/// The in-plane grid an applied volume is drawn into, at the section spacing.
+/// </summary>
+/// <param name="Nx">Voxels along i.</param>
+/// <param name="Ny">Voxels along j.</param>
+/// <param name="OutputPixelUm">In-plane voxel size, µm.</param>
+/// <param name="BuildToGrid">The build's (i, j) → this grid's (i, j).</param>
+/// <param name="Affine">The build's affine with its i and j columns scaled and its translation moved so the outer corner of
+/// voxel (0, 0) stays where it was (<see cref="ApplyGrid.KeptWords"/>).</param>
+/// <param name="PlaneSpacingUm">The plane spacing to resample to at the end; null = the section spacing.</param>
+public sealed record ApplyGrid(int Nx, int Ny, double OutputPixelUm, Transform2D BuildToGrid, Geometry.Affine Affine, double? PlaneSpacingUm)
+{
+    /// <summary>The fixed point of a grid of another voxel size, as the sidecar and README state it.</summary>
+    public const string KeptWords = "the outer corner of voxel (0, 0) (i = j = -0.5 in the build's voxels) at its world position, the " +
+        "build's in-plane extent (rounded up to whole voxels) and orientation, and plane 0 at the first section's plane";
+
+    /// <summary>
+    /// The grid for <paramref name="options"/> over the build's grid (<paramref name="nx"/> × <paramref name="ny"/> voxels of
+    /// <paramref name="buildPixelUm"/>, affine <paramref name="atSections"/> at the section spacing). Another in-plane size s
+    /// scales the i and j columns by s / build's size and keeps the outer edge of the first voxel: build voxel
+    /// coordinate x (i or j) is grid coordinate (x + 0.5)·r − 0.5 with r = build's size / s, so the build's voxel edges −0.5
+    /// and n − 0.5 are the grid's −0.5 and n·r − 0.5. The grid has ⌈n·r⌉ voxels, covering the build's extent (the last
+    /// may reach past it by less than one voxel). Refuses, naming the option, a size that is not a positive number or a
+    /// grid over NIfTI-1's 32767 voxels per axis or over what one array holds.
+    /// </summary>
+    public static ApplyGrid For(int nx, int ny, int planes, double buildPixelUm, Geometry.Affine atSections, double? buildPlaneSpacingUm,
+        double sectionSpacingUm, ApplyGridOptions options)
+    {
+        string option = options.OutputPixelSizeUm is not null ? "--output-pixel-size" : "--voxel-size";
+        double? asked = options.OutputPixelSizeUm ?? options.VoxelSizeUm;
+        foreach (var (name, value) in new[] { ("--output-pixel-size", options.OutputPixelSizeUm), ("--voxel-size", options.VoxelSizeUm) })
+            if (value is double v && !(v > 0 && double.IsFinite(v)))
+                throw new InputProblemException(name, $"{v.ToString(CultureInfo.InvariantCulture)} is not a positive number of µm",
+                    $"give {name} a size in µm greater than 0, e.g. {name} {buildPixelUm.ToString("0.###", CultureInfo.InvariantCulture)} (the build's)");
+        double? planeUm = options.VoxelSizeUm ?? buildPlaneSpacingUm;
+        if (asked is not double outUm || Math.Abs(outUm - buildPixelUm) <= 1e-9 * buildPixelUm)
+        {
+            CheckPlanes(nx, ny, planes, sectionSpacingUm, planeUm);
+            return new ApplyGrid(nx, ny, buildPixelUm, Transform2D.Identity, atSections, planeUm);
+        }
+        double r = buildPixelUm / outUm;
+        double gx = Math.Ceiling(nx * r - 1e-9), gy = Math.Ceiling(ny * r - 1e-9);
+        if (!(Math.Max(gx, gy) <= MaxVoxelsPerAxis))
+            throw new InputProblemException(option,
+                $"{outUm.ToString("0.###", CultureInfo.InvariantCulture)} µm over the build's {nx} × {ny} voxels of {buildPixelUm.ToString("0.###", CultureInfo.InvariantCulture)} µm would give {gx:0} × {gy:0} voxels in a plane, more than NIfTI-1 stores ({MaxVoxelsPerAxis} per axis)",
+                $"give {option} a size of at least {RoundedUp(Math.Max(nx, ny) * buildPixelUm / MaxVoxelsPerAxis)} µm");
+        CheckPlanes((int)gx, (int)gy, planes, sectionSpacingUm, planeUm, option);
+        var gridToBuild = Resampler.EdgeAlignedScale(1 / r);
+        var a = atSections;
+        double tx = gridToBuild.M02, ty = gridToBuild.M12, s = gridToBuild.M00;
+        var affine = Geometry.Affine.FromRows(
+            [a[0, 0] * s, a[0, 1] * s, a[0, 2], a[0, 3] + a[0, 0] * tx + a[0, 1] * ty],
+            [a[1, 0] * s, a[1, 1] * s, a[1, 2], a[1, 3] + a[1, 0] * tx + a[1, 1] * ty],
+            [a[2, 0] * s, a[2, 1] * s, a[2, 2], a[2, 3] + a[2, 0] * tx + a[2, 1] * ty]);
+        return new ApplyGrid((int)gx, (int)gy, outUm, Resampler.EdgeAlignedScale(r), affine, planeUm);
+    }
+
+    /// <summary>A smallest size for a message, rounded up to 0.001 µm so that the size shown is itself accepted.</summary>
+    private static string RoundedUp(double um) => (Math.Ceiling(um * 1000 * (1 + 1e-12)) / 1000).ToString("0.###", CultureInfo.InvariantCulture);
+
+    /// <summary>NIfTI-1 stores each dimension as a signed 16-bit number.</summary>
+    public const int MaxVoxelsPerAxis = short.MaxValue;
+
+    /// <summary>Refuses a plane spacing that gives more planes than NIfTI-1 stores, or a volume over one array.</summary>
+    private static void CheckPlanes(int nx, int ny, int planes, double sectionSpacingUm, double? planeUm, string sizeOption = "--output-pixel-size")
+    {
+        long count = planes;
+        if (planeUm is double z && Math.Abs(z - sectionSpacingUm) > 1e-9 * z)
+            count = (long)Math.Floor((planes - 1) * sectionSpacingUm / z + 1e-9) + 1;
+        if (count > MaxVoxelsPerAxis)
+            throw new InputProblemException("--voxel-size",
+                $"{planeUm!.Value.ToString("0.###", CultureInfo.InvariantCulture)} µm between planes would give {count} planes, more than NIfTI-1 stores ({MaxVoxelsPerAxis})",
+                $"give --voxel-size a size of at least {RoundedUp((planes - 1) * sectionSpacingUm / (MaxVoxelsPerAxis - 1))} µm");
+        if ((long)nx * ny * Math.Max(count, planes) > Array.MaxLength)
+            throw new InputProblemException(sizeOption, $"the volume would have {nx} × {ny} × {Math.Max(count, planes)} voxels, more than fits in memory",
+                $"give {sizeOption} a larger size");
+    }
+}
+
 /// <summary>An applied volume (intensities in the image set's own units), its record and the image set's bit depth.</summary>
 public sealed record ApplyResult(Volume Volume, ApplyRecord Record, int InputBitDepth);
 
@@ -72,14 +179,22 @@ public static class ApplyStage
     /// <param name="sidecarPath">The sidecar's path, for messages and the record.</param>
     /// <param name="channel">How colour images become gray.</param>
     /// <param name="createdUtc">The run's time, for the record.</param>
+    /// <param name="grid">Another voxel size to draw at (<see cref="ApplyGrid.For"/>); null keeps the build's grid.</param>
     public static ApplyResult Apply(BuildRecord build, string sidecarPath, SectionSeries other, ISectionImages images, GrayChannel channel,
-        DateTime createdUtc, IProgress<string>? progress = null)
+        DateTime createdUtc, IProgress<string>? progress = null, ApplyGridOptions? grid = null)
     {
         var (nx, ny, _, affine) = SidecarFile.Geometry(build, sidecarPath);
         var parameters = build.Parameters;
         if (!(parameters.OutputPixelSizeUm > 0) || !(build.SpacingUm > 0) || build.Sections.Count == 0)
             throw new InputProblemException(sidecarPath, "the sidecar has no output pixel size, section spacing or sections",
                 "give the .json written beside the volume by 'stackbuild build', unedited");
+        int planes = build.Sections.Max(s => s.ZIndex) + 1;
+        var resampling = parameters.PlaneResampling;
+        // The grid at the section spacing: the stored affine's k column, undone from any resampling along the stack.
+        var atSections = resampling is { } r ? ScaleK(affine, r.FromUm / r.ToUm) : affine;
+        var target = ApplyGrid.For(nx, ny, planes, parameters.OutputPixelSizeUm, atSections, resampling?.ToUm, build.SpacingUm, grid ?? new ApplyGridOptions());
+        bool buildsGrid = target.Nx == nx && target.Ny == ny && target.BuildToGrid.Equals(Transform2D.Identity)
+            && target.PlaneSpacingUm == resampling?.ToUm;
         var byNumber = other.Sections.ToDictionary(s => s.Number);
         var sections = new List<RenderedSection>();
         var missing = new List<int>();
@@ -99,7 +214,7 @@ public static class ApplyStage
             }
             double storedUm = stored.PixelSizeUm ?? build.InputPixelSizeUm;
             if (OtherField(stored, storedUm, entry) is { } field) fieldMismatch.Add(field);
-            var imageToPlane = ScaledMatrix(Transform2D.FromRows(stored.Matrix!), entry.PixelSizeUm / storedUm);
+            var imageToPlane = ScaledMatrix(Transform2D.FromRows(stored.Matrix!), entry.PixelSizeUm / storedUm).Then(target.BuildToGrid);
             sections.Add(new RenderedSection(entry, null, stored.ZIndex, stored.Status, imageToPlane));
         }
         var placedNumbers = build.Sections.Where(s => s.Matrix is not null).Select(s => s.Number).ToHashSet();
@@ -111,19 +226,21 @@ public static class ApplyStage
 
         int bits = sections.Where(s => s.ImageToPlane is not null).Max(s => s.Entry.Image!.BitsPerChannel);
         double maxValue = bits > 8 ? 65535 : 255;
-        int planes = build.Sections.Max(s => s.ZIndex) + 1;
-        var resampling = parameters.PlaneResampling;
         var fill = build.Aligned ? parameters.Fill : GapFill.None;
-        var settings = new RenderSettings(parameters.OutputPixelSizeUm, maxValue, channel, parameters.Interpolation, fill,
-            build.SpacingUm, resampling?.ToUm);
-        // The grid at the section spacing: the stored affine's k column, undone from any resampling along the stack.
-        var atSections = resampling is { } r ? ScaleK(affine, r.FromUm / r.ToUm) : affine;
-        var rendered = RenderStage.RenderPlaced(sections, new Volume(nx, ny, planes, atSections), settings, images, progress);
+        var settings = new RenderSettings(target.OutputPixelUm, maxValue, channel, parameters.Interpolation, fill,
+            build.SpacingUm, target.PlaneSpacingUm);
+        var rendered = RenderStage.RenderPlaced(sections, new Volume(target.Nx, target.Ny, planes, target.Affine), settings, images, progress);
         var volume = rendered.Volume;
-        if (volume.Nz != build.Dimensions[2])
-            throw new InputProblemException(sidecarPath, $"its sections give {volume.Nz} planes, but it says the volume has {build.Dimensions[2]}",
-                "give the .json written beside the volume by 'stackbuild build', unedited");
-        volume.Affine = affine; // the build's affine exactly, not one rebuilt through the resampling's scale
+        if (target.PlaneSpacingUm == resampling?.ToUm)
+        {
+            if (volume.Nz != build.Dimensions[2])
+                throw new InputProblemException(sidecarPath, $"its sections give {volume.Nz} planes, but it says the volume has {build.Dimensions[2]}",
+                    "give the .json written beside the volume by 'stackbuild build', unedited");
+            // The build's affine exactly (or its in-plane scaling), not one rebuilt through the resampling's scale.
+            if (buildsGrid) volume.Affine = affine;
+            else if (resampling is { } z) volume.Affine = ScaleK(target.Affine, z.ToUm / z.FromUm);
+        }
+        affine = volume.Affine;
 
         var warnings = new List<string>(other.Warnings);
         if (missing.Count > 0)
@@ -147,6 +264,16 @@ public static class ApplyStage
             Dimensions = [volume.Nx, volume.Ny, volume.Nz],
             VoxelSizeMm = [affine.VoxelSizes.I, affine.VoxelSizes.J, affine.VoxelSizes.K],
             Affine = affine.ToRows(),
+            Grid = new AppliedGridRecord
+            {
+                Grid = buildsGrid ? "the build's" : "another voxel size over the build's extent",
+                OutputPixelSizeUm = target.OutputPixelUm,
+                PlaneSpacingUm = target.PlaneSpacingUm ?? build.SpacingUm,
+                BuildOutputPixelSizeUm = parameters.OutputPixelSizeUm,
+                BuildPlaneSpacingUm = resampling?.ToUm ?? build.SpacingUm,
+                BuildDimensions = [nx, ny, build.Dimensions[2]],
+                Kept = buildsGrid ? "every voxel where the build put it" : ApplyGrid.KeptWords,
+            },
             PixelSizeUm = other.PixelSizeUm,
             BitDepth = bits,
             Channel = channel.ToString().ToLowerInvariant(),
