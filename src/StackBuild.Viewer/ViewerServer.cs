@@ -47,7 +47,13 @@ public sealed class ViewerServer : IAsyncDisposable
         builder.WebHost.ConfigureKestrel(k =>
         {
             k.AddServerHeader = false;
-            k.Limits.MaxRequestLineSize = 8 * 1024;
+            // The page's own requests are a few hundred bytes with no body; anything much larger is refused by Kestrel
+            // before it reaches the viewer (README, "The viewer's limits"): a longer request line with 414, a larger
+            // header block or more header lines with 431.
+            k.Limits.MaxRequestLineSize = MaxRequestLineBytes;
+            k.Limits.MaxRequestHeadersTotalSize = MaxRequestHeaderBytes;
+            k.Limits.MaxRequestHeaderCount = MaxRequestHeaderCount;
+            k.Limits.MaxRequestBodySize = 0;
             k.Listen(address, port);
         });
         builder.Services.AddRoutingCore();
@@ -59,6 +65,18 @@ public sealed class ViewerServer : IAsyncDisposable
             context.Response.Headers.ContentSecurityPolicy =
                 "default-src 'none'; script-src 'self'; style-src 'self'; img-src 'self' blob:; connect-src 'self'; base-uri 'none'; form-action 'none'";
             context.Response.Headers["Referrer-Policy"] = "no-referrer";
+            if (!HttpMethods.IsGet(context.Request.Method))
+            {
+                context.Response.Headers.Allow = "GET";
+                await Problem(context, StatusCodes.Status405MethodNotAllowed, $"this viewer answers only GET requests, not {Printable(context.Request.Method)}");
+                return;
+            }
+            if (context.Request.ContentLength > 0 || context.Request.Headers.TransferEncoding.Count > 0)
+            {
+                // Refused before the body is read; Kestrel closes the connection rather than read what was sent.
+                await Problem(context, StatusCodes.Status413PayloadTooLarge, "this viewer's requests take no body; send the parameters in the query string");
+                return;
+            }
             if (IPAddress.IsLoopback(address) && !IsLoopbackHost(context.Request.Host))
             {
                 // A page elsewhere cannot reach this server through a made-up host name (DNS rebinding).
@@ -85,6 +103,17 @@ public sealed class ViewerServer : IAsyncDisposable
         await _app.StopAsync();
         await _app.DisposeAsync();
     }
+
+    /// <summary>Longest request line (method, path with query, version) the viewer reads, in bytes; longer is 414.</summary>
+    public const int MaxRequestLineBytes = 8 * 1024;
+
+    /// <summary>Largest header block the viewer reads, in bytes; larger is 431 (Kestrel's own default, made explicit).</summary>
+    public const int MaxRequestHeaderBytes = 32 * 1024;
+
+    /// <summary>Most header lines the viewer reads; more is 431 (Kestrel's own default, made explicit).</summary>
+    public const int MaxRequestHeaderCount = 100;
+
+    private static string Printable(string text) => text.Length <= 20 && text.All(c => c is > ' ' and < (char)127) ? text : "that method";
 
     private static bool IsLoopbackHost(HostString host) =>
         host.Host is "localhost" or "127.0.0.1" or "[::1]" || host.Host.StartsWith("127.", StringComparison.Ordinal);

@@ -76,6 +76,8 @@ public static class ViewCommand
             {
                 server.DisposeAsync().AsTask().GetAwaiter().GetResult();
             }
+            // Ctrl+C (SIGINT) or SIGTERM is how a viewer is meant to stop: a normal end, said in one line.
+            console.Out.WriteLine($"stopped: {server.Url} is closed");
             return CliOutput.ExitOk;
         })));
         return command;
