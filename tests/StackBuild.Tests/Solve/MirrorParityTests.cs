@@ -130,6 +130,29 @@ public sealed class MirrorParityTests
     }
 
     [Fact]
+    public void FarPairsThatProveUnreliableOnTheSeriesCannotTurnAnEndOver()
+    {
+        // 40 sections, number 34 lost: positions 34–39 (numbers 35–40) are the end of the stack, tied to the rest across the
+        // gap. The pair across it, (34, 33), two sections apart, prefers the wrong relative mirror clearly (NCC 0.95 against
+        // 0.8), as the pair across the lost section did at the end of the whole head cut coronally (docs/accuracy.md).
+        var truth = Sides(40, 7, 18, 30);
+        var steps = Enumerable.Range(0, 40).Select(i => (double)(i < 34 ? i : i + 1)).ToList();
+        double AcrossGap(int m, int f) => (m, f) == (34, 33) ? -0.15 : 0.05;
+
+        // Where the far pairs agree with the nearest ones everywhere else, they are trusted at their full weight, and the
+        // one clear far pair outweighs the face-up prior of the six end sections: the end is turned over. (This is what
+        // the decision did before it measured the far pairs' reliability; it shows the test can fail.)
+        var trusted = MirrorParity.Decide(40, Pairs(truth, 0.05, AcrossGap), steps);
+        Assert.True(Enumerable.Range(34, 6).All(i => trusted.Flipped[i] != truth[i]), "trusted far pairs should turn the end over");
+
+        // Where the series' far pairs agree with the nearest pairs no more often than a coin (a nearly symmetric specimen),
+        // their weight falls to nothing and the nearest pairs and the prior decide: every side right.
+        double Coin(int m, int f) => m - f >= 2 ? (new Random(100 * m + f).Next(2) == 0 ? 0.05 : -0.05) : AcrossGap(m, f);
+        var coin = MirrorParity.Decide(40, Pairs(truth, 0.05, Coin), steps);
+        Assert.Equal(truth, coin.Flipped);
+    }
+
+    [Fact]
     public void TemplateVotesDecideWhereThePairsCannotAndTheirHandednessIsFound()
     {
         // Sections 10–13 are tied to the rest by pairs that say nothing (equal scores): the prior would keep them face up,
