@@ -42,13 +42,14 @@ public sealed record SectionRecord
     /// <summary>reference, neighbour, second-neighbour, distant, failed, template (no confident neighbour match; placed by its own template match), or part-reference (see <see cref="Part"/>).</summary>
     [JsonPropertyName("route"), JsonConverter(typeof(SidecarWords.RouteConverter))] public LinkRoute? Route { get; init; }
     /// <summary>
-    /// Set when nothing linked the section's stretch of the stack to the reference: the number of that part (1, 2, …), whose own
-    /// reference has route part-reference. Without a template, where the part lies relative to the rest is unknown.
+    /// Set when the section lies in a stretch of the stack whose place relative to the rest is uncertain: the number of that
+    /// part of the chain (1, 2, … for a stretch nothing linked to the reference, whose own reference has route part-reference;
+    /// 0 for the reference's own part when, without a template, another part joined to it is larger and is taken as the stack).
     /// </summary>
     [JsonPropertyName("part")] public int? Part { get; init; }
     /// <summary>
     /// Without a template, the one match across the break that places the section's part relative to the rest (the part's
-    /// best, however weak); null in part 0 and in template builds.
+    /// best, however weak; for part 0, the match that placed the larger part); null when the section's place is not uncertain and in template builds.
     /// </summary>
     [JsonPropertyName("part_joined_by")] public PartJoinRecord? PartJoinedBy { get; init; }
     /// <summary>How far apart (µm, mean over the corners) the placements through the first and second neighbour are.</summary>

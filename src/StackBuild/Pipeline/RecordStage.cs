@@ -149,8 +149,8 @@ public static class RecordStage
             PeakToSidelobe = pair?.Best.PeakToSidelobe,
             RegisteredTo = place.LinkedTo >= 0 ? sections[place.LinkedTo].Entry.Number : null,
             Route = place.Route,
-            Part = place.Part != 0 && place.Route != LinkRoute.Failed ? place.Part : null,
-            PartJoinedBy = place.Part != 0 && place.Route != LinkRoute.Failed && placements.PartJoins.FirstOrDefault(j => j.Part == place.Part) is { } join
+            Part = place.Route != LinkRoute.Failed && placements.IsUncertainPart(place.Part) ? place.Part : null,
+            PartJoinedBy = place.Route != LinkRoute.Failed && placements.IsUncertainPart(place.Part) && placements.JoinOf(place.Part) is { } join
                 ? new PartJoinRecord(sections[join.Moving].Entry.Number, sections[join.Fixed].Entry.Number, Math.Round(join.Confidence, 4)) : null,
             RouteDisagreementUm = place.RouteDisagreement is { } d ? d * workUm : null,
             RunnerUp = pair?.RunnerUp is { } ru ? new HypothesisRecord(ru.Mirrored, ru.RotationDegrees, ru.Ncc, ru.Mirrored != pair.Best.Mirrored) : null,

@@ -23,6 +23,26 @@ public sealed record Placements(IReadOnlyList<ChainPlacement> Chain, IReadOnlyLi
     /// <summary>The parts of the stack that hang on one weak match (<see cref="ChainSolver.JoinParts"/>; builds without a template).</summary>
     public IReadOnlyList<PartJoin> PartJoins { get; init; } = [];
 
+    /// <summary>
+    /// The parts whose place relative to the rest is uncertain (<see cref="ChainSolver.UncertainParts"/>): every part but the
+    /// largest of those joined in a build without a template; null: every part but 0 (template builds, where the template
+    /// places the parts).
+    /// </summary>
+    public IReadOnlySet<int>? UncertainParts { get; init; }
+
+    /// <summary>The part taken as the stack when parts were joined (<see cref="ChainSolver.UncertainParts"/>); 0 otherwise.</summary>
+    public int LargestPart { get; init; }
+
+    /// <summary>Whether a placed section of part <paramref name="part"/> lies where the rest of the stack is uncertain.</summary>
+    public bool IsUncertainPart(int part) => UncertainParts?.Contains(part) ?? part != 0;
+
+    /// <summary>
+    /// The weak match that placed part <paramref name="part"/> relative to the part taken as the stack: its own join, or, for
+    /// the reference's part 0 when another part is larger, the join of that larger part. Null when none.
+    /// </summary>
+    public PartJoin? JoinOf(int part) =>
+        PartJoins.FirstOrDefault(j => j.Part == part) ?? (part == 0 && LargestPart != 0 ? PartJoins.FirstOrDefault(j => j.Part == LargestPart) : null);
+
     /// <summary>Index (in the prepared sections) of the section the chain was built from.</summary>
     public int ReferenceIndex => ChainPlacements.ReferenceIndex(Chain);
 
@@ -55,10 +75,16 @@ public static class SolveStage
         // Without a template nothing else can say where a part the chain could not link lies: it hangs on its best match
         // across the break, however weak (a template build leaves the parts to the template, which places them by itself).
         IReadOnlyList<PartJoin> joins = [];
-        if (options.Template is null) (chain, joins) = ChainSolver.JoinParts(chain, pairs.Pair);
+        IReadOnlySet<int>? uncertain = null;
+        int largest = 0;
+        if (options.Template is null)
+        {
+            (chain, joins) = ChainSolver.JoinParts(chain, pairs.Pair);
+            uncertain = ChainSolver.UncertainParts(chain, joins, out largest);
+        }
         chain = FaceMajorityUp(chain, sections, out bool faceFlipped);
         if (options.Solver != PlacementSolver.Smoothing || sections.Count <= 2)
-            return new Placements(chain, null, null, pairs.Parity, faceFlipped, true, []) { PartJoins = joins };
+            return new Placements(chain, null, null, pairs.Parity, faceFlipped, true, []) { PartJoins = joins, UncertainParts = uncertain, LargestPart = largest };
 
         // The solve weighs first- and second-neighbour pairs; the third-neighbour ones only serve the mirror decision.
         var observations = pairs.Pairs.Where(kv => kv.Key.Moving - kv.Key.Fixed <= 2).Select(kv => new PairObservation(kv.Key.Moving, kv.Key.Fixed, kv.Value))
@@ -68,7 +94,7 @@ public static class SolveStage
             ChainPlacements.ReferenceIndex(chain), observations, i => SamplePoints(sections[i].Image), options.Smoothing with { MinConfidence = options.Chain.MinConfidence });
         var solved = smoothing.ToReference;
         var smoothed = chain.Select((c, i) => c.Route == LinkRoute.Failed || c.Part != 0 ? c : c with { ToReference = solved[i] }).ToList();
-        return new Placements(smoothed, chain, smoothing, pairs.Parity, faceFlipped, true, []) { PartJoins = joins };
+        return new Placements(smoothed, chain, smoothing, pairs.Parity, faceFlipped, true, []) { PartJoins = joins, UncertainParts = uncertain, LargestPart = largest };
     }
 
     /// <summary>The centre and the corners of the middle half of a section: where the solver measures disagreement.</summary>

@@ -234,6 +234,22 @@ public static class ChainSolver
         return (placed, joins);
     }
 
+    /// <summary>
+    /// After <see cref="JoinParts"/>: the parts whose place relative to the rest of the stack is uncertain. The parts linked by
+    /// joins are placed relative to each other through weak matches only, so which of them is "right" is a matter of which
+    /// one the stack is seen from; the largest (most placed sections; part 0, the reference's, on a tie) is taken as the
+    /// stack, and every other joined part — part 0 too when it is not the largest — is uncertain, as is every part no join
+    /// reached. Without parts: empty. <paramref name="largest"/>: the part taken as the stack.
+    /// </summary>
+    public static IReadOnlySet<int> UncertainParts(IReadOnlyList<ChainPlacement> chain, IReadOnlyList<PartJoin> joins, out int largest)
+    {
+        var sizes = chain.Where(c => c.Route != LinkRoute.Failed).GroupBy(c => c.Part).ToDictionary(g => g.Key, g => g.Count());
+        var joinedParts = joins.Select(j => j.Part).Append(0).Where(sizes.ContainsKey).ToHashSet();
+        largest = joinedParts.Count == 0 ? 0 : joinedParts.OrderByDescending(p => sizes[p]).ThenBy(p => p).First();
+        int anchor = largest;
+        return sizes.Keys.Where(p => p != anchor).ToHashSet();
+    }
+
     /// <summary>The map from section <paramref name="moving"/> to <paramref name="target"/>; registered later-onto-earlier and inverted when needed, so each pair is computed once.</summary>
     private static (Transform2D Map, PairResult Result) Oriented(Func<int, int, PairResult> pair, int moving, int target)
     {

@@ -104,7 +104,7 @@ public static class SectionFlags
         if (s.Part is int part && s.Status == SectionOutcome.Aligned && s.Template is null)
             reasons.Add(s.PartJoinedBy is { } join
                 ? string.Create(CultureInfo.InvariantCulture,
-                    $"in part {part} of the stack, which no trusted match links to the rest: it was placed by its best match across the break alone (section {join.Section} onto {join.Onto}, confidence {join.Confidence:0.00}), so where the part lies relative to the rest is uncertain — check that boundary, or a template would place it")
+                    $"in part {part} of the stack, which no trusted match links to the largest part: the parts were placed relative to each other by their best match across the break alone (section {join.Section} onto {join.Onto}, confidence {join.Confidence:0.00}), so where this part lies relative to the rest is uncertain — check that boundary, or a template would place it")
                 : s.Route == LinkRoute.PartReference
                 ? $"nothing matched across the sections before or after this stretch, so it was chained to this section as a part of its own (part {part}): where the part lies relative to the rest is unknown — a template would place it"
                 : $"in part {part} of the stack, which nothing linked to the rest: where the part lies relative to the rest is unknown — a template would place it");

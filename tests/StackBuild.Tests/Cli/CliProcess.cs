@@ -54,8 +54,22 @@ internal sealed class CliProcess : IDisposable
     /// <summary>Sends a POSIX signal to the command (env has exec'd dotnet, so the id is the command's own).</summary>
     public void Signal(int signal)
     {
-        if (Kill(_process.Id, signal) != 0) throw new InvalidOperationException($"kill({_process.Id}, {signal}) failed: errno {Marshal.GetLastPInvokeError()}");
+        if (!TrySignal(signal)) throw new InvalidOperationException($"kill({_process.Id}, {signal}): the process had already ended");
     }
+
+    /// <summary>
+    /// As <see cref="Signal"/>, but false when the process had already ended (ESRCH: it exited, and was reaped, between the
+    /// caller's last look and the signal — a race a busy machine makes likely enough to meet).
+    /// </summary>
+    public bool TrySignal(int signal)
+    {
+        if (Kill(_process.Id, signal) == 0) return true;
+        int errno = Marshal.GetLastPInvokeError();
+        if (errno == Esrch) return false;
+        throw new InvalidOperationException($"kill({_process.Id}, {signal}) failed: errno {errno}");
+    }
+
+    private const int Esrch = 3;
 
     public const int SigInt = 2, SigKill = 9;
 

@@ -94,6 +94,37 @@ public sealed class ChainPartsTests
     }
 
     [Fact]
+    public void AfterAJoinTheLargestPartIsTheStackAndTheReferencesSmallerPartIsUncertain()
+    {
+        // Parts by hand: the reference's part 0 holds 4 sections, part 1 (joined to it) 12, part 2 (joined) 3, part 3 (never
+        // joined) 3, and one section failed. Seen from the largest part, part 0 is the one hanging on a weak match: flagging
+        // the twelve sections of part 1 and not the four of part 0 would point the user at the wrong side of the join.
+        var parts = new[] { 3, 3, 3, 0, 0, 0, 0, 1, 1, 1, 1, 1, 1, 1, 1, 1, 1, 1, 1, -1, 2, 2, 2 };
+        var chain = parts.Select(p => new ChainPlacement(Transform2D.Identity, p < 0 ? LinkRoute.Failed : LinkRoute.Neighbour, 0, null, null,
+            Part: Math.Max(0, p))).ToList();
+        var joins = new[] { new PartJoin(1, 7, 6, 0.1), new PartJoin(2, 20, 18, 0.05) };
+        var uncertain = ChainSolver.UncertainParts(chain, joins, out int largest);
+        Assert.Equal(1, largest);
+        Assert.Equal(new HashSet<int> { 0, 2, 3 }, uncertain.ToHashSet());
+        var placements = new StackBuild.Pipeline.Placements(chain, null, null, null, false, true, []) { PartJoins = joins, UncertainParts = uncertain, LargestPart = largest };
+        Assert.True(placements.IsUncertainPart(0));
+        Assert.False(placements.IsUncertainPart(1));
+        Assert.Equal(joins[0], placements.JoinOf(0)); // part 0 hangs on the match that placed the larger part 1
+        Assert.Equal(joins[1], placements.JoinOf(2));
+        Assert.Null(placements.JoinOf(3));
+
+        // Where part 0 is the largest, it stays the stack: only the other parts are uncertain.
+        var small = ChainSolver.UncertainParts(chain.Select(c => c.Part == 1 ? c with { Part = 0 } : c).ToList(), [joins[1]], out largest);
+        Assert.Equal(0, largest);
+        Assert.Equal(new HashSet<int> { 2, 3 }, small.ToHashSet());
+        // No parts: nothing uncertain; template builds (UncertainParts null) keep the old rule, every part but 0.
+        Assert.Empty(ChainSolver.UncertainParts(chain.Select(c => c with { Part = 0 }).ToList(), [], out _));
+        var templateBuild = new StackBuild.Pipeline.Placements(chain, null, null, null, false, true, []);
+        Assert.False(templateBuild.IsUncertainPart(0));
+        Assert.True(templateBuild.IsUncertainPart(1));
+    }
+
+    [Fact]
     public void APartWithNothingAcrossTheBreakIsNotJoined()
     {
         // The pairs across the break (NCC 0.05 in Pair, but the join needs some match: here none is above zero).
