@@ -69,6 +69,45 @@ public static class AtomicFile
     internal static string TemporaryName(string fullPath, string suffix) =>
         Path.Combine(Path.GetDirectoryName(fullPath) ?? ".", $".{Path.GetFileName(fullPath)}.{Environment.ProcessId}.{Guid.NewGuid():N}.{suffix}");
 
+    /// <summary>
+    /// Removes what a run that was killed while writing <paramref name="path"/> left beside it: its hidden temporary files
+    /// (<c>.NAME.PID.GUID.part</c>, see <see cref="TemporaryName"/>) and folder write checks (<c>.stackbuild-write-check.PID.GUID</c>)
+    /// of processes that no longer run. Files of a process still running (another build writing the same output) are left,
+    /// and so are <c>.old</c> backups, which may hold the only copy of an earlier output. Failures to remove are ignored.
+    /// Returns the names removed.
+    /// </summary>
+    public static IReadOnlyList<string> RemoveLeftovers(string path)
+    {
+        var full = Path.GetFullPath(path);
+        var dir = Path.GetDirectoryName(full) ?? ".";
+        var removed = new List<string>();
+        if (!Directory.Exists(dir)) return removed;
+        var name = System.Text.RegularExpressions.Regex.Escape(Path.GetFileName(full));
+        var pattern = new System.Text.RegularExpressions.Regex(
+            $@"^\.(?:{name}\.(?<pid>\d+)\.[0-9a-f]{{32}}\.part|stackbuild-write-check\.(?<pid>\d+)\.[0-9a-f]{{32}})$",
+            System.Text.RegularExpressions.RegexOptions.CultureInvariant);
+        string[] candidates;
+        try { candidates = Directory.GetFiles(dir, ".*"); }
+        catch (Exception e) when (e is IOException or UnauthorizedAccessException) { return removed; }
+        foreach (var file in candidates)
+        {
+            var match = pattern.Match(Path.GetFileName(file));
+            if (!match.Success || !int.TryParse(match.Groups["pid"].Value, out int pid) || pid == Environment.ProcessId || IsRunning(pid)) continue;
+            try { File.Delete(file); removed.Add(Path.GetFileName(file)); }
+            catch (Exception e) when (e is IOException or UnauthorizedAccessException) { }
+        }
+        return removed;
+    }
+
+    /// <summary>Whether a process with this id runs now (on Linux, its /proc entry; elsewhere, the process table).</summary>
+    private static bool IsRunning(int pid)
+    {
+        if (OperatingSystem.IsLinux()) return Directory.Exists($"/proc/{pid}");
+        try { using var p = System.Diagnostics.Process.GetProcessById(pid); return !p.HasExited; }
+        catch (ArgumentException) { return false; }
+        catch (InvalidOperationException) { return false; }
+    }
+
     /// <summary>Disk full or a failing device: not the user's input, but say which output it was (exit code 3, README).</summary>
     internal static IOException CouldNotWrite(string path, string temp, IOException e)
     {

@@ -22,10 +22,14 @@ public sealed class OutputSet : IDisposable
     /// make a rename fail part-way).</param>
     public OutputSet(Action<string>? beforeRename = null) => _beforeRename = beforeRename;
 
-    /// <summary>Writes one file of the set under a temporary name beside <paramref name="path"/>; returns that name.</summary>
+    /// <summary>
+    /// Writes one file of the set under a temporary name beside <paramref name="path"/>; returns that name. First removes what
+    /// an earlier run killed while writing this path left there (<see cref="AtomicFile.RemoveLeftovers"/>).
+    /// </summary>
     public string Stage(string path, Action<Stream> write)
     {
         if (_committed) throw new InvalidOperationException("The set is already in place.");
+        AtomicFile.RemoveLeftovers(path);
         var temporary = AtomicFile.WriteTemporary(path, write);
         _staged.Add((path, temporary));
         return temporary;

@@ -32,6 +32,33 @@ public sealed class OutputSetTests : IDisposable
     }
 
     [Fact]
+    public void StagingRemovesWhatAKilledRunLeftForThatOutputOnly()
+    {
+        // A process id that runs (1, init) and one that does not (the highest id Linux allows, 2^22, is never given out).
+        const int alive = 1, gone = 4194304;
+        Assert.True(Directory.Exists($"/proc/{alive}") && !Directory.Exists($"/proc/{gone}"));
+        string Guid32() => Guid.NewGuid().ToString("N");
+        var stale = new[] { $".v.nii.{gone}.{Guid32()}.part", $".stackbuild-write-check.{gone}.{Guid32()}" };
+        var kept = new[]
+        {
+            $".v.nii.{alive}.{Guid32()}.part",      // another build, still running, writes the same output
+            $".v.nii.{gone}.{Guid32()}.old",        // an earlier output's only copy, after a kill between renames
+            $".w.nii.{gone}.{Guid32()}.part",       // another output's leftover: not this set's to judge
+            ".v.nii.notes",                         // not a temporary name at all
+        };
+        foreach (var f in stale.Concat(kept)) File.WriteAllText(Path.Combine(_folder, f), "x");
+        using (var set = new OutputSet())
+        {
+            set.Stage(Paths[0], Text("new"));
+            set.Commit();
+        }
+        var now = Directory.GetFiles(_folder).Select(Path.GetFileName).ToHashSet();
+        Assert.All(stale, f => Assert.DoesNotContain(f, now));
+        Assert.All(kept, f => Assert.Contains(f, now));
+        Assert.Contains("v.nii", now);
+    }
+
+    [Fact]
     public void AllFilesAppearOnCommitAndNoneBefore()
     {
         using var set = new OutputSet();
