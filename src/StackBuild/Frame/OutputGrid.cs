@@ -1,3 +1,4 @@
+using System.Globalization;
 using StackBuild.Geometry;
 using StackBuild.Imaging;
 using StackBuild.IO;
@@ -53,6 +54,9 @@ public sealed record OutputGrid(int Nx, int Ny, int Nz, Transform2D WorkToOut, T
     /// goes to the stated world position; with a template, every voxel goes where the template says. Refuses a grid
     /// with too many planes or voxels.
     /// </summary>
+    /// <summary>Most voxels NIfTI-1 stores along one axis (its dim fields are 16-bit signed; NIfTI-1 standard, nifti1.h).</summary>
+    public const int NiftiMaxVoxelsPerAxis = short.MaxValue;
+
     public static OutputGrid Cut(GridRequest request)
     {
         var frame = request.Frame;
@@ -100,6 +104,14 @@ public sealed record OutputGrid(int Nx, int Ny, int Nz, Transform2D WorkToOut, T
                 "check the position_um column and the spacing (both in µm)");
         var planeOf = series.Sections.ToDictionary(s => s.Number, s => (int)Math.Round((s.PositionUm - firstPosition) / series.SpacingUm));
         int nz = planeOf.Values.Max() + 1;
+        if (nx > NiftiMaxVoxelsPerAxis || ny > NiftiMaxVoxelsPerAxis)
+        {
+            // The smallest voxel size that fits, rounded up to a thousandth of a µm.
+            double fits = Math.Ceiling(outUm * Math.Max(nx, ny) / NiftiMaxVoxelsPerAxis * 1000) / 1000;
+            throw new InputProblemException(request.Input,
+                string.Create(CultureInfo.InvariantCulture, $"the output would be {nx}×{ny} voxels across, more than NIfTI-1 stores (32767 per axis)"),
+                string.Create(CultureInfo.InvariantCulture, $"choose a coarser --output-pixel-size (at least {fits:0.###} µm)"));
+        }
         if ((long)nx * ny * nz > Array.MaxLength)
             throw new InputProblemException(request.Input, $"the output would have {nx}×{ny}×{nz} voxels, more than fits in memory",
                 "choose a coarser --output-pixel-size");

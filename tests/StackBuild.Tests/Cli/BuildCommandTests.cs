@@ -194,6 +194,22 @@ public sealed class BuildCommandTests : IDisposable
     }
 
     [Fact]
+    public void AGridWiderThanNiftiStoresIsOneLineWithASizeThatFits()
+    {
+        // 40 × 30 px at 10 µm drawn at 0.01 µm: over 40,000 voxels across, past NIfTI-1's 32767 per axis (its dim fields are
+        // 16-bit; NIfTI-1 standard, nifti1.h). Refused with the option named and a size that fits, nothing written.
+        var folder = MakeSeries();
+        var output = Path.Combine(_dir, "wide.nii.gz");
+        var (code, _, stderr) = Run("build", folder, "-o", output, "--output-pixel-size", "0.01");
+        Assert.Equal(1, code);
+        Assert.Contains("more than NIfTI-1 stores (32767 per axis)", stderr);
+        Assert.Contains("--output-pixel-size (at least", stderr);
+        Assert.DoesNotContain("   at ", stderr);
+        Assert.Single(stderr.Trim().Split('\n'), l => l.StartsWith("error:", StringComparison.Ordinal));
+        Assert.Empty(Directory.GetFiles(_dir, "wide*"));
+    }
+
+    [Fact]
     public void MissingOutputFolderIsFoundBeforeTheBuild()
     {
         var series = MakeSeries();
