@@ -50,7 +50,8 @@ public static class Uncertainty
         var result = new Dictionary<int, SectionUncertainty>();
         // The slow drift of a chain with no template, by stack position among the placed sections (see DriftError).
         bool guided = record.Sections.Any(s => s.Template is not null);
-        var order = guided ? [] : placed.Values.Where(s => s.Part is null).OrderBy(s => s.ZIndex).Select(s => s.Number).ToList();
+        // Every placed section counts, those of a part joined by a weak match too: the stack drifts over its whole length.
+        var order = guided ? [] : placed.Values.OrderBy(s => s.ZIndex).Select(s => s.Number).ToList();
         var position = order.Select((number, t) => (number, t)).ToDictionary(x => x.number, x => x.t);
         var beyond = guided ? UncheckedLinks(placed.Values, link) : new Dictionary<int, double>();
         foreach (var s in placed.Values)

@@ -53,6 +53,21 @@ public sealed class UncertaintyTests(ITestOutputHelper output)
     }
 
     [Fact]
+    public void TheDriftOfAPlainBuildRunsOverTheWholeStackItsJoinedPartsIncluded()
+    {
+        // Sections 1–3 a part joined by a weak match (part 1, no estimate of their own), 4–8 the stack with the reference 6.
+        // The drift is the whole stack's, seen after one global fit over all eight: section 6 sits at position 5 of 7 links,
+        // not at position 2 of 4 (the stretch without the part), which would understate it.
+        var part = Enumerable.Range(1, 3).Select(n => Link(n, n + 1, 1, 25, null) with { Part = 1, ZIndex = n - 1 });
+        var stack = new[] { Link(4, 5, 1, 25, null), Link(5, 6, 1, 25, null), Link(6, null, 1, 1, null), Link(7, 6, 1, 25, null), Link(8, 7, 1, 25, null) }
+            .Select((s, t) => s with { ZIndex = t + 3 });
+        var e = Uncertainty.Estimate(Record([.. part, .. stack]));
+        Assert.Equal(Uncertainty.DriftError(5, 7) * 10, e[6].AccumulatedUm, 9);
+        Assert.NotEqual(Uncertainty.DriftError(2, 4) * 10, e[6].AccumulatedUm, 6);
+        Assert.False(e.ContainsKey(1)); // the part's own sections still have no estimate
+    }
+
+    [Fact]
     public void WithATemplateASectionPastTheLastUsedMatchCarriesTheLinksInBetween()
     {
         // A template-guided chain 1–6 (each registered to the one before, route disagreements 20, 40, 60 … µm): the template
