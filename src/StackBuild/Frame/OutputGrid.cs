@@ -49,14 +49,14 @@ public sealed record GridRequest(IReadOnlyList<GridSection> Placed, double WorkP
 public sealed record OutputGrid(int Nx, int Ny, int Nz, Transform2D WorkToOut, Transform2D ToGrid, double MinX, double MinY, PlaneBox TissueBox,
     bool Cropped, IReadOnlyDictionary<int, int> PlaneOf, Affine Affine, (double X, double Y, double Z) TissueCentreMm, IReadOnlyList<string> Warnings)
 {
+    /// <summary>Most voxels NIfTI-1 stores along one axis (its dim fields are 16-bit signed; NIfTI-1 standard, nifti1.h).</summary>
+    public const int NiftiMaxVoxelsPerAxis = short.MaxValue;
+
     /// <summary>
     /// Cuts the grid and builds its affine: the tissue's centre (middle of its box in the plane, middle of the stack)
     /// goes to the stated world position; with a template, every voxel goes where the template says. Refuses a grid
     /// with too many planes or voxels.
     /// </summary>
-    /// <summary>Most voxels NIfTI-1 stores along one axis (its dim fields are 16-bit signed; NIfTI-1 standard, nifti1.h).</summary>
-    public const int NiftiMaxVoxelsPerAxis = short.MaxValue;
-
     public static OutputGrid Cut(GridRequest request)
     {
         var frame = request.Frame;
