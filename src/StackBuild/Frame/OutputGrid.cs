@@ -2,6 +2,7 @@ using System.Globalization;
 using StackBuild.Geometry;
 using StackBuild.Imaging;
 using StackBuild.IO;
+using StackBuild.Nifti;
 using StackBuild.Series;
 using StackBuild.Template;
 
@@ -49,8 +50,8 @@ public sealed record GridRequest(IReadOnlyList<GridSection> Placed, double WorkP
 public sealed record OutputGrid(int Nx, int Ny, int Nz, Transform2D WorkToOut, Transform2D ToGrid, double MinX, double MinY, PlaneBox TissueBox,
     bool Cropped, IReadOnlyDictionary<int, int> PlaneOf, Affine Affine, (double X, double Y, double Z) TissueCentreMm, IReadOnlyList<string> Warnings)
 {
-    /// <summary>Most voxels NIfTI-1 stores along one axis (its dim fields are 16-bit signed; NIfTI-1 standard, nifti1.h).</summary>
-    public const int NiftiMaxVoxelsPerAxis = short.MaxValue;
+    /// <summary>A smallest size (µm) for a refusal's advice, rounded up to 0.001 µm so that the size shown is itself accepted.</summary>
+    public static string RoundedUpUm(double um) => (Math.Ceiling(um * 1000 * (1 + 1e-12)) / 1000).ToString("0.###", CultureInfo.InvariantCulture);
 
     /// <summary>
     /// Cuts the grid and builds its affine: the tissue's centre (middle of its box in the plane, middle of the stack)
@@ -104,14 +105,10 @@ public sealed record OutputGrid(int Nx, int Ny, int Nz, Transform2D WorkToOut, T
                 "check the position_um column and the spacing (both in µm)");
         var planeOf = series.Sections.ToDictionary(s => s.Number, s => (int)Math.Round((s.PositionUm - firstPosition) / series.SpacingUm));
         int nz = planeOf.Values.Max() + 1;
-        if (nx > NiftiMaxVoxelsPerAxis || ny > NiftiMaxVoxelsPerAxis)
-        {
-            // The smallest voxel size that fits, rounded up to a thousandth of a µm.
-            double fits = Math.Ceiling(outUm * Math.Max(nx, ny) / NiftiMaxVoxelsPerAxis * 1000) / 1000;
+        if (nx > NiftiFile.MaxVoxelsPerAxis || ny > NiftiFile.MaxVoxelsPerAxis)
             throw new InputProblemException(request.Input,
-                string.Create(CultureInfo.InvariantCulture, $"the output would be {nx}×{ny} voxels across, more than NIfTI-1 stores (32767 per axis)"),
-                string.Create(CultureInfo.InvariantCulture, $"choose a coarser --output-pixel-size (at least {fits:0.###} µm)"));
-        }
+                $"the output would be {nx}×{ny} voxels across, more than NIfTI-1 stores ({NiftiFile.MaxVoxelsPerAxis} per axis)",
+                $"choose a coarser --output-pixel-size (at least {RoundedUpUm(outUm * Math.Max(nx, ny) / NiftiFile.MaxVoxelsPerAxis)} µm)");
         if ((long)nx * ny * nz > Array.MaxLength)
             throw new InputProblemException(request.Input, $"the output would have {nx}×{ny}×{nz} voxels, more than fits in memory",
                 "choose a coarser --output-pixel-size");

@@ -145,13 +145,16 @@ public static class NiftiFile
     // ---- writing ----
 
     /// <summary>A header for a 3D volume with the qform and sform both set from <paramref name="affine"/>, in the chosen unit.</summary>
+    /// <summary>Most voxels NIfTI-1 stores along one axis (its dim fields are 16-bit signed; NIfTI-1 standard, nifti1.h).</summary>
+    public const int MaxVoxelsPerAxis = short.MaxValue;
+
     private static NiftiHeader GeometryHeader(int nx, int ny, int nz, Affine affine, NiftiDataType type, NiftiWriteOptions options)
     {
         for (int r = 0; r < 3; r++)
         for (int c = 0; c < 4; c++)
             if (!double.IsFinite(affine[r, c])) throw new ArgumentException("The affine holds a value that is not finite.", nameof(affine));
-        if (nx > short.MaxValue || ny > short.MaxValue || nz > short.MaxValue)
-            throw new ArgumentException($"NIfTI-1 stores each dimension in 16 bits; {nx}×{ny}×{nz} exceeds 32767.");
+        if (nx > MaxVoxelsPerAxis || ny > MaxVoxelsPerAxis || nz > MaxVoxelsPerAxis)
+            throw new ArgumentException($"NIfTI-1 stores each dimension in 16 bits; {nx}×{ny}×{nz} exceeds {MaxVoxelsPerAxis}.");
 
         double unitsPerMm = options.Unit == SpatialUnit.Micrometre ? 1000.0 : 1.0;
         var stored = affine.Then(Affine.FromRows([unitsPerMm, 0, 0, 0], [0, unitsPerMm, 0, 0], [0, 0, unitsPerMm, 0]));

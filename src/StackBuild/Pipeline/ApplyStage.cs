@@ -1,8 +1,10 @@
 using System.Globalization;
 using System.Text.Json.Serialization;
+using StackBuild.Frame;
 using StackBuild.Geometry;
 using StackBuild.Imaging;
 using StackBuild.IO;
+using StackBuild.Nifti;
 using StackBuild.Render;
 using StackBuild.Series;
 
@@ -124,10 +126,10 @@ public sealed record ApplyGrid(int Nx, int Ny, double OutputPixelUm, Transform2D
         }
         double r = buildPixelUm / outUm;
         double gx = Math.Ceiling(nx * r - 1e-9), gy = Math.Ceiling(ny * r - 1e-9);
-        if (!(Math.Max(gx, gy) <= MaxVoxelsPerAxis))
+        if (!(Math.Max(gx, gy) <= NiftiFile.MaxVoxelsPerAxis))
             throw new InputProblemException(option,
-                $"{outUm.ToString("0.###", CultureInfo.InvariantCulture)} µm over the build's {nx} × {ny} voxels of {buildPixelUm.ToString("0.###", CultureInfo.InvariantCulture)} µm would give {gx:0} × {gy:0} voxels in a plane, more than NIfTI-1 stores ({MaxVoxelsPerAxis} per axis)",
-                $"give {option} a size of at least {RoundedUp(Math.Max(nx, ny) * buildPixelUm / MaxVoxelsPerAxis)} µm");
+                $"{outUm.ToString("0.###", CultureInfo.InvariantCulture)} µm over the build's {nx} × {ny} voxels of {buildPixelUm.ToString("0.###", CultureInfo.InvariantCulture)} µm would give {gx:0} × {gy:0} voxels in a plane, more than NIfTI-1 stores ({NiftiFile.MaxVoxelsPerAxis} per axis)",
+                $"give {option} a size of at least {OutputGrid.RoundedUpUm(Math.Max(nx, ny) * buildPixelUm / NiftiFile.MaxVoxelsPerAxis)} µm");
         CheckPlanes((int)gx, (int)gy, planes, sectionSpacingUm, planeUm, option);
         var gridToBuild = Resampler.EdgeAlignedScale(1 / r);
         var a = atSections;
@@ -139,11 +141,6 @@ public sealed record ApplyGrid(int Nx, int Ny, double OutputPixelUm, Transform2D
         return new ApplyGrid((int)gx, (int)gy, outUm, Resampler.EdgeAlignedScale(r), affine, planeUm);
     }
 
-    /// <summary>A smallest size for a message, rounded up to 0.001 µm so that the size shown is itself accepted.</summary>
-    private static string RoundedUp(double um) => (Math.Ceiling(um * 1000 * (1 + 1e-12)) / 1000).ToString("0.###", CultureInfo.InvariantCulture);
-
-    /// <summary>NIfTI-1 stores each dimension as a signed 16-bit number.</summary>
-    public const int MaxVoxelsPerAxis = short.MaxValue;
 
     /// <summary>Refuses a plane spacing that gives more planes than NIfTI-1 stores, or a volume over one array.</summary>
     private static void CheckPlanes(int nx, int ny, int planes, double sectionSpacingUm, double? planeUm, string sizeOption = "--output-pixel-size")
@@ -151,10 +148,10 @@ public sealed record ApplyGrid(int Nx, int Ny, double OutputPixelUm, Transform2D
         long count = planes;
         if (planeUm is double z && Math.Abs(z - sectionSpacingUm) > 1e-9 * z)
             count = (long)Math.Floor((planes - 1) * sectionSpacingUm / z + 1e-9) + 1;
-        if (count > MaxVoxelsPerAxis)
+        if (count > NiftiFile.MaxVoxelsPerAxis)
             throw new InputProblemException("--voxel-size",
-                $"{planeUm!.Value.ToString("0.###", CultureInfo.InvariantCulture)} µm between planes would give {count} planes, more than NIfTI-1 stores ({MaxVoxelsPerAxis})",
-                $"give --voxel-size a size of at least {RoundedUp((planes - 1) * sectionSpacingUm / (MaxVoxelsPerAxis - 1))} µm");
+                $"{planeUm!.Value.ToString("0.###", CultureInfo.InvariantCulture)} µm between planes would give {count} planes, more than NIfTI-1 stores ({NiftiFile.MaxVoxelsPerAxis})",
+                $"give --voxel-size a size of at least {OutputGrid.RoundedUpUm((planes - 1) * sectionSpacingUm / (NiftiFile.MaxVoxelsPerAxis - 1))} µm");
         if ((long)nx * ny * Math.Max(count, planes) > Array.MaxLength)
             throw new InputProblemException(sizeOption, $"the volume would have {nx} × {ny} × {Math.Max(count, planes)} voxels, more than fits in memory",
                 $"give {sizeOption} a larger size");
