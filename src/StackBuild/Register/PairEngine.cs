@@ -169,7 +169,7 @@ internal sealed class PairEngine : IDisposable
     /// NCC of fixed and moving-laid-on-fixed over the union of their tissue masks (feathered mask above 0.5), the moving
     /// canvas sampled bilinearly; only the bounding box where either mask can be is visited.
     /// </summary>
-    private double Ncc(Transform2D map)
+    internal double Ncc(Transform2D map)
     {
         var inv = map.Inverse();
         var (fx0, fy0, fx1, fy1) = _fixed.MaskBox;

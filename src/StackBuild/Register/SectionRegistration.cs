@@ -218,6 +218,22 @@ public static class SectionRegistration
         };
     }
 
+    /// <summary>
+    /// The NCC registration scores a placement by (<see cref="PairHypothesis.Ncc"/>) for any map of full-resolution moving
+    /// pixels to fixed ones: both at one scale, on their canvases, over the union of their tissue masks. For diagnosis
+    /// (is a truth placement scored above what the search found?).
+    /// </summary>
+    internal static double NccAt(PreparedSection fixedSection, PreparedSection moving, Transform2D movingToFixed)
+    {
+        if (Math.Abs(fixedSection.Scale - moving.Scale) > 1e-12 * Math.Max(fixedSection.Scale, moving.Scale))
+            throw new ArgumentException("both sections must be prepared at one scale");
+        int n = Math.Max(fixedSection.CanvasSize, moving.CanvasSize);
+        var fixedCanvas = fixedSection.CanvasSize == n ? fixedSection.Canvas : new SectionCanvas(fixedSection, n);
+        var movingCanvas = moving.CanvasSize == n ? moving.Canvas : new SectionCanvas(moving, n);
+        using var engine = new PairEngine(fixedCanvas, movingCanvas, 0);
+        return engine.Ncc(movingCanvas.FullToCanvas.Inverse().Then(movingToFixed).Then(fixedCanvas.FullToCanvas));
+    }
+
     /// <summary>The confidence rule documented on <see cref="PairResult"/>.</summary>
     public static double Confidence(double bestNcc, double? runnerUpNcc)
     {
