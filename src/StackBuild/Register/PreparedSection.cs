@@ -8,8 +8,8 @@ namespace StackBuild.Register;
 /// <summary>
 /// One section made ready for registration: reduced to the working size, tissue bright on dark, normalised to
 /// [0, 1], with its tissue mask and Fourier data. Made once per section by
-/// <see cref="SectionRegistration.Prepare"/> and reused for every pair the section takes part in; immutable,
-/// so it can be shared between threads.
+/// <see cref="SectionRegistration.Prepare"/> and reused for every pair the section takes part in; immutable once
+/// prepared (<see cref="Finer"/> is set during preparation, before any pair sees it), so it can be shared between threads.
 /// </summary>
 public sealed class PreparedSection
 {
@@ -36,6 +36,13 @@ public sealed class PreparedSection
     internal SectionCanvas Canvas => _cache is null ? _own.Value : _cache.Get(this);
     internal bool UsesForegroundMask { get; }
     internal int CanvasSize { get; }
+
+    /// <summary>
+    /// The same section at a finer pixel (its <see cref="FullWidth"/> × <see cref="FullHeight"/> coordinates are this
+    /// section's, its <see cref="Scale"/> above 1), made only where the tissue is small at this size (a specimen's end
+    /// sections); a pair of two sections that both have one is registered on those (see <see cref="SectionRegistration.Register"/>).
+    /// </summary>
+    public PreparedSection? Finer { get; internal set; }
 
     private readonly CanvasCache? _cache;
     private readonly Lazy<SectionCanvas> _own;

@@ -120,6 +120,30 @@ public static class SectionRegistration
     public static PreparedSection PrepareUnreduced(GrayImage workImage, RegistrationOptions options, CanvasCache? canvases = null) =>
         Prepare(workImage, 1.0, options, canvases);
 
+    /// <summary>
+    /// Tissue smaller than this many pixels at the working size (an 80 × 80 pixel area; a rule of thumb of this project,
+    /// set on the 768-pixel ch2bet series of docs/benchmarks.md, whose first sections hold 1.5–2 % of the canvas) is
+    /// registered on a finer image where one is at hand (<see cref="PrepareFiner"/>).
+    /// </summary>
+    public const int FinerBelowTissuePixels = 6400;
+
+    /// <summary>
+    /// <paramref name="prepared"/> with a <see cref="PreparedSection.Finer"/> made from <paramref name="finer"/> (the same
+    /// section at <paramref name="scale"/> finer pixels, edge-aligned: <c>Resampler.EdgeAlignedScale(scale)</c> maps the
+    /// prepared section's pixels onto it) when its tissue is under <see cref="FinerBelowTissuePixels"/> and the finer image
+    /// is at least 1.25 times finer; otherwise <paramref name="prepared"/> itself. The finer image is inverted as the
+    /// prepared one was.
+    /// </summary>
+    public static PreparedSection WithFiner(PreparedSection prepared, GrayImage finer, double scale, RegistrationOptions options, CanvasCache? canvases = null)
+    {
+        if (scale < 1.25 || prepared.Scale != 1 || prepared.TissueMask.Count(t => t) >= FinerBelowTissuePixels) return prepared;
+        var work = finer.Clone();
+        if (prepared.Inverted) for (int i = 0; i < work.Pixels.Length; i++) work.Pixels[i] = -work.Pixels[i];
+        Preprocessing.NormaliseRobust(work.Pixels);
+        prepared.Finer = new PreparedSection(prepared.FullWidth, prepared.FullHeight, scale, work, prepared.Inverted, options.ForegroundMask, canvases);
+        return prepared;
+    }
+
     private static PreparedSection Prepare(GrayImage fullResolution, double scale, RegistrationOptions options, CanvasCache? canvases = null)
     {
         var work = Preprocessing.Reduce(fullResolution, scale);
@@ -140,6 +164,9 @@ public static class SectionRegistration
     /// </summary>
     public static PairResult Register(PreparedSection fixedSection, PreparedSection moving, RegistrationOptions options)
     {
+        // Two small sections (a specimen's ends) are registered on their finer images where both have one: their maps are
+        // in the same coordinates, so the result needs no conversion.
+        if (fixedSection.Finer is { } fixedFiner && moving.Finer is { } movingFiner) return Register(fixedFiner, movingFiner, options);
         // Both must be at one working scale for the map to stay rigid at full resolution.
         if (Math.Abs(fixedSection.Scale - moving.Scale) > 1e-12 * Math.Max(fixedSection.Scale, moving.Scale))
         {
