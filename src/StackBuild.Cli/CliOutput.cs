@@ -65,29 +65,24 @@ public sealed class CliOutput(TextWriter stdout, TextWriter stderr)
         }
     }
 
-    private string? _stage;
+    private static readonly System.Diagnostics.Stopwatch Clock = System.Diagnostics.Stopwatch.StartNew();
+    private readonly ProgressLines _progress = new(() => Clock.Elapsed);
 
     /// <summary>
-    /// On a terminal, one line rewritten in place; when stderr goes to a file or a pipe (a log, a job script), one line
-    /// per stage (the text before the first ':') so that a long build does not look hung.
+    /// On a terminal, one line rewritten in place with the time left in its stage; when stderr goes to a file or a pipe (a
+    /// log, a job script), a line when a stage starts and then its count and time left about once a minute
+    /// (<see cref="ProgressLines"/>), so that a long build does not look hung.
     /// </summary>
     public void Progress(string text)
     {
-        if (ShowProgress) { Error.Write($"\r{text}\u001b[K"); return; }
+        if (ShowProgress) { Error.Write($"\r{_progress.ForTerminal(text)}\u001b[K"); return; }
         if (!ReferenceEquals(Error, Console.Error)) return;
-        int colon = text.IndexOf(':');
-        string stage = (colon > 0 ? text[..colon] : text).TrimEnd('…');
-        lock (this)
-        {
-            if (stage == _stage) return;
-            _stage = stage;
-        }
-        Error.WriteLine($"{stage}…");
+        if (_progress.ForLog(text) is { } line) Error.WriteLine(line);
     }
 
     public void EndProgress()
     {
         if (ShowProgress) Error.WriteLine();
-        _stage = null;
+        _progress.Reset();
     }
 }
