@@ -9,7 +9,8 @@ namespace StackBuild.Benchmarks;
 /// volume. Options: <c>--only NAME</c> runs the cases whose name contains NAME; <c>--work DIR</c> keeps the series there;
 /// <c>--seed N</c> cuts every case with seed N (placements, face-down and lost sections; the development seed is 1);
 /// <c>--held-out</c> adds the cases never looked at during development (<see cref="AccuracyRun.HeldOutCases"/>);
-/// <c>--upscale F</c> cuts F scan pixels per voxel (larger scans); <c>--single-level</c> registers without the half-size
+/// <c>--upscale F</c> cuts F scan pixels per voxel (larger scans); <c>--smoothing S</c> solves all placements at once (the
+/// build's <c>--smoothing</c>) instead of the neighbour chain; <c>--single-level</c> registers without the half-size
 /// search (<see cref="Register.RegistrationOptions.CoarseToFine"/> off), for comparison.
 /// </summary>
 public static class AccuracyTable
@@ -20,6 +21,7 @@ public static class AccuracyTable
         int? seed = null;
         bool heldOut = false, plainToo = true, templateToo = true, coarseToFine = true;
         double upscale = 1;
+        double? smoothing = null;
         for (int i = 0; i < args.Length; i++)
         {
             if (args[i] == "--only" && i + 1 < args.Length) only = args[++i];
@@ -30,7 +32,8 @@ public static class AccuracyTable
             else if (args[i] == "--plain-only") templateToo = false;
             else if (args[i] == "--upscale" && i + 1 < args.Length) upscale = double.Parse(args[++i], System.Globalization.CultureInfo.InvariantCulture);
             else if (args[i] == "--single-level") coarseToFine = false;
-            else throw new ArgumentException($"unknown option {args[i]}: use --only NAME, --work DIR, --seed N, --held-out, --template-only, --plain-only, --upscale F, --single-level");
+            else if (args[i] == "--smoothing" && i + 1 < args.Length) smoothing = double.Parse(args[++i], System.Globalization.CultureInfo.InvariantCulture);
+            else throw new ArgumentException($"unknown option {args[i]}: use --only NAME, --work DIR, --seed N, --held-out, --template-only, --plain-only, --upscale F, --single-level, --smoothing S");
         }
         bool keep = work is not null;
         work ??= Directory.CreateTempSubdirectory("sb-accuracy-").FullName;
@@ -40,7 +43,7 @@ public static class AccuracyTable
         try
         {
             var cases = AccuracyRun.PublicCases.Concat(heldOut ? AccuracyRun.HeldOutCases : []).Select(c => seed is int s ? c with { Seed = s } : c)
-                .Select(c => c with { Upscale = upscale, CoarseToFine = coarseToFine });
+                .Select(c => c with { Upscale = upscale, CoarseToFine = coarseToFine, Smoothing = smoothing });
             foreach (var c in cases.Where(c => only is null || c.Name.Contains(only, StringComparison.OrdinalIgnoreCase)))
             {
                 var these = AccuracyRun.Run(c, work, progress, plainToo, templateToo);

@@ -13,8 +13,10 @@ namespace StackBuild.Evaluate;
 /// <param name="Upscale">Scan pixels per voxel along each side (the cut's pixel size is the voxel size divided by it); 1 gives
 /// one scan pixel per voxel, larger values give the larger scans a lab's working size sees (a few hundred pixels of tissue).</param>
 /// <param name="CoarseToFine">The registration option <see cref="Register.RegistrationOptions.CoarseToFine"/> for the builds.</param>
+/// <param name="Smoothing">When set, the builds solve all placements at once with this smoothness strength (the build's
+/// <c>--smoothing</c>); null keeps the neighbour chain (the default).</param>
 public sealed record AccuracyCase(string VolumePath, char Axis, int Every = 2, int Seed = 1, bool BrightField = false, int Bits = 8,
-    double Upscale = 1, bool CoarseToFine = true)
+    double Upscale = 1, bool CoarseToFine = true, double? Smoothing = null)
 {
     public string Name => $"{Path.GetFileName(VolumePath).Replace(".nii.gz", "").Replace(".nii", "")} {Axis}";
 }
@@ -94,6 +96,8 @@ public static class AccuracyRun
             {
                 Input = folder,
                 Registration = new Register.RegistrationOptions { CoarseToFine = c.CoarseToFine },
+                Solver = c.Smoothing is null ? Solve.PlacementSolver.Chain : Solve.PlacementSolver.Smoothing,
+                Smoothing = new Solve.SmoothingOptions { Strength = c.Smoothing ?? 0 },
                 // Template plane of the first section: the template's planes are 2-voxel blocks, so volume plane k lies at (k − 0.5)/2.
                 Template = withTemplate ? new TemplateOptions { Path = templatePath, CutAxis = c.Axis, FirstPlane = (series.Sections[0].Plane - 0.5) / 2 } : null,
             };
