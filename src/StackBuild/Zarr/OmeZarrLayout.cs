@@ -16,7 +16,8 @@ public sealed record OmeZarrLevel(int Nz, int Ny, int Nx, int FactorZ, int Facto
 /// The levels of an OME-Zarr pyramid for a volume: level 0 is the volume; each further level averages blocks of 2 voxels
 /// along the axes it halves. An axis is halved while its voxel is finer than twice the level's finest voxel (and it has at
 /// least 2 voxels), so an anisotropic volume (the demo: 20 × 20 µm in the plane, 50 µm between planes) is first coarsened in
-/// the plane only and the levels approach cubic voxels: 50/20/20 → 50/40/40 → 100/80/80. Levels are added while the larger
+/// the plane only and the levels approach cubic voxels: 50/20/20 → 50/40/40 → 100/80/80 (axes of one voxel are left out of
+/// "finest"). Levels are added while the larger
 /// side of the last level's plane exceeds <see cref="SmallestPlaneSide"/> voxels.
 /// </summary>
 /// <remarks>
@@ -44,7 +45,9 @@ public sealed record OmeZarrLayout(IReadOnlyList<OmeZarrLevel> Levels, double Vo
             var last = levels[^1];
             if (Math.Max(last.Nx, last.Ny) <= SmallestPlaneSide) break;
             double sz = voxelZUm * last.FactorZ, sy = voxelYUm * last.FactorY, sx = voxelXUm * last.FactorX;
-            double finest = Math.Min(sz, Math.Min(sy, sx));
+            // An axis of one voxel cannot be halved, so its size does not hold the others back (a single plane).
+            double finest = Math.Min(last.Nz >= 2 ? sz : double.PositiveInfinity,
+                Math.Min(last.Ny >= 2 ? sy : double.PositiveInfinity, last.Nx >= 2 ? sx : double.PositiveInfinity));
             bool hz = Halves(last.Nz, sz, finest), hy = Halves(last.Ny, sy, finest), hx = Halves(last.Nx, sx, finest);
             if (!hz && !hy && !hx) break;
             levels.Add(Level(hz ? Half(last.Nz) : last.Nz, hy ? Half(last.Ny) : last.Ny, hx ? Half(last.Nx) : last.Nx,
