@@ -98,6 +98,33 @@ public sealed class OmeZarrReaderTests(ApplyDemoFixture demo)
         Assert.False(Check(image, other).GetProperty("level0_equals_nifti").GetBoolean());
     }
 
+    [ZarrReaderFact]
+    public void SeveralChunksAndOddEdgesReadBackExactly()
+    {
+        // 300 × 270 voxels in a plane (two chunks of 256 each way, the second mostly padding), 20 planes (a chunk of 16 and
+        // one of 4), cubic voxels so z halves too, odd sizes at coarser levels (135, 5) whose last block holds one voxel; random
+        // 16-bit values over the whole range and one not-a-number (stored as 0 by both writers).
+        var volume = new Imaging.Volume(300, 270, 20, Geometry.Affine.FromRows([-0.01, 0, 0, 1.5], [0, 0, 0.01, -2], [0, -0.01, 0, 0.25]));
+        var rng = new Random(5);
+        for (int n = 0; n < volume.Voxels.Length; n++) volume.Voxels[n] = rng.Next(65536);
+        volume.Voxels[12345] = float.NaN;
+        var folder = Directory.CreateDirectory(Path.Combine(demo.Folder, "zarr-chunks")).FullName;
+        var nifti = Path.Combine(folder, "r.nii");
+        Nifti.NiftiFile.Write(nifti, volume, new Nifti.NiftiWriteOptions { DataType = Nifti.NiftiDataType.UInt16 });
+        var image = Directory.CreateDirectory(Path.Combine(folder, "r.ome.zarr")).FullName;
+        Zarr.OmeZarrWriter.Write(image, volume, Zarr.ZarrElementType.UInt16, "r", "random");
+
+        var result = Check(image, nifti);
+        Assert.True(result.GetProperty("level0_equals_nifti").GetBoolean(), "level 0 differs from the NIfTI volume");
+        Assert.Empty(result.GetProperty("metadata_problems").EnumerateArray());
+        Assert.Empty(result.GetProperty("translation_problems").EnumerateArray());
+        var levels = result.GetProperty("levels").EnumerateArray().ToArray();
+        Assert.Equal([[20, 270, 300], [10, 135, 150], [5, 68, 75], [3, 34, 38]],
+            levels.Select(l => l.GetProperty("shape").EnumerateArray().Select(v => v.GetInt32()).ToArray()));
+        for (int l = 1; l < levels.Length; l++)
+            Assert.True(levels[l].GetProperty("mean_mismatches").GetInt32() == 0, $"level {l} is not the block mean of level {l - 1}");
+    }
+
     private static void AssertLevels(JsonElement result, string dtype)
     {
         // OME-NGFF 0.4, "multiscales": version, axes, datasets[].path, one scale first and at most one translation after it,
