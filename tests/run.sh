@@ -5,7 +5,7 @@
 set -euo pipefail
 cd "$(dirname "$0")/.."
 
-debs=(python3-nibabel python3-scipy python3-skimage libfftw3-single3 mricron-data nifti-bin fonts-dejavu-core chromium elastix)
+debs=(python3-nibabel python3-scipy python3-skimage python3-zarr libfftw3-single3 mricron-data nifti-bin fonts-dejavu-core chromium elastix)
 missing=()
 for p in "${debs[@]}"; do dpkg-query -W -f='${Status}' "$p" 2>/dev/null | grep -q "ok installed" || missing+=("$p"); done
 if ((${#missing[@]})); then

@@ -13,7 +13,7 @@ public static class ApplyCommand
     {
         var sidecar = new Argument<string>("BUILD.json") { Description = "The sidecar written beside a volume by 'stackbuild build'" };
         var images = new Option<string>("--images") { Description = "Folder of the other images of the same sections (numbered as the build's, or with a manifest.csv), or a manifest file", Required = true };
-        var output = new Option<string>("--output", "-o") { Description = "Output volume, .nii.gz or .nii; a sidecar .json saying what was applied is written beside it", Required = true };
+        var output = new Option<string>("--output", "-o") { Description = "Output volume, .nii.gz or .nii, or .ome.zarr (an OME-Zarr folder); a sidecar .json saying what was applied is written beside it", Required = true };
         var manifest = new Option<string?>("--manifest") { Description = "Manifest CSV to use instead of IMAGES/manifest.csv" };
         var pixelSize = new Option<double?>("--pixel-size") { Description = "Pixel size of the other images in µm (overrides their manifest); when it differs from the build's, the stored placements are scaled by the ratio" };
         var outPixel = new Option<double?>("--output-pixel-size") { Description = "In-plane voxel size of the applied volume in µm (default: the build's). The grid covers the build's extent, its first voxel's outer corner where the build's is" };

@@ -19,7 +19,7 @@ public static class BuildCommand
     public static Command Create(CliOutput console)
     {
         var series = new Argument<string>("series") { Description = "Folder of section images (with an optional manifest.csv), or a manifest file" };
-        var output = new Option<string>("--output", "-o") { Description = "Output volume, .nii.gz or .nii; the sidecar .json and the report .report.html are written beside it", Required = true };
+        var output = new Option<string>("--output", "-o") { Description = "Output volume, .nii.gz or .nii (NIfTI-1), or .ome.zarr (an OME-Zarr folder: chunked, with coarser levels); the sidecar .json and the report .report.html are written beside it", Required = true };
         var manifest = new Option<string?>("--manifest") { Description = "Manifest CSV to use instead of SERIES/manifest.csv" };
         var pixelSize = new Option<double?>("--pixel-size") { Description = "Input pixel size in µm (overrides the manifest)" };
         var spacing = new Option<double?>("--spacing") { Description = "Distance between consecutive section numbers in µm (overrides the manifest)" };
@@ -57,11 +57,12 @@ public static class BuildCommand
         })
             option.HelpName = name;
 
-        var command = new Command("build", "Rebuild a section series into one NIfTI-1 volume with a sidecar of every section's placement.\n\n" +
+        var command = new Command("build", "Rebuild a section series into one NIfTI-1 volume (or OME-Zarr image) with a sidecar of every section's placement.\n\n" +
             "Examples:\n" +
             "  stackbuild build demo-series -o demo-volume.nii.gz\n" +
             "  stackbuild build demo-series -o v.nii.gz --reference 12 --rotate 90 --axes LIP   (frame of section 12, turned)\n" +
-            "  stackbuild build demo-series -o v.nii.gz --template blockface.nii.gz             (template guides drift and frame)")
+            "  stackbuild build demo-series -o v.nii.gz --template blockface.nii.gz             (template guides drift and frame)\n" +
+            "  stackbuild build demo-series -o demo-volume.ome.zarr                             (OME-Zarr, for viewers that stream large volumes)")
         {
             series, output, manifest, pixelSize, spacing, axes, reference, upright, rotate, mirror, noCrop, margin, centre,
             template, templateAxis, templateFirst, templateReverse, templateGrid,

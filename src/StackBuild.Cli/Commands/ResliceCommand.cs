@@ -252,7 +252,7 @@ internal static class VolumeInput
     /// <summary>As <see cref="Load"/>, with the file's header (its datatype and intent).</summary>
     public static (Volume Volume, NiftiHeader Header) LoadWithHeader(string path, TextWriter notes)
     {
-        if (!File.Exists(path))
+        if (!File.Exists(path) && !Directory.Exists(path)) // a folder: the reader says what it is
             throw new InputProblemException(path, "no such file", "check the path to the NIfTI volume (.nii or .nii.gz)");
         var image = NiftiFile.Read(path);
         if (image.VolumeCount > 1)

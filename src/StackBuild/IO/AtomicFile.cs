@@ -46,21 +46,49 @@ public static class AtomicFile
         return temp;
     }
 
-    /// <summary>Runs a step on the temporary file <paramref name="temp"/>; if it fails, removes the file and says which output it was.</summary>
-    private static void DiscardingOnFailure(string path, string temp, Action step)
+    /// <summary>
+    /// Writes an output that is a folder (an OME-Zarr image) under a temporary name beside <paramref name="path"/> (hidden,
+    /// ending in <c>.part</c>): creates the empty folder, lets <paramref name="write"/> fill it, and returns its name; the caller
+    /// renames it into place or discards it. Nothing is left behind when writing fails.
+    /// </summary>
+    public static string WriteTemporaryFolder(string path, Action<string> write)
     {
+        var full = Path.GetFullPath(path);
+        var dir = Path.GetDirectoryName(full) ?? ".";
+        if (!Directory.Exists(dir))
+            throw new InputProblemException(path, "the folder for this output does not exist", "create the folder first or choose another output path");
+        var temp = TemporaryName(full, "part");
+        try
+        {
+            Directory.CreateDirectory(temp);
+        }
+        catch (Exception e) when (e is UnauthorizedAccessException or IOException)
+        {
+            throw CannotWriteIn(path, dir, e);
+        }
+        DiscardingOnFailure(path, temp, () => write(temp), DiscardFolder);
+        return temp;
+    }
+
+    /// <summary>
+    /// Runs a step on the temporary file <paramref name="temp"/>; if it fails, removes the file (or folder, with
+    /// <paramref name="discard"/>) and says which output it was.
+    /// </summary>
+    private static void DiscardingOnFailure(string path, string temp, Action step, Action<string>? discard = null)
+    {
+        discard ??= Discard;
         try
         {
             step();
         }
         catch (IOException e) when (e is not FileNotFoundException and not DirectoryNotFoundException)
         {
-            Discard(temp);
+            discard(temp);
             throw CouldNotWrite(path, temp, e);
         }
         catch
         {
-            Discard(temp);
+            discard(temp);
             throw;
         }
     }
@@ -71,7 +99,7 @@ public static class AtomicFile
 
     /// <summary>
     /// Removes what a run that was killed while writing <paramref name="path"/> left beside it: its hidden temporary files
-    /// (<c>.NAME.PID.GUID.part</c>, see <see cref="TemporaryName"/>) and folder write checks (<c>.stackbuild-write-check.PID.GUID</c>)
+    /// and folders (<c>.NAME.PID.GUID.part</c>, see <see cref="TemporaryName"/>) and folder write checks (<c>.stackbuild-write-check.PID.GUID</c>)
     /// of processes that no longer run. Files of a process still running (another build writing the same output) are left,
     /// and so are <c>.old</c> backups, which may hold the only copy of an earlier output. Failures to remove are ignored.
     /// Returns the names removed.
@@ -87,13 +115,18 @@ public static class AtomicFile
             $@"^\.(?:{name}\.(?<pid>\d+)\.[0-9a-f]{{32}}\.part|stackbuild-write-check\.(?<pid>\d+)\.[0-9a-f]{{32}})$",
             System.Text.RegularExpressions.RegexOptions.CultureInvariant);
         string[] candidates;
-        try { candidates = Directory.GetFiles(dir, ".*"); }
+        try { candidates = Directory.GetFileSystemEntries(dir, ".*"); }
         catch (Exception e) when (e is IOException or UnauthorizedAccessException) { return removed; }
         foreach (var file in candidates)
         {
             var match = pattern.Match(Path.GetFileName(file));
             if (!match.Success || !int.TryParse(match.Groups["pid"].Value, out int pid) || pid == Environment.ProcessId || IsRunning(pid)) continue;
-            try { File.Delete(file); removed.Add(Path.GetFileName(file)); }
+            try
+            {
+                // A folder output (OME-Zarr) is staged as a folder of that name.
+                if (Directory.Exists(file)) Directory.Delete(file, recursive: true); else File.Delete(file);
+                removed.Add(Path.GetFileName(file));
+            }
             catch (Exception e) when (e is IOException or UnauthorizedAccessException) { }
         }
         return removed;
@@ -140,6 +173,12 @@ public static class AtomicFile
     internal static void Discard(string temp)
     {
         try { File.Delete(temp); } catch (IOException) { } catch (UnauthorizedAccessException) { }
+    }
+
+    /// <summary>Removes a temporary or backup folder and everything in it; failures are ignored, as <see cref="Discard"/> ignores them.</summary>
+    internal static void DiscardFolder(string temp)
+    {
+        try { Directory.Delete(temp, recursive: true); } catch (IOException) { } catch (UnauthorizedAccessException) { }
     }
 
     public static void WriteAllText(string path, string text) =>

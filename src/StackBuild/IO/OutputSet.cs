@@ -14,7 +14,7 @@ namespace StackBuild.IO;
 /// </remarks>
 public sealed class OutputSet : IDisposable
 {
-    private readonly List<(string Path, string Temporary)> _staged = [];
+    private readonly List<(string Path, string Temporary, bool Folder)> _staged = [];
     private readonly Action<string>? _beforeRename;
     private bool _committed;
 
@@ -31,7 +31,23 @@ public sealed class OutputSet : IDisposable
         if (_committed) throw new InvalidOperationException("The set is already in place.");
         AtomicFile.RemoveLeftovers(path);
         var temporary = AtomicFile.WriteTemporary(path, write);
-        _staged.Add((path, temporary));
+        _staged.Add((path, temporary, false));
+        return temporary;
+    }
+
+    /// <summary>
+    /// Writes one output of the set that is a folder (an OME-Zarr image) under a temporary name beside <paramref name="path"/>;
+    /// returns that name. <paramref name="write"/> is given the empty temporary folder to fill. On <see cref="Commit"/> a folder
+    /// already at the path is moved to a hidden backup name, the new one renamed into place, and the backup removed once the
+    /// whole set is in place. Unlike a file, a folder cannot be renamed over another: between the two renames the path is
+    /// empty for an instant.
+    /// </summary>
+    public string StageFolder(string path, Action<string> write)
+    {
+        if (_committed) throw new InvalidOperationException("The set is already in place.");
+        AtomicFile.RemoveLeftovers(path);
+        var temporary = AtomicFile.WriteTemporaryFolder(path, write);
+        _staged.Add((path, temporary, true));
         return temporary;
     }
 
@@ -43,16 +59,28 @@ public sealed class OutputSet : IDisposable
     public void Commit()
     {
         if (_committed) throw new InvalidOperationException("The set is already in place.");
-        var done = new List<(string Path, string? Backup)>();
+        var done = new List<(string Path, string? Backup, bool Folder)>();
         int next = 0;
         try
         {
             for (; next < _staged.Count; next++)
             {
-                var (path, temporary) = _staged[next];
+                var (path, temporary, folder) = _staged[next];
                 _beforeRename?.Invoke(path);
                 string? backup = null;
-                if (File.Exists(path))
+                if (folder)
+                {
+                    if (Directory.Exists(path))
+                    {
+                        backup = AtomicFile.TemporaryName(path, "old");
+                        Directory.Move(path, backup);
+                        done.Add((path, backup, true)); // taken back below if the next rename fails
+                        Directory.Move(temporary, path);
+                        continue;
+                    }
+                    Directory.Move(temporary, path);
+                }
+                else if (File.Exists(path))
                 {
                     // A second name for the earlier file (a hard link where the file system has them), then one rename
                     // over it: the path never lacks a file.
@@ -63,7 +91,7 @@ public sealed class OutputSet : IDisposable
                 {
                     File.Move(temporary, path, overwrite: false);
                 }
-                done.Add((path, backup));
+                done.Add((path, backup, folder));
             }
         }
         catch (Exception e) when (e is IOException or UnauthorizedAccessException)
@@ -71,10 +99,16 @@ public sealed class OutputSet : IDisposable
             var failed = _staged[next].Path;
             for (int i = done.Count - 1; i >= 0; i--)
             {
-                var (path, backup) = done[i];
+                var (path, backup, folder) = done[i];
                 try
                 {
-                    if (backup is not null) File.Move(backup, path, overwrite: true);
+                    if (folder)
+                    {
+                        // The new folder is not there when the failing rename was its own (its backup was already made).
+                        if (Directory.Exists(path)) Directory.Delete(path, recursive: true);
+                        if (backup is not null) Directory.Move(backup, path);
+                    }
+                    else if (backup is not null) File.Move(backup, path, overwrite: true);
                     else File.Delete(path);
                 }
                 catch (Exception undo) when (undo is IOException or UnauthorizedAccessException)
@@ -82,20 +116,28 @@ public sealed class OutputSet : IDisposable
                     // Nothing more can be done here; the error below names the output that failed.
                 }
             }
-            for (int i = next; i < _staged.Count; i++) AtomicFile.Discard(_staged[i].Temporary);
+            for (int i = next; i < _staged.Count; i++) Discard(_staged[i]);
             _staged.Clear();
             throw new IOException($"{failed}: could not be put in place ({e.Message.TrimEnd('.')}); the outputs were left as they were before this run", e);
         }
         _committed = true;
-        foreach (var (_, backup) in done)
-            if (backup is not null) AtomicFile.Discard(backup);
+        foreach (var (_, backup, folder) in done)
+            if (backup is not null)
+            {
+                if (folder) AtomicFile.DiscardFolder(backup); else AtomicFile.Discard(backup);
+            }
     }
 
     /// <summary>Removes the temporary files of a set that was not put in place.</summary>
     public void Dispose()
     {
         if (_committed) return;
-        foreach (var (_, temporary) in _staged) AtomicFile.Discard(temporary);
+        foreach (var staged in _staged) Discard(staged);
         _staged.Clear();
+    }
+
+    private static void Discard((string Path, string Temporary, bool Folder) staged)
+    {
+        if (staged.Folder) AtomicFile.DiscardFolder(staged.Temporary); else AtomicFile.Discard(staged.Temporary);
     }
 }

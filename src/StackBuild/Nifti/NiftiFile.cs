@@ -274,6 +274,9 @@ public static class NiftiFile
 
     private static OpenedFile Open(string path)
     {
+        if (Directory.Exists(path) && path.TrimEnd('/').EndsWith(".ome.zarr", StringComparison.OrdinalIgnoreCase))
+            throw new InputProblemException(path, "this is an OME-Zarr image, which StackBuild writes but does not read",
+                "give a NIfTI volume (.nii or .nii.gz); build with -o OUT.nii.gz for one, or open the image in an OME-Zarr viewer");
         if (Directory.Exists(path))
             throw new InputProblemException(path, "this is a folder, not a NIfTI file", "give the path of a .nii or .nii.gz file");
         if (!File.Exists(path))

@@ -22,9 +22,9 @@ public sealed record ApplyRecord
     [JsonPropertyName("placements_from")] public string PlacementsFrom { get; init; } = "";
     /// <summary>The image set (folder or manifest) that was drawn.</summary>
     [JsonPropertyName("images")] public string Images { get; init; } = "";
-    /// <summary>The name of the volume file this sidecar was written with, in the sidecar's folder.</summary>
+    /// <summary>The name of the volume file (or OME-Zarr folder) this sidecar was written with, in the sidecar's folder.</summary>
     [JsonPropertyName("volume")] public string? Volume { get; init; }
-    /// <summary>SHA-256 of that volume file's bytes (lower-case hex).</summary>
+    /// <summary>SHA-256 of that volume file's bytes (lower-case hex); for an OME-Zarr folder see <see cref="SidecarFile.Sha256"/>.</summary>
     [JsonPropertyName("volume_sha256")] public string? VolumeSha256 { get; init; }
     [JsonPropertyName("dimensions")] public int[] Dimensions { get; init; } = [];
     [JsonPropertyName("voxel_size_mm")] public double[] VoxelSizeMm { get; init; } = [];

@@ -117,9 +117,9 @@ public sealed record BuildRecord
     [JsonPropertyName("version")] public string Version { get; init; } = "";
     [JsonPropertyName("created")] public string Created { get; init; } = "";
     [JsonPropertyName("input")] public string Input { get; init; } = "";
-    /// <summary>The name of the volume file this sidecar was written with, in the sidecar's folder; null in sidecars from before it was recorded.</summary>
+    /// <summary>The name of the volume file (or OME-Zarr folder, OUT.ome.zarr) this sidecar was written with, in the sidecar's folder; null in sidecars from before it was recorded.</summary>
     [JsonPropertyName("volume")] public string? Volume { get; init; }
-    /// <summary>SHA-256 of that volume file's bytes (lower-case hex), so a volume changed or replaced after the build is recognised.</summary>
+    /// <summary>SHA-256 of that volume file's bytes (lower-case hex), so a volume changed or replaced after the build is recognised; for an OME-Zarr folder, of its list of files and their SHA-256 (<see cref="SidecarFile.Sha256"/>).</summary>
     [JsonPropertyName("volume_sha256")] public string? VolumeSha256 { get; init; }
     [JsonPropertyName("aligned")] public bool Aligned { get; init; }
     [JsonPropertyName("dimensions")] public int[] Dimensions { get; init; } = [];

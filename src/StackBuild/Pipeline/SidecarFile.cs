@@ -84,16 +84,45 @@ public static class SidecarFile
         return record;
     }
 
-    /// <summary>SHA-256 of a file's bytes, lower-case hex (the sidecar's <c>volume_sha256</c>).</summary>
-    public static string Sha256(string file)
+    /// <summary>
+    /// The sidecar's <c>volume_sha256</c>, lower-case hex: for a file (NIfTI), the SHA-256 of its bytes; for a folder (OME-Zarr),
+    /// the SHA-256 of the list of its files, one line "SHA256␠␠RELATIVE/PATH\n" per file (the file's own SHA-256, two
+    /// spaces, its path inside the folder with '/' between names), sorted by path byte by byte. That list is what
+    /// <c>find . -type f -printf '%P\0' | LC_ALL=C sort -z | xargs -0 sha256sum</c> prints inside the folder, so the value can be
+    /// checked without StackBuild.
+    /// </summary>
+    public static string Sha256(string path)
     {
-        using var stream = new FileStream(file, FileMode.Open, FileAccess.Read, FileShare.Read, 1 << 20);
+        if (Directory.Exists(path)) return FolderSha256(path);
+        using var stream = new FileStream(path, FileMode.Open, FileAccess.Read, FileShare.Read, 1 << 20);
         return Convert.ToHexStringLower(SHA256.HashData(stream));
     }
 
+    private static string FolderSha256(string folder)
+    {
+        var files = Directory.EnumerateFiles(folder, "*", new EnumerationOptions { RecurseSubdirectories = true, AttributesToSkip = 0 })
+            .Select(f => (Relative: Path.GetRelativePath(folder, f).Replace(Path.DirectorySeparatorChar, '/'), Full: f))
+            .OrderBy(f => System.Text.Encoding.UTF8.GetBytes(f.Relative), ByteOrder.Instance)
+            .ToList();
+        var list = new System.Text.StringBuilder();
+        foreach (var (relative, full) in files)
+        {
+            using var stream = new FileStream(full, FileMode.Open, FileAccess.Read, FileShare.Read, 1 << 16);
+            list.Append(Convert.ToHexStringLower(SHA256.HashData(stream))).Append("  ").Append(relative).Append('\n');
+        }
+        return Convert.ToHexStringLower(SHA256.HashData(System.Text.Encoding.UTF8.GetBytes(list.ToString())));
+    }
+
+    /// <summary>Byte-by-byte order of UTF-8 names (C locale's sort).</summary>
+    private sealed class ByteOrder : IComparer<byte[]>
+    {
+        public static readonly ByteOrder Instance = new();
+        public int Compare(byte[]? a, byte[]? b) => a.AsSpan().SequenceCompareTo(b);
+    }
+
     /// <summary>
-    /// Checks a sidecar against the volume it names: the file <paramref name="volumeName"/> in the sidecar's folder, else the
-    /// volume with the sidecar's base name (OUT.nii.gz or OUT.nii for OUT.json, both renamed together). Refuses
+    /// Checks a sidecar against the volume it names: the file (or OME-Zarr folder) <paramref name="volumeName"/> in the sidecar's
+    /// folder, else the volume with the sidecar's base name (OUT.nii.gz, OUT.nii or OUT.ome.zarr for OUT.json, renamed together). Refuses
     /// (<see cref="InputProblemException"/>) a volume whose SHA-256 is not the recorded one: it was changed or replaced after
     /// the build, or the build that wrote the set was stopped between its renames. A sidecar from before the checksum was
     /// recorded is not checked; a volume that is not there is noted on <paramref name="notes"/> and not refused (the
@@ -174,14 +203,17 @@ public static class SidecarFile
             && volumeName is not "." and not "..")
         {
             var named = Path.Combine(folder, volumeName);
-            if (File.Exists(named)) return named;
+            if (File.Exists(named) || (IsFolderVolume(named) && Directory.Exists(named))) return named;
         }
         if (!full.EndsWith(".json", StringComparison.OrdinalIgnoreCase)) return null;
         var stem = full[..^5];
         foreach (var candidate in new[] { stem + ".nii.gz", stem + ".nii" })
             if (File.Exists(candidate)) return candidate;
-        return null;
+        return Directory.Exists(stem + ".ome.zarr") ? stem + ".ome.zarr" : null;
     }
+
+    /// <summary>An OME-Zarr volume is a folder (OUT.ome.zarr); every other volume is a file.</summary>
+    private static bool IsFolderVolume(string path) => path.EndsWith(".ome.zarr", StringComparison.OrdinalIgnoreCase);
 
     private static bool SameFile(string a, string b) => string.Equals(Path.GetFullPath(a), Path.GetFullPath(b), StringComparison.Ordinal);
 

@@ -2,39 +2,57 @@ using System.Text.Json;
 using StackBuild.IO;
 using StackBuild.Nifti;
 using StackBuild.Pipeline;
+using StackBuild.Zarr;
 
 namespace StackBuild.Write;
 
-/// <summary>The output paths of a build: the volume and its sidecar (same base name, as BIDS does), and the report.</summary>
+/// <summary>
+/// The output paths of a build: the volume and its sidecar (same base name, as BIDS does), and the report. The volume is a
+/// NIfTI-1 file (OUT.nii.gz, OUT.nii) or an OME-Zarr folder (OUT.ome.zarr).
+/// </summary>
 public sealed record BuildOutputPaths(string Volume, string Sidecar)
 {
     /// <summary>The quality report beside the sidecar: OUT.report.html.</summary>
     public string Report => Sidecar[..^".json".Length] + ".report.html";
 
-    /// <summary>Checks the volume path and derives the sidecar path; refuses names that are not NIfTI.</summary>
+    /// <summary>True when the volume is written as an OME-Zarr folder (the name ends in .ome.zarr).</summary>
+    public bool IsOmeZarr => Volume.EndsWith(OmeZarrSuffix, StringComparison.OrdinalIgnoreCase);
+
+    public const string OmeZarrSuffix = ".ome.zarr";
+
+    /// <summary>Checks the volume path and derives the sidecar path; refuses names that are neither NIfTI nor OME-Zarr.</summary>
     public static BuildOutputPaths For(string volumePath)
     {
         string baseName;
+        // A trailing slash, as shell completion adds to a folder's name, is not part of the name.
+        if (volumePath.Length > 1 && volumePath.EndsWith('/') && volumePath.TrimEnd('/').EndsWith(OmeZarrSuffix, StringComparison.OrdinalIgnoreCase))
+            volumePath = volumePath.TrimEnd('/');
         if (volumePath.EndsWith(".nii.gz", StringComparison.OrdinalIgnoreCase)) baseName = volumePath[..^7];
         else if (volumePath.EndsWith(".nii", StringComparison.OrdinalIgnoreCase)) baseName = volumePath[..^4];
-        else throw new InputProblemException(volumePath, "the output must be a NIfTI-1 file", "end the output name with .nii.gz (compressed) or .nii");
+        else if (volumePath.EndsWith(OmeZarrSuffix, StringComparison.OrdinalIgnoreCase)) baseName = volumePath[..^OmeZarrSuffix.Length];
+        else if (volumePath.EndsWith(".zarr", StringComparison.OrdinalIgnoreCase))
+            throw new InputProblemException(volumePath, "an OME-Zarr output's name must end in .ome.zarr (OME-NGFF's naming)", "end the output name with .ome.zarr");
+        else throw new InputProblemException(volumePath, "the output must be a NIfTI-1 file or an OME-Zarr folder",
+            "end the output name with .nii.gz (compressed), .nii, or .ome.zarr (chunked, several resolutions)");
         if (Path.GetFileName(baseName).Length == 0)
             throw new InputProblemException(volumePath, "the output name is empty", "give a file name such as volume.nii.gz");
         return new BuildOutputPaths(volumePath, baseName + ".json");
     }
 
     /// <summary>
-    /// Checks, before any work is done, that the outputs can be written: the folder exists, a file can be created
-    /// in it, and none of the three paths is a folder.
+    /// Checks, before any work is done, that the outputs can be written: the folder exists, a file can be created in it, none
+    /// of the file outputs is a folder, and an OME-Zarr output's path is free, an empty folder, or an earlier StackBuild
+    /// OME-Zarr image (which is replaced, as an earlier NIfTI volume is).
     /// </summary>
     public void CheckWritable()
     {
         var folder = Path.GetDirectoryName(Path.GetFullPath(Volume));
         if (folder is null || !Directory.Exists(folder))
             throw new InputProblemException(Volume, "the folder for this output does not exist", "create the folder first or choose another output path");
-        foreach (var path in new[] { Volume, Sidecar, Report })
+        foreach (var path in IsOmeZarr ? new[] { Sidecar, Report } : new[] { Volume, Sidecar, Report })
             if (Directory.Exists(path))
                 throw new InputProblemException(path, "an output would replace a folder of that name", "choose another output name");
+        if (IsOmeZarr) OmeZarrOutput.CheckReplaceable(Volume);
         AtomicFile.CheckFolderWritable(Volume, folder);
     }
 }
@@ -57,12 +75,10 @@ public static class BuildWriter
     /// <param name="beforeRename">Called with each output path just before its file is renamed into place (for tests).</param>
     public static BuildResult Write(BuildResult result, BuildOutputPaths paths, Action<string>? beforeRename = null)
     {
-        var type = result.InputBitDepth > 8 ? NiftiDataType.UInt16 : NiftiDataType.UInt8;
         var description = result.Record.Aligned ? "StackBuild aligned section series" : "StackBuild section series (unaligned)";
         paths.CheckWritable();
         using var set = new OutputSet(beforeRename);
-        var volume = set.Stage(paths.Volume, s => NiftiFile.Write(s, NiftiFile.CompressedName(paths.Volume), result.Volume,
-            new NiftiWriteOptions { DataType = type, Description = description }));
+        var volume = StageVolume(set, paths, result.Volume, result.InputBitDepth, description);
         var written = result with
         {
             Record = result.Record with { Volume = Path.GetFileName(paths.Volume), VolumeSha256 = SidecarFile.Sha256(volume) },
@@ -82,11 +98,9 @@ public static class BuildWriter
     public static ApplyResult WriteApplied(ApplyResult result, BuildOutputPaths paths, Action<string>? beforeRename = null)
     {
         CheckNotReplacing(paths, result.Record.PlacementsFrom);
-        var type = result.InputBitDepth > 8 ? NiftiDataType.UInt16 : NiftiDataType.UInt8;
         paths.CheckWritable();
         using var set = new OutputSet(beforeRename);
-        var volume = set.Stage(paths.Volume, s => NiftiFile.Write(s, NiftiFile.CompressedName(paths.Volume), result.Volume,
-            new NiftiWriteOptions { DataType = type, Description = "StackBuild placements applied to another image set" }));
+        var volume = StageVolume(set, paths, result.Volume, result.InputBitDepth, "StackBuild placements applied to another image set");
         var written = result with
         {
             Record = result.Record with { Volume = Path.GetFileName(paths.Volume), VolumeSha256 = SidecarFile.Sha256(volume) },
@@ -94,6 +108,23 @@ public static class BuildWriter
         set.Stage(paths.Sidecar, s => WriteText(s, JsonSerializer.Serialize(written.Record, JsonOptions) + "\n"));
         set.Commit();
         return written;
+    }
+
+    /// <summary>
+    /// Stages the volume as the output name asks (NIfTI-1 file, or OME-Zarr folder: <see cref="OmeZarrWriter"/>), 8-bit or
+    /// 16-bit like the input; returns the temporary name, whose checksum the sidecar records (<see cref="SidecarFile.Sha256"/>).
+    /// </summary>
+    private static string StageVolume(OutputSet set, BuildOutputPaths paths, Imaging.Volume volume, int inputBitDepth, string description)
+    {
+        if (paths.IsOmeZarr)
+        {
+            var name = Path.GetFileName(paths.Volume)[..^BuildOutputPaths.OmeZarrSuffix.Length];
+            return set.StageFolder(paths.Volume, folder => OmeZarrWriter.Write(folder, volume,
+                inputBitDepth > 8 ? ZarrElementType.UInt16 : ZarrElementType.UInt8, name, description));
+        }
+        var type = inputBitDepth > 8 ? NiftiDataType.UInt16 : NiftiDataType.UInt8;
+        return set.Stage(paths.Volume, s => NiftiFile.Write(s, NiftiFile.CompressedName(paths.Volume), volume,
+            new NiftiWriteOptions { DataType = type, Description = description }));
     }
 
     private static void WriteText(Stream stream, string text)

@@ -133,4 +133,20 @@ internal static class PythonTool
         Assert.True(exit == 0, $"{script} failed ({exit}): {stderr}");
         return stdout;
     }
+
+    /// <summary>Runs a script that reads OME-Zarr with python3-zarr (exit code 3: a package is missing, named in its message).</summary>
+    public static string RunZarr(string script, params string[] args)
+    {
+        var (exit, stdout, stderr) = NiftiPython.Process(NiftiPython.Python, [NiftiPython.Tool(script), .. args]);
+        if (exit == 3) Assert.Fail($"{script}: {stderr.Trim()} (tests/run.sh installs python3-zarr and python3-nibabel as root)");
+        Assert.True(exit == 0, $"{script} failed ({exit}): {stderr}");
+        return stdout;
+    }
+
+    /// <summary>Runs a line of Python with python3-zarr (to change a test image as another Zarr writer would).</summary>
+    public static void RunZarrCode(string code)
+    {
+        var (exit, _, stderr) = NiftiPython.Process(NiftiPython.Python, ["-c", code]);
+        Assert.True(exit == 0, $"python3 -c failed ({exit}): {stderr} (Debian package python3-zarr)");
+    }
 }

@@ -788,6 +788,37 @@ public sealed class BadInputCorpusTests : IDisposable
     }
 
     [Fact]
+    public void BadInput_OmeZarrOutputFolderHoldingOtherFiles()
+    {
+        var series = Series();
+        var folder = Directory.CreateDirectory(Path.Combine(_out, "vol.ome.zarr")).FullName;
+        File.WriteAllText(Path.Combine(folder, "notes.txt"), "mine");
+        // Refused checks that the folder's file is byte for byte as it was (the output folder's snapshot).
+        Refused(["build", series, "-o", folder, "--pixel-size", "10", "--spacing", "50"], 1, folder, "holds something StackBuild did not write",
+            [Outputs[1], Outputs[2]]);
+        Assert.Equal(["notes.txt"], Directory.GetFileSystemEntries(folder).Select(Path.GetFileName));
+    }
+
+    [Theory]
+    [InlineData("info")]
+    [InlineData("view")]
+    public void BadInput_OmeZarrImageGivenToACommandThatReadsNifti(string command)
+    {
+        // Any folder named so stands for an image here; the commands refuse before looking inside.
+        var image = Directory.CreateDirectory(Path.Combine(_in, "vol.ome.zarr")).FullName;
+        File.WriteAllText(Path.Combine(image, ".zgroup"), "{\"zarr_format\": 2}\n");
+        Refused([command, image], 1, image, "OME-Zarr image, which StackBuild writes but does not read", []);
+    }
+
+    [Fact]
+    public void BadInput_ZarrOutputNotNamedOmeZarr()
+    {
+        var series = Series();
+        var output = Path.Combine(_out, "vol.zarr");
+        Refused(["build", series, "-o", output, "--pixel-size", "10", "--spacing", "50"], 1, output, "must end in .ome.zarr", [output]);
+    }
+
+    [Fact]
     public void BadInput_ResliceIntoAnUnwritableFolder()
     {
         var series = Series();

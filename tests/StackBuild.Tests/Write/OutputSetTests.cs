@@ -59,6 +59,29 @@ public sealed class OutputSetTests : IDisposable
     }
 
     [Fact]
+    public void StagingAFolderRemovesTheFolderAKilledRunLeftForThatOutput()
+    {
+        const int alive = 1, gone = 4194304; // as in the test above
+        string Guid32() => Guid.NewGuid().ToString("N");
+        var stale = Path.Combine(_folder, $".v.ome.zarr.{gone}.{Guid32()}.part");
+        var running = Path.Combine(_folder, $".v.ome.zarr.{alive}.{Guid32()}.part");
+        foreach (var f in new[] { stale, running })
+        {
+            Directory.CreateDirectory(Path.Combine(f, "0", "0"));
+            File.WriteAllText(Path.Combine(f, "0", "0", "0"), "chunk");
+        }
+        var output = Path.Combine(_folder, "v.ome.zarr");
+        using (var set = new OutputSet())
+        {
+            set.StageFolder(output, folder => File.WriteAllText(Path.Combine(folder, ".zgroup"), "{}"));
+            set.Commit();
+        }
+        Assert.False(Directory.Exists(stale));
+        Assert.True(Directory.Exists(running)); // another build still writing the same output
+        Assert.Equal("{}", File.ReadAllText(Path.Combine(output, ".zgroup")));
+    }
+
+    [Fact]
     public void AllFilesAppearOnCommitAndNoneBefore()
     {
         using var set = new OutputSet();
