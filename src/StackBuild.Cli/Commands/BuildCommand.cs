@@ -16,7 +16,9 @@ namespace StackBuild.Cli.Commands;
 
 public static class BuildCommand
 {
-    public static Command Create(CliOutput console)
+    public static Command Create(CliOutput console) => Create(console, CliHooks.None);
+
+    internal static Command Create(CliOutput console, CliHooks hooks)
     {
         var series = new Argument<string>("series") { Description = "Folder of section images (with an optional manifest.csv), or a manifest file" };
         var output = new Option<string>("--output", "-o") { Description = "Output volume, .nii.gz or .nii; the sidecar .json and the report .report.html are written beside it", Required = true };
@@ -132,7 +134,9 @@ public static class BuildCommand
             };
             var clock = parse.GetValue(verbose) ? new StageClock() : null;
             var pairCache = parse.GetValue(noCache) || !options.Align ? null : new PairCacheFolder(parse.GetValue(cacheFolder) ?? PairCacheFolder.DefaultFor(paths.Volume));
-            var built = BuildPipeline.Run(options, new SyncProgress(console), clock, pairCache);
+            var listed = StageClock.Time(clock, "series", () => SeriesReader.Open(options.Input, options.Series));
+            hooks.AfterListing?.Invoke(listed);
+            var built = BuildPipeline.Run(options, listed, SectionFiles.Instance, new SyncProgress(console), clock, pairCache);
             pairCache?.Trim();
             var result = StageClock.Time(clock, "review", () => BuildReview.Review(built));
             console.EndProgress();
