@@ -5,6 +5,8 @@ using Microsoft.AspNetCore.Hosting;
 using Microsoft.AspNetCore.Hosting.Server;
 using Microsoft.AspNetCore.Hosting.Server.Features;
 using Microsoft.AspNetCore.Http;
+using Microsoft.AspNetCore.Server.Kestrel.Core;
+using Microsoft.AspNetCore.Server.Kestrel.Transport.Sockets;
 using Microsoft.Extensions.DependencyInjection;
 using Microsoft.Extensions.Hosting;
 using Microsoft.Extensions.Logging;
@@ -44,6 +46,16 @@ public sealed class ViewerServer : IAsyncDisposable
         var builder = WebApplication.CreateEmptyBuilder(new WebApplicationOptions { ApplicationName = "StackBuild.Viewer" });
         builder.Logging.ClearProviders();
         builder.WebHost.UseKestrelCore();
+        // Each connection's kernel send buffer is fixed (a connection takes it from the listening socket): by default Linux
+        // grows it to 4 MB, enough to take a whole plane off Kestrel's hands for a client that reads nothing, which the
+        // kernel then keeps, at most 4 MB a connection, for as long as that client stays. Fixed, it bounds that memory and
+        // leaves a stalled client's answer with Kestrel, whose MinResponseDataRate then cuts it off.
+        builder.WebHost.UseSockets(sockets => sockets.CreateBoundListenSocket = endpoint =>
+        {
+            var listener = SocketTransportOptions.CreateDefaultBoundListenSocket(endpoint);
+            listener.SendBufferSize = SendBufferBytes;
+            return listener;
+        });
         builder.WebHost.ConfigureKestrel(k =>
         {
             k.AddServerHeader = false;
@@ -54,6 +66,15 @@ public sealed class ViewerServer : IAsyncDisposable
             k.Limits.MaxRequestHeadersTotalSize = MaxRequestHeaderBytes;
             k.Limits.MaxRequestHeaderCount = MaxRequestHeaderCount;
             k.Limits.MaxRequestBodySize = 0;
+            // Slow and silent clients (README, "The viewer's limits"). Kestrel serves every connection asynchronously, so
+            // a client that stalls holds no thread; what it holds is its connection and, while an answer is being
+            // written, that answer (the PNG, up to a few MB) and at most MaxResponseBufferBytes of Kestrel's buffer.
+            // These limits bound how long, and how many at once.
+            k.Limits.MinResponseDataRate = new MinDataRate(MinResponseBytesPerSecond, MinResponseGrace);
+            k.Limits.MaxResponseBufferSize = MaxResponseBufferBytes;
+            k.Limits.RequestHeadersTimeout = RequestHeadersTimeout;
+            k.Limits.KeepAliveTimeout = KeepAliveTimeout;
+            k.Limits.MaxConcurrentConnections = MaxConnections;
             k.Listen(address, port);
         });
         builder.Services.AddRoutingCore();
@@ -112,6 +133,50 @@ public sealed class ViewerServer : IAsyncDisposable
 
     /// <summary>Most header lines the viewer reads; more is 431 (Kestrel's own default, made explicit).</summary>
     public const int MaxRequestHeaderCount = 100;
+
+    /// <summary>
+    /// Slowest a client may take an answer, averaged over the answer, after <see cref="MinResponseGrace"/>; a slower
+    /// one is disconnected and the answer it held is let go. 100 KB/s is 0.8 Mbit/s: the viewer is for this computer
+    /// (loopback) or a local network, where a plane arrives at tens of MB/s, so only a client that has stopped reading is
+    /// caught. (Kestrel's default, 240 B/s, is for servers on the internet; at that rate a stalled client would hold a
+    /// 2 MB plane for over two hours.)
+    /// </summary>
+    public const int MinResponseBytesPerSecond = 100 * 1024;
+
+    /// <summary>
+    /// Kernel send buffer of each connection, in bytes (Linux keeps twice this for its own bookkeeping). 256 KB in flight is
+    /// plenty for a local network (at a 10 ms round trip it allows 25 MB/s) and keeps a stalled client's share of kernel
+    /// memory at 512 KB instead of up to 4 MB.
+    /// </summary>
+    public const int SendBufferBytes = 256 * 1024;
+
+    /// <summary>Time a client is given before <see cref="MinResponseBytesPerSecond"/> applies (Kestrel's default).</summary>
+    public static readonly TimeSpan MinResponseGrace = TimeSpan.FromSeconds(5);
+
+    /// <summary>
+    /// Most of an answer Kestrel keeps for a client that is not reading before the writer waits (its default, made
+    /// explicit): a stalled client costs this buffer and the one answer being written, never more.
+    /// </summary>
+    public const int MaxResponseBufferBytes = 64 * 1024;
+
+    /// <summary>
+    /// Time a client has to send its request line and headers (Kestrel: 30 s). The page's requests are a few hundred bytes
+    /// sent at once; a client that sends them a byte at a time to keep a connection open is cut off after 10 s.
+    /// </summary>
+    public static readonly TimeSpan RequestHeadersTimeout = TimeSpan.FromSeconds(10);
+
+    /// <summary>
+    /// Time an idle connection is kept open for the next request (Kestrel: 130 s). The page asks for planes while it is used
+    /// and a browser opens a new connection at once when needed, so idle connections are let go after 30 s.
+    /// </summary>
+    public static readonly TimeSpan KeepAliveTimeout = TimeSpan.FromSeconds(30);
+
+    /// <summary>
+    /// Most connections open at once (Kestrel: no limit); more are closed as they arrive. A browser opens at most six to
+    /// one server, so this is room for many pages; it bounds what stalled clients can hold together (each at most one
+    /// answer and <see cref="MaxResponseBufferBytes"/>) until <see cref="MinResponseBytesPerSecond"/> lets them go.
+    /// </summary>
+    public const int MaxConnections = 200;
 
     private static string Printable(string text) => text.Length <= 20 && text.All(c => c is > ' ' and < (char)127) ? text : "that method";
 

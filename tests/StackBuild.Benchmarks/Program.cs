@@ -13,6 +13,7 @@ public static class Program
     /// <summary>Run: dotnet run -c Release --project tests/StackBuild.Benchmarks -- --filter '*' --job short</summary>
     /// <summary>The accuracy table of whole-specimen series (docs/accuracy.md): dotnet run -c Release --project tests/StackBuild.Benchmarks -- accuracy</summary>
     /// <summary>The whole build against a general-library pipeline (docs/benchmarks.md): ... -- build-vs-library</summary>
+    /// <summary>A build run again on its kept pairs against one without them (docs/benchmarks.md): ... -- pair-cache</summary>
     public static void Main(string[] args)
     {
         FftPlanCache.Load(); // as the command line does: FFTW's plans from earlier runs
@@ -21,6 +22,7 @@ public static class Program
             if (args.Length > 0 && args[0] == "accuracy") { AccuracyTable.Run(args[1..]); return; }
             if (args.Length > 0 && args[0] == "pairs") { PairDiagnosis.Run(args[1..]); return; }
             if (args.Length > 0 && args[0] == "build-vs-library") { BuildVsLibrary.Run(args[1..]); return; }
+            if (args.Length > 0 && args[0] == "pair-cache") { PairCacheBenchmark.Run(args[1..]); return; }
             BenchmarkSwitcher.FromAssembly(typeof(Program).Assembly).Run(args);
         }
         finally { FftPlanCache.Save(); }

@@ -16,7 +16,9 @@ namespace StackBuild.Cli.Commands;
 
 public static class BuildCommand
 {
-    public static Command Create(CliOutput console)
+    public static Command Create(CliOutput console) => Create(console, CliHooks.None);
+
+    internal static Command Create(CliOutput console, CliHooks hooks)
     {
         var series = new Argument<string>("series") { Description = "Folder of section images (with an optional manifest.csv), or a manifest file" };
         var output = new Option<string>("--output", "-o") { Description = "Output volume, .nii.gz or .nii (NIfTI-1), or .ome.zarr (an OME-Zarr folder: chunked, with coarser levels); the sidecar .json and the report .report.html are written beside it", Required = true };
@@ -46,13 +48,15 @@ public static class BuildCommand
         var verbose = new Option<bool>("--verbose") { Description = "Also print, on stderr, what each stage of the build cost: wall and CPU time, memory allocated, managed heap and peak resident memory" };
         var noAlign = new Option<bool>("--no-align") { Description = "Place the sections centred without aligning them (the series as scanned)" };
         var workSize = new Option<int>("--work-size") { Description = "Long side in pixels at which sections are registered", DefaultValueFactory = _ => 512 };
+        var cacheFolder = new Option<string?>("--cache") { Description = $"Folder where registered pairs are kept for the next build of the same sections with the same registration options (default: {PairCacheFolder.DefaultName} beside the output; it may be deleted at any time)" };
+        var noCache = new Option<bool>("--no-cache") { Description = "Register every pair afresh, and keep none for later builds" };
         var minConfidence = new Option<double>("--min-confidence") { Description = "Pairs below this confidence (0–1) are not trusted to place a section", DefaultValueFactory = _ => 0.2 };
 
         foreach (var (option, name) in new (Option, string)[]
         {
             (pixelSize, "UM"), (spacing, "UM"), (axes, "CODES"), (outPixel, "UM"), (voxelSize, "UM"), (reference, "N"), (rotate, "DEG"),
             (margin, "UM"), (centre, "X,Y,Z"), (template, "VOL.nii.gz"), (templateAxis, "i|j|k"), (templateFirst, "K"),
-            (workSize, "PX"), (minConfidence, "0-1"), (smoothing, "STRENGTH"), (manifest, "CSV"), (channel, "CHANNEL"),
+            (workSize, "PX"), (minConfidence, "0-1"), (cacheFolder, "DIR"), (smoothing, "STRENGTH"), (manifest, "CSV"), (channel, "CHANNEL"),
             (interpolation, "METHOD"), (fill, "METHOD"),
         })
             option.HelpName = name;
@@ -66,7 +70,7 @@ public static class BuildCommand
         {
             series, output, manifest, pixelSize, spacing, axes, reference, upright, rotate, mirror, noCrop, margin, centre,
             template, templateAxis, templateFirst, templateReverse, templateGrid,
-            outPixel, voxelSize, channel, interpolation, noAlign, workSize, minConfidence, smoothing, fill, json, verbose,
+            outPixel, voxelSize, channel, interpolation, noAlign, workSize, minConfidence, smoothing, fill, cacheFolder, noCache, json, verbose,
         };
         command.SetAction(parse => console.Guard(() =>
         {
@@ -83,6 +87,8 @@ public static class BuildCommand
                 throw new InputProblemException(null, "--margin only applies when the grid is cropped, and --no-crop keeps every whole image", "leave out one of the two");
             if (!AxisCodes.TryParse(parse.GetValue(axes), out var axisCodes, out var axisProblem))
                 throw new InputProblemException(null, $"--axes: {axisProblem}", "see README, 'Geometry'");
+            if (Given(cacheFolder) && parse.GetValue(noCache))
+                throw new InputProblemException(null, "--cache names a folder for registered pairs and --no-cache keeps none", "leave out one of the two");
             var paths = BuildOutputPaths.For(parse.GetValue(output)!);
             paths.CheckWritable();
             if (parse.GetValue(template) is { } templateToCheck) CheckTemplateHeader(console, templateToCheck);
@@ -128,12 +134,16 @@ public static class BuildCommand
                 },
             };
             var clock = parse.GetValue(verbose) ? new StageClock() : null;
-            var built = BuildPipeline.Run(options, new SyncProgress(console), clock);
+            var pairCache = parse.GetValue(noCache) || !options.Align ? null : new PairCacheFolder(parse.GetValue(cacheFolder) ?? PairCacheFolder.DefaultFor(paths.Volume));
+            var listed = StageClock.Time(clock, "series", () => SeriesReader.Open(options.Input, options.Series));
+            hooks.AfterListing?.Invoke(listed);
+            var built = BuildPipeline.Run(options, listed, SectionFiles.Instance, new SyncProgress(console), clock, pairCache);
+            pairCache?.Trim();
             var result = StageClock.Time(clock, "review", () => BuildReview.Review(built));
             console.EndProgress();
             result = StageClock.Time(clock, "write", () => BuildWriter.Write(result, paths));
             Report(console, result, paths, parse.GetValue(json), alignRequested: options.Align);
-            if (clock is not null) ReportStages(console, clock, total.Elapsed);
+            if (clock is not null) ReportStages(console, clock, total.Elapsed, pairCache);
             return CliOutput.ExitOk;
         }));
         return command;
@@ -220,7 +230,7 @@ public static class BuildCommand
     /// --verbose: one line per stage (wall and CPU seconds, allocated MB, managed heap MB at its end, peak resident MB so
     /// far), then the whole command's wall time. CPU above wall means both cores were busy.
     /// </summary>
-    private static void ReportStages(CliOutput console, StageClock clock, TimeSpan total)
+    private static void ReportStages(CliOutput console, StageClock clock, TimeSpan total, PairCacheFolder? pairCache)
     {
         var e = console.Error;
         static string Mb(long bytes) => (bytes / 1048576.0).ToString("0", CultureInfo.InvariantCulture);
@@ -232,6 +242,10 @@ public static class BuildCommand
         e.WriteLine($"{"all stages",-16} {S(clock.Stages.Aggregate(TimeSpan.Zero, (sum, s) => sum + s.Wall)),8} {S(cpu),8} " +
             $"{Mb(clock.Stages.Sum(s => s.AllocatedBytes)),9} {"",8} {Mb(clock.Stages.Max(s => s.PeakResidentBytes)),12}");
         e.WriteLine($"command wall time {S(total)} s (from the options checked to the summary printed)");
+        if (pairCache is not null)
+            e.WriteLine($"pair cache {pairCache.Folder}: {pairCache.Reused} pairs reused, {pairCache.Kept} registered and kept" +
+                (pairCache.Untrusted > 0 ? $", {pairCache.Untrusted} damaged entries registered again" : "") +
+                (pairCache.NotKept > 0 ? $", {pairCache.NotKept} could not be kept (the folder is not writable or the disk is full)" : ""));
     }
 
     internal static double? Positive(double? value, string name)

@@ -21,10 +21,11 @@ public static class BuildPipeline
 
     /// <summary>
     /// Builds the series at <see cref="BuildOptions.Input"/> from its files. With a <paramref name="clock"/>, each stage's
-    /// cost is recorded on it (opening the series is the stage "series"); the outputs are the same either way.
+    /// cost is recorded on it (opening the series is the stage "series"); with a <paramref name="pairCache"/>, pairs
+    /// registered by earlier runs are taken from it (<see cref="RegisterStage.Register"/>). The outputs are the same either way.
     /// </summary>
-    public static BuildResult Run(BuildOptions options, IProgress<string>? progress = null, StageClock? clock = null) =>
-        Run(options, StageClock.Time(clock, "series", () => SeriesReader.Open(options.Input, options.Series)), SectionFiles.Instance, progress, clock);
+    public static BuildResult Run(BuildOptions options, IProgress<string>? progress = null, StageClock? clock = null, IPairCache? pairCache = null) =>
+        Run(options, StageClock.Time(clock, "series", () => SeriesReader.Open(options.Input, options.Series)), SectionFiles.Instance, progress, clock, pairCache);
 
     /// <summary>
     /// Builds an opened series whose pixels come from <paramref name="images"/> (files, or images in memory). The
@@ -33,7 +34,7 @@ public static class BuildPipeline
     /// nothing to do in this build (no template, not aligned), so the list of stages is always the same.
     /// </summary>
     public static BuildResult Run(BuildOptions options, SectionSeries series, ISectionImages images, IProgress<string>? progress = null,
-        StageClock? clock = null)
+        StageClock? clock = null, IPairCache? pairCache = null)
     {
         var plan = StageClock.Time(clock, "plan", () =>
         {
@@ -44,7 +45,7 @@ public static class BuildPipeline
         var sections = StageClock.Time(clock, "prepare", () => PrepareStage.Prepare(plan, images, progress));
         bool align = options.Align && sections.Count > 1;
         var slices = StageClock.Time(clock, "template slice", () => align ? TemplateStage.Slice(plan, sections, progress) : null); // null without a template
-        var pairs = StageClock.Time(clock, "register", () => align ? RegisterStage.Register(plan, sections, slices, progress) : null);
+        var pairs = StageClock.Time(clock, "register", () => align ? RegisterStage.Register(plan, sections, slices, progress, pairCache) : null);
         // The solve may register pairs beyond the first three neighbours (PairSet.Pair): their time counts here.
         var solved = StageClock.Time(clock, "solve", () => SolveStage.Solve(plan, sections, pairs));
         var placements = StageClock.Time(clock, "template place",

@@ -46,11 +46,15 @@ public static class RegisterStage
 {
     /// <summary>
     /// Registers neighbouring sections and decides the whole stack's mirror from all of them at once; with template
-    /// <paramref name="slices"/>, the template's matches vote where the pairs can hardly tell.
+    /// <paramref name="slices"/>, the template's matches vote where the pairs can hardly tell. With a
+    /// <paramref name="cache"/>, a pair registered by an earlier run with the same images and options is taken from it
+    /// instead of registered again (<see cref="PairKey"/>), and each pair registered here is handed to it.
     /// </summary>
-    public static PairSet Register(SeriesPlan plan, PreparedSections sections, TemplateSlices? slices, IProgress<string>? progress)
+    public static PairSet Register(SeriesPlan plan, PreparedSections sections, TemplateSlices? slices, IProgress<string>? progress,
+        IPairCache? cache = null)
     {
-        var registered = RegisterNeighbours(sections, plan.Options, progress);
+        var register = Registrar(sections, plan.Options, cache);
+        var registered = RegisterNeighbours(sections.Count, register, progress);
         // Which side of every section is up, decided from every pair within MirrorParity.MaxReach sections at once; each
         // pair then keeps its best hypothesis with that mirror, so one weak pair cannot turn over the sections after it.
         // Pairs weigh by how many sections apart they really lie (a lost section between makes a pair a second neighbour).
@@ -66,29 +70,43 @@ public static class RegisterStage
         }
         var pairs = new ConcurrentDictionary<(int, int), PairResult>(registered.Select(kv =>
             KeyValuePair.Create(kv.Key, kv.Value.WithMirror(parity.Flipped[kv.Key.Item1] != parity.Flipped[kv.Key.Item2]))));
-        return new PairSet(parity, pairs, (m, f) => RegisterPair(sections, m, f, plan.Options), sideMatches);
+        return new PairSet(parity, pairs, register, sideMatches);
     }
 
-    private static ConcurrentDictionary<(int, int), PairResult> RegisterNeighbours(PreparedSections sections, BuildOptions options, IProgress<string>? progress)
+    private static ConcurrentDictionary<(int, int), PairResult> RegisterNeighbours(int count, Func<int, int, PairResult> register, IProgress<string>? progress)
     {
         var jobs = new List<(int Moving, int Fixed)>();
-        for (int i = 1; i < sections.Count; i++)
+        for (int i = 1; i < count; i++)
             for (int d = 1; d <= Math.Min(i, MirrorParity.MaxReach); d++)
                 jobs.Add((i, i - d));
         var pairs = new ConcurrentDictionary<(int, int), PairResult>();
         int done = 0;
         Parallel.ForEach(jobs, new ParallelOptions { MaxDegreeOfParallelism = Environment.ProcessorCount }, job =>
         {
-            pairs[job] = RegisterPair(sections, job.Moving, job.Fixed, options);
+            pairs[job] = register(job.Moving, job.Fixed);
             progress?.Report($"registering: {Interlocked.Increment(ref done)}/{jobs.Count} pairs");
         });
         return pairs;
     }
 
-    private static PairResult RegisterPair(PreparedSections sections, int moving, int fixedIndex, BuildOptions options)
+    /// <summary>
+    /// Registers the pair (moving, fixed): from <paramref name="cache"/> when it holds the pair, else afresh, then kept there.
+    /// A section's digest is taken from its working image (what its registration image is prepared from) once, when a pair
+    /// first needs it.
+    /// </summary>
+    private static Func<int, int, PairResult> Registrar(PreparedSections sections, BuildOptions options, IPairCache? cache)
     {
-        bool? a = sections[moving].Entry.MountedMirrored, b = sections[fixedIndex].Entry.MountedMirrored;
-        var o = options.Registration with { KnownMirrored = a is { } ma && b is { } mb ? ma != mb : null };
-        return SectionRegistration.Register(sections[fixedIndex].Prepared!, sections[moving].Prepared!, o);
+        var digests = sections.Sections.Select(w => new Lazy<ImageDigest>(() => ImageDigest.Of(w.Image, w.Prepared?.Finer?.WorkImage))).ToArray();
+        return (moving, fixedIndex) =>
+        {
+            bool? a = sections[moving].Entry.MountedMirrored, b = sections[fixedIndex].Entry.MountedMirrored;
+            var o = options.Registration with { KnownMirrored = a is { } ma && b is { } mb ? ma != mb : null };
+            if (cache is null) return SectionRegistration.Register(sections[fixedIndex].Prepared!, sections[moving].Prepared!, o);
+            var key = PairKey.For(digests[fixedIndex].Value, digests[moving].Value, o);
+            if (cache.Find(key) is { } earlier) return earlier;
+            var result = SectionRegistration.Register(sections[fixedIndex].Prepared!, sections[moving].Prepared!, o);
+            cache.Keep(key, result);
+            return result;
+        };
     }
 }

@@ -18,14 +18,20 @@ public interface ISectionImages
     LoadedSection Read(SectionEntry section, ImageReadOptions options);
 }
 
-/// <summary>Section images read from the series' files, each time they are asked for (nothing is kept).</summary>
+/// <summary>
+/// Section images read from the series' files, each time they are asked for (nothing is kept). A file that is gone or
+/// not as it was when the series was listed (<see cref="SectionEntry.Listed"/>) is refused as such, in one line.
+/// </summary>
 public sealed class SectionFiles : ISectionImages
 {
     public static readonly SectionFiles Instance = new();
 
-    public LoadedSection Read(SectionEntry section, ImageReadOptions options) =>
-        SectionImageReader.ReadSection(section.FilePath
-            ?? throw new ArgumentException($"section {section.Number} has no file", nameof(section)), options);
+    public LoadedSection Read(SectionEntry section, ImageReadOptions options)
+    {
+        var path = section.FilePath ?? throw new ArgumentException($"section {section.Number} has no file", nameof(section));
+        section.Listed?.CheckUnchanged(path, "the series was listed");
+        return SectionImageReader.ReadSection(path, options);
+    }
 }
 
 /// <summary>

@@ -96,6 +96,16 @@ public sealed record PairResult(PairHypothesis Best, PairHypothesis? RunnerUp, d
 /// </remarks>
 public static class SectionRegistration
 {
+    /// <summary>
+    /// The version of what a pair's result is computed by. Builds keep registered pairs between runs (the pair cache,
+    /// Pipeline/PairCache.cs) under a hash of both sections' working pixels, the registration options, the FFT in use,
+    /// the program's version and this number. Add one to it in any change that can alter a pair's result for the same
+    /// images and options: this file, <see cref="PairEngine"/>, <see cref="PhaseCorrelation"/>, <see cref="PolarSpectrum"/>,
+    /// <see cref="PreparedSection"/>, <see cref="Preprocessing"/>, or a shared tool they call (warps, bilinear sampling,
+    /// Gaussian blur, the FFT); otherwise a build with a filled cache keeps the old results (DEVELOPERS.md).
+    /// </summary>
+    public const int CodeVersion = 1;
+
     private const double CoarseUpsample = 1; // whole pixels suffice to rank hypotheses; the best two are refined
     private const double DistinctDegrees = 10;
     /// <summary>Both sections' tissue must reach this far from the half canvas's centre (half pixels) for the search to run there.</summary>

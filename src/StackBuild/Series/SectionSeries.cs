@@ -1,3 +1,4 @@
+using StackBuild.IO;
 using StackBuild.Imaging;
 
 namespace StackBuild.Series;
@@ -47,7 +48,11 @@ public sealed record SectionEntry(
     bool? MountedMirrored,
     bool Damaged,
     string Note,
-    ImageFacts? Image);
+    ImageFacts? Image)
+{
+    /// <summary>The file's length and last write time when the series was listed (null for gaps and unread files).</summary>
+    public FileStamp? Listed { get; init; }
+}
 
 /// <summary>
 /// A found, identified and ordered series: one entry per section number from the first to the last, in

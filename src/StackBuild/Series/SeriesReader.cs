@@ -31,6 +31,7 @@ public static class SeriesReader
 
         public ManifestRow? Row { get; } = row;
         public ImageFacts? Facts { get; set; }
+        public FileStamp? Listed { get; set; }
 
         public SectionStatus Status =>
             Display is null ? SectionStatus.Gap : Row?.Exclude == true ? SectionStatus.Excluded : SectionStatus.Present;
@@ -240,6 +241,7 @@ public static class SeriesReader
         {
             try
             {
+                c.Listed = FileStamp.Of(c.Display!); // before its header is read: a change after this is a change after listing
                 var facts = SectionImageReader.Identify(c.Display!);
                 SectionImageReader.CheckSize(c.Display!, facts, maxPixels);
                 c.Facts = facts;
@@ -355,7 +357,7 @@ public static class SeriesReader
             {
                 var row = c.Row;
                 entries.Add(new SectionEntry(n, c.Display is null ? null : Path.GetFullPath(c.Display), position, pixel, c.Status,
-                    row?.Mirrored, row?.Damaged ?? false, row?.Note ?? "", c.Facts));
+                    row?.Mirrored, row?.Damaged ?? false, row?.Note ?? "", c.Facts) { Listed = c.Listed });
             }
             else
             {

@@ -2,6 +2,7 @@ using System.Diagnostics;
 using System.IO.Compression;
 using System.Text.Json.Nodes;
 using System.Text.RegularExpressions;
+using StackBuild.Pipeline;
 using StackBuild.Write;
 using Xunit;
 using Xunit.Abstractions;
@@ -90,7 +91,9 @@ public sealed partial class InterruptedBuildTests(NiftiTempFolder temp, ITestOut
             Assert.False(File.Exists(paths.Volume), $"kill {n + 1}: a volume was left at {paths.Volume}");
             Assert.False(File.Exists(paths.Sidecar), $"kill {n + 1}: a sidecar was left at {paths.Sidecar}");
             Assert.False(File.Exists(paths.Report), $"kill {n + 1}: a report was left at {paths.Report}");
-            Assert.Equal(hidden, Directory.GetFileSystemEntries(folder).Select(Path.GetFileName).Order().ToArray());
+            // Beside them only the pair cache (PairCacheFolder), whose entries were each written whole or not at all.
+            Assert.Equal(hidden, Directory.GetFileSystemEntries(folder).Select(Path.GetFileName).Where(n => n != PairCacheFolder.DefaultName).Order().ToArray());
+            AssertCacheEntriesWhole(Path.Combine(folder, PairCacheFolder.DefaultName), n + 1);
             // What may be left: the killed run's temporary files (AtomicFile.TemporaryName: .NAME.PID.GUID.part, .old for a
             // kept earlier file) and its folder write check (.stackbuild-write-check.PID.GUID), all named by its process id.
             Assert.All(hidden, name => Assert.Matches(LeftoverName(), name!));
@@ -98,11 +101,14 @@ public sealed partial class InterruptedBuildTests(NiftiTempFolder temp, ITestOut
         }
         Assert.True(killedIds.Count >= 3, $"only {killedIds.Count} of {Kills + 1} kills found the build still running");
 
-        // The build run to its end in the same folder, over whatever the kills left.
-        using (var last = CliProcess.Start(folder, build))
+        // The build run to its end in the same folder, over whatever the kills left, reusing the pairs they registered.
+        using (var last = CliProcess.Start(folder, [.. build, "--verbose"]))
         {
             Assert.True(await last.WaitAsync(TimeSpan.FromMinutes(2)), "the last build took more than 2 minutes");
             Assert.True(last.ExitCode == 0, last.Err);
+            var cacheLine = last.Err.Split('\n').Select(l => l.Trim()).Single(l => l.StartsWith("pair cache ", StringComparison.Ordinal));
+            output.WriteLine($"last build: {cacheLine}");
+            Assert.Matches(@": [1-9]\d* pairs reused", cacheLine);
         }
         Assert.Equal(Decompressed(expected.Volume), Decompressed(paths.Volume));
         Assert.Equal(WithoutCreated(expected.Sidecar), WithoutCreated(paths.Sidecar));
@@ -114,10 +120,20 @@ public sealed partial class InterruptedBuildTests(NiftiTempFolder temp, ITestOut
         Assert.All(left, name => Assert.EndsWith(".old", name!));
     }
 
+    /// <summary>Every entry at its final name decodes (a kill while writing leaves only a hidden temporary file); says how many there are.</summary>
+    private void AssertCacheEntriesWhole(string cache, int kill)
+    {
+        var entries = Directory.Exists(cache) ? Directory.GetFiles(cache, "*.pair") : [];
+        foreach (var entry in entries)
+            Assert.True(PairCacheFolder.Decode(File.ReadAllBytes(entry), new PairKey(Path.GetFileNameWithoutExtension(entry))) is not null,
+                $"kill {kill}: the cache entry {entry} is not whole");
+        output.WriteLine($"  pair cache after kill {kill}: {entries.Length} whole entries");
+    }
+
     [GeneratedRegex(@"^\.(?:(?:v\.nii\.gz|v\.json|v\.report\.html)\.(?<pid>\d+)\.[0-9a-f]{32}\.(?:part|old)|stackbuild-write-check\.(?<pid>\d+)\.[0-9a-f]{32})$")]
     private static partial Regex LeftoverName();
 
-    private static byte[] Decompressed(string path)
+    internal static byte[] Decompressed(string path)
     {
         using var gzip = new GZipStream(File.OpenRead(path), CompressionMode.Decompress);
         using var bytes = new MemoryStream();
@@ -126,7 +142,7 @@ public sealed partial class InterruptedBuildTests(NiftiTempFolder temp, ITestOut
     }
 
     /// <summary>The sidecar without its <c>created</c> time, the one field two builds of the same series differ in.</summary>
-    private static string WithoutCreated(string sidecar)
+    internal static string WithoutCreated(string sidecar)
     {
         var json = JsonNode.Parse(File.ReadAllText(sidecar))!.AsObject();
         Assert.True(json.Remove("created"), $"{sidecar} has no 'created' field");

@@ -49,12 +49,16 @@ public sealed class BadInputCorpusTests : IDisposable
     private string[] Build(string series, params string[] extra) =>
         ["build", series, "-o", Volume, "--pixel-size", "10", "--spacing", "50", "--work-size", "64", "--fill", "none", .. extra];
 
-    /// <summary>Runs a command that must be refused; returns its one error line.</summary>
-    private string Refused(string[] args, int code, string names, string problem, string[]? outputs = null)
+    /// <summary>
+    /// Runs a command that must be refused; returns its one error line. With <paramref name="afterListing"/>, a build calls
+    /// it once the series is listed (to change an input then); the inputs must then be as it left them.
+    /// </summary>
+    private string Refused(string[] args, int code, string names, string problem, string[]? outputs = null, Action<Series.SectionSeries>? afterListing = null)
     {
         var inputs = Snapshot(_in);
         var outFolder = Snapshot(_out);
-        var (exit, _, stderr) = CliRun.Run(args);
+        var hooks = afterListing is null ? Cli.CliHooks.None : new Cli.CliHooks(series => { afterListing(series); inputs = Snapshot(_in); });
+        var (exit, _, stderr) = CliRun.Run(hooks, args);
         _log.WriteLine($"exit {exit}: {stderr.Trim()}");
         Assert.True(exit == code, $"exit code {exit}, expected {code} (README): {stderr}");
         var line = Assert.Single(stderr.Split('\n', StringSplitOptions.RemoveEmptyEntries | StringSplitOptions.TrimEntries));
@@ -681,6 +685,88 @@ public sealed class BadInputCorpusTests : IDisposable
         var series = Series();
         var manifest = Manifest(series, "section,file,exclude\n1,s_001.png,yes\n2,s_002.png,yes\n3,s_003.png,yes\n");
         Refused(Build(series), 1, manifest, "every section is excluded or lost");
+    }
+
+    // ---- inputs changed while a build runs ----
+    // The build lists the series (headers only) and reads the pixels later; the hook changes a file in between, at the
+    // same point every run, instead of racing a build from another process.
+
+    [Fact]
+    public void BadInput_SectionRemovedAfterTheSeriesWasListed()
+    {
+        var series = Series(count: 4);
+        var removed = Path.Combine(series, "s_003.png");
+        Refused(Build(series), 1, "s_003.png", "was removed after the series was listed.* — put it back .*then run the build again",
+            afterListing: listed =>
+            {
+                Assert.Contains(listed.Sections, s => s.FilePath == removed); // it was listed
+                File.Delete(removed);
+            });
+    }
+
+    [Fact]
+    public void BadInput_SectionTruncatedAfterTheSeriesWasListed()
+    {
+        var series = Series(count: 4);
+        var truncated = Path.Combine(series, "s_002.png");
+        long length = new FileInfo(truncated).Length;
+        Refused(Build(series), 1, "s_002.png", $@"changed after the series was listed \(it had {length:N0} bytes then and has {length / 2:N0} now\)",
+            afterListing: _ =>
+            {
+                using var file = new FileStream(truncated, FileMode.Open, FileAccess.Write);
+                file.SetLength(length / 2);
+            });
+    }
+
+    [Fact]
+    public void BadInput_SectionWrittenOverWithTheSameLengthAfterTheSeriesWasListed()
+    {
+        // The same bytes written again: the same length, a later last write time (a second on, as a copy made a moment later
+        // would leave it).
+        var series = Series(count: 3);
+        var rewritten = Path.Combine(series, "s_001.png");
+        var bytes = File.ReadAllBytes(rewritten);
+        Refused(Build(series), 1, "s_001.png", "was written to after the series was listed",
+            afterListing: _ =>
+            {
+                File.WriteAllBytes(rewritten, bytes);
+                File.SetLastWriteTimeUtc(rewritten, File.GetLastWriteTimeUtc(rewritten).AddSeconds(1)); // as a copy a moment later would
+            });
+    }
+
+    [Fact]
+    public void BadInput_SectionTruncatedBetweenItsTwoReads_IsRefusedAtTheSecond()
+    {
+        // The build reads every section twice (reduced for registration, then for the output): a file truncated after its
+        // first read is refused at its second, which comes before anything is written.
+        var series = Series(count: 3);
+        var opened = StackBuild.Series.SeriesReader.Open(series, new StackBuild.Series.SeriesOptions { PixelSizeUm = 10, SpacingUm = 50 });
+        var target = opened.Sections[1];
+        var images = new TruncateAfterFirstRead(target.FilePath!);
+        var thrown = Record.Exception(() => StackBuild.Pipeline.BuildPipeline.Run(
+            new StackBuild.Pipeline.BuildOptions { Input = series, Registration = new StackBuild.Register.RegistrationOptions { WorkSize = 64 } }, opened, images));
+        // Sections are read in parallel: the problem may come wrapped.
+        var problem = Assert.IsType<IO.InputProblemException>(thrown is AggregateException many ? Assert.Single(many.Flatten().InnerExceptions) : thrown);
+        _log.WriteLine(problem.Message);
+        Assert.Equal(2, images.Reads); // the first read, then the refused second
+        Assert.Equal(target.FilePath, problem.File);
+        Assert.Matches("changed after the series was listed", problem.Message);
+    }
+
+    /// <summary>The files of a series, with one of them cut to half its length just after it was first read.</summary>
+    private sealed class TruncateAfterFirstRead(string path) : StackBuild.Pipeline.ISectionImages
+    {
+        public int Reads;
+
+        public Imaging.LoadedSection Read(StackBuild.Series.SectionEntry section, Imaging.ImageReadOptions options)
+        {
+            if (section.FilePath != path) return StackBuild.Pipeline.SectionFiles.Instance.Read(section, options);
+            Interlocked.Increment(ref Reads);
+            var loaded = StackBuild.Pipeline.SectionFiles.Instance.Read(section, options);
+            using var file = new FileStream(path, FileMode.Open, FileAccess.Write);
+            file.SetLength(file.Length / 2);
+            return loaded;
+        }
     }
 
     // ---- template volumes ----
