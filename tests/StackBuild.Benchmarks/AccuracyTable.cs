@@ -10,7 +10,8 @@ namespace StackBuild.Benchmarks;
 /// <c>--seed N</c> cuts every case with seed N (placements, face-down and lost sections; the development seed is 1);
 /// <c>--held-out</c> adds the cases never looked at during development (<see cref="AccuracyRun.HeldOutCases"/>);
 /// <c>--upscale F</c> cuts F scan pixels per voxel (larger scans); <c>--smoothing S</c> solves all placements at once (the
-/// build's <c>--smoothing</c>) instead of the neighbour chain; <c>--single-level</c> registers without the half-size
+/// build's <c>--smoothing</c>) instead of the neighbour chain; <c>--tilt X,Y</c> cuts with the knife tilted (degrees about the
+/// plane's x and y axes); <c>--single-level</c> registers without the half-size
 /// search (<see cref="Register.RegistrationOptions.CoarseToFine"/> off), for comparison.
 /// </summary>
 public static class AccuracyTable
@@ -22,6 +23,7 @@ public static class AccuracyTable
         bool heldOut = false, plainToo = true, templateToo = true, coarseToFine = true;
         double upscale = 1;
         double? smoothing = null;
+        double tiltX = 0, tiltY = 0;
         for (int i = 0; i < args.Length; i++)
         {
             if (args[i] == "--only" && i + 1 < args.Length) only = args[++i];
@@ -33,7 +35,12 @@ public static class AccuracyTable
             else if (args[i] == "--upscale" && i + 1 < args.Length) upscale = double.Parse(args[++i], System.Globalization.CultureInfo.InvariantCulture);
             else if (args[i] == "--single-level") coarseToFine = false;
             else if (args[i] == "--smoothing" && i + 1 < args.Length) smoothing = double.Parse(args[++i], System.Globalization.CultureInfo.InvariantCulture);
-            else throw new ArgumentException($"unknown option {args[i]}: use --only NAME, --work DIR, --seed N, --held-out, --template-only, --plain-only, --upscale F, --single-level, --smoothing S");
+            else if (args[i] == "--tilt" && i + 1 < args.Length)
+            {
+                var xy = args[++i].Split(',').Select(v => double.Parse(v, System.Globalization.CultureInfo.InvariantCulture)).ToArray();
+                (tiltX, tiltY) = (xy[0], xy[1]);
+            }
+            else throw new ArgumentException($"unknown option {args[i]}: use --only NAME, --work DIR, --seed N, --held-out, --template-only, --plain-only, --upscale F, --single-level, --smoothing S, --tilt X,Y");
         }
         bool keep = work is not null;
         work ??= Directory.CreateTempSubdirectory("sb-accuracy-").FullName;
@@ -43,7 +50,7 @@ public static class AccuracyTable
         try
         {
             var cases = AccuracyRun.PublicCases.Concat(heldOut ? AccuracyRun.HeldOutCases : []).Select(c => seed is int s ? c with { Seed = s } : c)
-                .Select(c => c with { Upscale = upscale, CoarseToFine = coarseToFine, Smoothing = smoothing });
+                .Select(c => c with { Upscale = upscale, CoarseToFine = coarseToFine, Smoothing = smoothing, TiltXDegrees = tiltX, TiltYDegrees = tiltY });
             foreach (var c in cases.Where(c => only is null || c.Name.Contains(only, StringComparison.OrdinalIgnoreCase)))
             {
                 var these = AccuracyRun.Run(c, work, progress, plainToo, templateToo);

@@ -7,7 +7,9 @@ first remaining voxel axis, y along the second), scipy.ndimage.map_coordinates (
 through the inverse of plane_to_image and the truth-plane-to-voxel scaling (pixel edges kept: voxel = (x + 0.5) / s - 0.5,
 s = voxel size / pixel size), and the result is correlated with the PNG read by skimage.io (bright-field scans are
 compared after negation). Prints one JSON object per section: number, correlation, turned_over (the correlation with
-the plane's x reversed, as a wrong mounting side would give), mirrored.
+the plane's x reversed, as a wrong mounting side would give), mirrored. A tilted cut (options.tilt_degrees) is sampled
+in 3D on the knife's plane as truth.json's tilt_convention defines it, and "untilted" gives the correlation with the
+voxel plane instead.
 """
 import json
 import sys
@@ -32,6 +34,7 @@ def main():
     sections = {s["number"]: s for s in truth["sections"]}
     for number in numbers:
         s = sections[number]
+        tilt = o.get("tilt_degrees") or [0.0, 0.0]
         plane = np.take(data, s["volume_plane"], axis=axis)  # indexed [first in-plane axis, second]
         image = io.imread(f"{series}/{s['file']}").astype(np.float64)
         if o["bright_field"]:
@@ -43,6 +46,28 @@ def main():
         ty = inverse[1, 0] * xs + inverse[1, 1] * ys + inverse[1, 2]
         sx, sy = zooms[in_plane[0]] / pixel_mm, zooms[in_plane[1]] / pixel_mm
         vx, vy = (tx + 0.5) / sx - 0.5, (ty + 0.5) / sy - 0.5
+        if tilt[0] != 0 or tilt[1] != 0:
+            # The knife's plane (truth.json "tilt_convention"): offsets (a, b) mm from the plane's centre turned by
+            # R = Rx(tx) Ry(ty) in the (first in-plane axis, second, cut axis) millimetre frame, built here from the two
+            # elementary turns; sampled in 3D with the volume's axes in that order.
+            tx, ty = np.radians(tilt[0]), np.radians(tilt[1])
+            rx = np.array([[1, 0, 0], [0, np.cos(tx), -np.sin(tx)], [0, np.sin(tx), np.cos(tx)]])
+            ry = np.array([[np.cos(ty), 0, np.sin(ty)], [0, 1, 0], [-np.sin(ty), 0, np.cos(ty)]])
+            r = rx @ ry
+            stack = np.transpose(data, (in_plane[0], in_plane[1], axis))
+            zx, zy, zk = zooms[in_plane[0]], zooms[in_plane[1]], zooms[axis]
+            cx, cy = (stack.shape[0] - 1) / 2.0, (stack.shape[1] - 1) / 2.0
+            a, b = (vx - cx) * zx, (vy - cy) * zy
+            px = cx + (r[0, 0] * a + r[0, 1] * b) / zx
+            py = cy + (r[1, 0] * a + r[1, 1] * b) / zy
+            pk = s["volume_plane"] + (r[2, 0] * a + r[2, 1] * b) / zk
+            sampled = ndimage.map_coordinates(stack, [px, py, pk], order=1, mode="constant", cval=float(data.min()))
+            # The same image's flat plane: a tilted cut must differ from it, or the check proves little.
+            flat = ndimage.map_coordinates(plane, [vx, vy], order=1, mode="constant", cval=float(plane.min()))
+            untilted = float(np.corrcoef(flat.ravel(), image.ravel())[0, 1])
+            correlation = float(np.corrcoef(sampled.ravel(), image.ravel())[0, 1])
+            print(json.dumps({"number": number, "correlation": correlation, "untilted": untilted, "mirrored": s["mirrored"]}))
+            continue
         sampled = ndimage.map_coordinates(plane, [vx, vy], order=1, mode="constant", cval=float(plane.min()))
         correlation = float(np.corrcoef(sampled.ravel(), image.ravel())[0, 1])
         # The same with the plane turned over (its x reversed): what a map that got the mounting side wrong would give.

@@ -29,6 +29,7 @@ public static class CutCommand
         var bright = new Option<bool>("--bright-field") { Description = "Tissue dark on a bright slide (default: bright on dark)" };
         var bits = new Option<int>("--bits") { Description = "8 or 16 bits per pixel", DefaultValueFactory = _ => d.Bits };
         var spacing = new Option<double?>("--spacing") { Description = "Section spacing in µm [default: the voxel size along the axis × --every]" };
+        var tilt = new Option<string?>("--tilt") { Description = "The knife's tilt against the volume's voxel planes, X,Y degrees about the plane's x and y axes (e.g. 4,-2) [default: 0,0]" };
         var seed = new Option<int>("--seed") { Description = "Random seed: the same seed gives the same series", DefaultValueFactory = _ => d.Seed };
         var command = new Command("cut",
             "Cut a volume you trust into a synthetic section series with ground truth, to check build settings on data of your own kind: " +
@@ -38,11 +39,12 @@ public static class CutCommand
             "Example:\n  stackbuild cut brain.nii.gz cut-series --axis j --every 3\n" +
             "  stackbuild build cut-series -o cut.nii.gz\n  stackbuild evaluate cut.json --truth cut-series/truth.json")
         {
-            volume, outDir, axis, every, from, to, pixel, canvas, shift, faceDown, lost, gain, noise, bright, bits, spacing, seed,
+            volume, outDir, axis, every, from, to, pixel, canvas, shift, faceDown, lost, gain, noise, bright, bits, spacing, tilt, seed,
         };
         command.SetAction(parse => console.Guard(() =>
         {
             string axisText = (parse.GetValue(axis) ?? "k").Trim().ToLowerInvariant();
+            var (tiltX, tiltY) = ParseTilt(parse.GetValue(tilt));
             var options = new CutOptions
             {
                 Axis = axisText.Length == 1 ? axisText[0] : '?',
@@ -60,10 +62,24 @@ public static class CutCommand
                 Bits = parse.GetValue(bits),
                 SpacingUm = parse.GetValue(spacing),
                 Seed = parse.GetValue(seed),
+                TiltXDegrees = tiltX,
+                TiltYDegrees = tiltY,
             };
             return Run(console, parse.GetValue(volume)!, parse.GetValue(outDir)!, options);
         }));
         return command;
+    }
+
+    /// <summary>--tilt X,Y in degrees; none gives 0, 0.</summary>
+    internal static (double X, double Y) ParseTilt(string? text)
+    {
+        if (text is null) return (0, 0);
+        var parts = text.Split(',', StringSplitOptions.TrimEntries);
+        var values = new double[2];
+        if (parts.Length != 2 || !parts.Select((p, i) => double.TryParse(p, System.Globalization.NumberStyles.Float,
+                System.Globalization.CultureInfo.InvariantCulture, out values[i]) && double.IsFinite(values[i])).All(ok => ok))
+            throw new InputProblemException(null, $"--tilt '{text}' is not two numbers X,Y in degrees", "write it as --tilt 4,-2 (no spaces, a point for decimals)");
+        return (values[0], values[1]);
     }
 
     private static int Run(CliOutput console, string volumePath, string outDir, CutOptions options)

@@ -42,6 +42,14 @@ public sealed record CutOptions
     /// <summary>Spacing of the sections in µm; null = the voxel size along the axis times <see cref="Every"/>.</summary>
     public double? SpacingUm { get; init; }
     public int Seed { get; init; } = 1;
+    /// <summary>
+    /// The cutting plane's tilt in degrees about the plane's x axis and then its y axis (<see cref="Template.TemplateVolume.Oblique"/>):
+    /// a knife that was not parallel to the volume's voxel planes. Every section is cut at the same tilt; 0, 0 cuts the
+    /// voxel planes themselves.
+    /// </summary>
+    public double TiltXDegrees { get; init; }
+    public double TiltYDegrees { get; init; }
+    public bool Tilted => TiltXDegrees != 0 || TiltYDegrees != 0;
 }
 
 /// <summary>One section of a cut series and where it truly lies.</summary>
@@ -84,7 +92,9 @@ public static class VolumeCutter
         // Truth-plane pixel → volume-plane voxel, pixel edges kept.
         var truthToVoxel = new Transform2D(1 / sx, 0, 0.5 / sx - 0.5, 0, 1 / sy, 0.5 / sy - 0.5);
 
-        var tissue = Enumerable.Range(0, planes.Planes).Where(k => TissueVoxels(planes.Plane(k), low, high) >= MinTissueVoxels).ToList();
+        // The plane the knife cuts at plane index k: the voxel plane, or the plane through its centre at the tilt.
+        GrayImage Cut(int k) => options.Tilted ? planes.Oblique(k, options.TiltXDegrees, options.TiltYDegrees, (float)low) : planes.Plane(k);
+        var tissue = Enumerable.Range(0, planes.Planes).Where(k => TissueVoxels(Cut(k), low, high) >= MinTissueVoxels).ToList();
         if (tissue.Count == 0 && options.FromPlane is null)
             throw new InputProblemException(source, "no plane of the volume holds tissue (all voxels near the lowest value)",
                 "give a volume with image data, or name the planes with --from and --to");
@@ -109,7 +119,7 @@ public static class VolumeCutter
         Parallel.For(0, count, n =>
         {
             var draw = draws[n];
-            var plane = planes.Plane(cutPlanes[n]);
+            var plane = Cut(cutPlanes[n]);
             var centre = (X: (width - 1) / 2.0, Y: (height - 1) / 2.0);
             var move = Transform2D.Translation(c - centre.X, c - centre.Y);
             if (faceDown.Contains(n)) move = move.Then(Transform2D.MirrorX(c));
@@ -197,7 +207,8 @@ public static class VolumeCutter
         var text = new StringBuilder();
         text.Append("# A synthetic section series cut from ").Append(Path.GetFileName(series.Source))
             .Append(" by `stackbuild cut` (axis ").Append(series.Options.Axis).Append(", every ").Append(series.Options.Every)
-            .Append(" plane(s), seed ").Append(series.Options.Seed).Append("). Lost sections are listed with no file.\n");
+            .Append(" plane(s), ").Append(series.Options.Tilted ? $"knife tilted {Num(series.Options.TiltXDegrees)}° and {Num(series.Options.TiltYDegrees)}°, " : "")
+            .Append("seed ").Append(series.Options.Seed).Append("). Lost sections are listed with no file.\n");
         text.Append("# The mirrored column is left empty on purpose: which sections lie face down is for registration to find.\n");
         text.Append("#! pixel_size_um = ").Append(Num(series.PixelSizeUm)).Append('\n');
         text.Append("#! spacing_um = ").Append(Num(series.SpacingUm)).Append('\n');
@@ -224,9 +235,15 @@ public static class VolumeCutter
                 ["pixel_size_um"] = series.PixelSizeUm, ["spacing_um"] = series.SpacingUm, ["max_shift"] = o.MaxShift,
                 ["face_down"] = o.FaceDown, ["lost"] = o.Lost, ["gain_spread"] = o.GainSpread, ["noise"] = o.Noise,
                 ["bright_field"] = o.BrightField, ["bits"] = o.Bits,
+                ["tilt_degrees"] = new[] { o.TiltXDegrees, o.TiltYDegrees },
             },
             ["pixel_convention"] = "x right, y down, (0,0) at the centre of the top-left pixel; a truth plane is the volume plane resampled to the scan pixel size " +
                                    "(x along the first in-plane voxel axis, y along the second); plane_to_image maps truth-plane pixels to image pixels (3x3 rows)",
+            ["tilt_convention"] = "with options.tilt_degrees = [tx, ty] not both 0, the knife's plane for volume_plane k passes through that plane's centre turned by " +
+                                  "R = Rx(tx) Ry(ty) in millimetres (x along the first in-plane voxel axis, y along the second, z along the cut axis; " +
+                                  "Rx turns y towards z, Ry turns z towards x): truth-plane offset (a, b) mm from the plane's centre lies at R (a, b, 0); " +
+                                  "sampled trilinearly",
+            ["plane_normal"] = o.Tilted ? new[] { Normal(o)[0], Normal(o)[1], Normal(o)[2] } : null,
             ["image_model"] = o.BrightField
                 ? "value = 0.92 - 0.75 * gain * v + noise, v the volume scaled by its 0.1 % and 99.9 % quantiles to 0-1, clamped to 0-1, times 2^bits - 1"
                 : "value = 0.04 + 0.75 * gain * v + noise, v the volume scaled by its 0.1 % and 99.9 % quantiles to 0-1, clamped to 0-1, times 2^bits - 1",
@@ -238,6 +255,13 @@ public static class VolumeCutter
             }).ToList(),
         };
         return JsonSerializer.Serialize(truth, new JsonSerializerOptions { WriteIndented = true }) + "\n";
+    }
+
+    /// <summary>The cutting plane's normal (R's third column) in the stack's millimetre frame, rounded to 9 places.</summary>
+    private static double[] Normal(CutOptions o)
+    {
+        var r = Template.TemplateVolume.TiltRotation(o.TiltXDegrees, o.TiltYDegrees);
+        return [Math.Round(r[0, 2], 9), Math.Round(r[1, 2], 9), Math.Round(r[2, 2], 9)];
     }
 
     /// <summary>Refuses options out of range (all problems at once), before any file is read.</summary>
@@ -255,6 +279,8 @@ public static class VolumeCutter
         Bad(!(o.GainSpread >= 0 && o.GainSpread < 1), $"--gain-spread {o.GainSpread} is out of range", "give 0 to 0.9");
         Bad(!(o.Noise >= 0 && o.Noise <= 0.5), $"--noise {o.Noise} is out of range", "give a share of the intensity range from 0 to 0.5");
         Bad(o.Bits is not (8 or 16), $"--bits {o.Bits} is not supported", "give 8 or 16");
+        Bad(!(Math.Abs(o.TiltXDegrees) <= 30 && Math.Abs(o.TiltYDegrees) <= 30), $"--tilt {o.TiltXDegrees},{o.TiltYDegrees} is out of range",
+            "give each tilt from -30 to 30 degrees (a knife more oblique than that is cutting along another axis: choose --axis)");
         Bad(o.SpacingUm is { } s && !(s > 0 && double.IsFinite(s)), $"--spacing {o.SpacingUm} is not a positive spacing", "give the section spacing in µm");
         if (problems.Count == 1) throw problems[0];
         if (problems.Count > 1) throw new InputProblemsException(problems);

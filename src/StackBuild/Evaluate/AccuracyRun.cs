@@ -15,8 +15,10 @@ namespace StackBuild.Evaluate;
 /// <param name="CoarseToFine">The registration option <see cref="Register.RegistrationOptions.CoarseToFine"/> for the builds.</param>
 /// <param name="Smoothing">When set, the builds solve all placements at once with this smoothness strength (the build's
 /// <c>--smoothing</c>); null keeps the neighbour chain (the default).</param>
+/// <param name="TiltXDegrees">The knife's tilt against the volume's voxel planes (<see cref="Demo.CutOptions.TiltXDegrees"/>); the
+/// template build is still told the voxel axis and first plane, as a user who does not know the tilt would.</param>
 public sealed record AccuracyCase(string VolumePath, char Axis, int Every = 2, int Seed = 1, bool BrightField = false, int Bits = 8,
-    double Upscale = 1, bool CoarseToFine = true, double? Smoothing = null)
+    double Upscale = 1, bool CoarseToFine = true, double? Smoothing = null, double TiltXDegrees = 0, double TiltYDegrees = 0)
 {
     public string Name => $"{Path.GetFileName(VolumePath).Replace(".nii.gz", "").Replace(".nii", "")} {Axis}";
 }
@@ -80,7 +82,8 @@ public static class AccuracyRun
         var volume = NiftiFile.Read(c.VolumePath).ToVolume();
         var (vi, vj, vk) = volume.Affine.VoxelSizes;
         double? pixelUm = c.Upscale == 1 ? null : Math.Min(vi, Math.Min(vj, vk)) * 1000 / c.Upscale; // the volumes here have cubic voxels
-        var series = VolumeCutter.Cut(volume, new CutOptions { Axis = c.Axis, Every = c.Every, Seed = c.Seed, BrightField = c.BrightField, Bits = c.Bits, PixelSizeUm = pixelUm }, c.VolumePath);
+        var series = VolumeCutter.Cut(volume, new CutOptions { Axis = c.Axis, Every = c.Every, Seed = c.Seed, BrightField = c.BrightField, Bits = c.Bits, PixelSizeUm = pixelUm,
+            TiltXDegrees = c.TiltXDegrees, TiltYDegrees = c.TiltYDegrees }, c.VolumePath);
         string folder = Path.Combine(workFolder, c.Name.Replace(' ', '-'));
         if (Directory.Exists(folder)) Directory.Delete(folder, true);
         VolumeCutter.Write(series, folder);
