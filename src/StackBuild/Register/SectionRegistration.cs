@@ -133,7 +133,7 @@ public static class SectionRegistration
     /// <summary>
     /// Tissue smaller than this many pixels at the working size (an 80 × 80 pixel area; a rule of thumb of this project,
     /// set on the 768-pixel ch2bet series of docs/benchmarks.md, whose first sections hold 1.5–2 % of the canvas) is
-    /// registered on a finer image where one is at hand (<see cref="PrepareFiner"/>).
+    /// registered on a finer image where one is at hand (<see cref="WithFiner"/>).
     /// </summary>
     public const int FinerBelowTissuePixels = 6400;
 
