@@ -19,6 +19,7 @@ public static class ApplyCommand
         var outPixel = new Option<double?>("--output-pixel-size") { Description = "In-plane voxel size of the applied volume in µm (default: the build's). The grid covers the build's extent, its first voxel's outer corner where the build's is" };
         var voxelSize = new Option<double?>("--voxel-size") { Description = "Voxel size in µm, as build takes it: the plane spacing (planes between sections interpolated like the gaps) and, unless --output-pixel-size is given, the in-plane size (default: the build's)" };
         var channel = new Option<string>("--channel") { Description = "How colour images become gray: luminance, red, green or blue", DefaultValueFactory = _ => "luminance" };
+        var channels = new Option<string>("--channels") { Description = "What colour and pages become: gray (one volume, gray by --channel; the first page), rgb (one NIfTI RGB24 volume of 8-bit colour images) or split (one volume per colour channel and per TIFF page, named OTHER_red, OTHER_green, OTHER_blue, OTHER_page2 …)", DefaultValueFactory = _ => "gray" };
         var json = new Option<bool>("--json") { Description = "Print a machine-readable summary instead of text" };
         images.HelpName = "DIR";
         manifest.HelpName = "CSV";
@@ -26,14 +27,16 @@ public static class ApplyCommand
         outPixel.HelpName = "UM";
         voxelSize.HelpName = "UM";
         channel.HelpName = "CHANNEL";
+        channels.HelpName = "gray|rgb|split";
         var command = new Command("apply",
             "Draw another image set of the same sections (another stain or channel, another export size) through the placements a " +
             "build stored in its sidecar, into the same grid and affine as the build's volume. Sections are matched by number; " +
             "sections the other set lacks are filled from their neighbours as the build fills gaps.\n\n" +
             "Examples:\n  stackbuild build nissl -o nissl.nii.gz\n  stackbuild apply nissl.json --images gfap -o gfap.nii.gz\n" +
-            "  stackbuild apply nissl.json --images nissl-full --pixel-size 0.5 --output-pixel-size 5 -o nissl-5um.nii.gz   (a finer grid)")
+            "  stackbuild apply nissl.json --images nissl-full --pixel-size 0.5 --output-pixel-size 5 -o nissl-5um.nii.gz   (a finer grid)\n" +
+            "  stackbuild apply nissl.json --images he-colour --channels split -o he.nii.gz   (he_red, he_green, he_blue)")
         {
-            sidecar, images, output, manifest, pixelSize, outPixel, voxelSize, channel, json,
+            sidecar, images, output, manifest, pixelSize, outPixel, voxelSize, channel, channels, json,
         };
         command.SetAction(parse => console.Guard(() =>
         {
@@ -53,17 +56,29 @@ public static class ApplyCommand
                 ManifestPath = parse.GetValue(manifest),
                 PixelSizeUm = BuildCommand.Positive(parse.GetValue(pixelSize), "--pixel-size"),
             });
-            var result = ApplyStage.Apply(record, sidecarPath, series, SectionFiles.Instance, gray, DateTime.UtcNow,
-                new BuildCommand.SyncProgress(console), grid);
+            var mode = ParseChannels(parse.GetValue(channels)!);
+            var plan = ApplyChannels.Plan(series, mode, gray);
+            var outputs = plan.Select(c => paths.WithSuffix(c.Suffix)).ToList();
+            foreach (var p in outputs)
+            {
+                p.CheckWritable();
+                BuildWriter.CheckNotReplacing(p, sidecarPath);
+            }
+            var results = plan.Select(c => ApplyStage.Apply(record, sidecarPath, series, SectionFiles.Instance, c.Channel, DateTime.UtcNow,
+                new BuildCommand.SyncProgress(console), grid, c.Page)).ToList();
             console.EndProgress();
-            BuildWriter.WriteApplied(result, paths);
-            var r = result.Record;
+            IReadOnlyList<ApplyRecord> written = mode == ChannelOutput.Rgb
+                ? [BuildWriter.WriteAppliedRgb(results[0], results[1], results[2], paths)]
+                : BuildWriter.WriteAppliedSet(results.Zip(outputs).ToList()).Select(x => x.Record).ToList();
+            var volumes = mode == ChannelOutput.Rgb ? [paths] : outputs;
+            var r = written[0];
             if (parse.GetValue(json))
             {
                 console.Out.WriteLine(JsonSerializer.Serialize(new
                 {
                     volume = paths.Volume,
                     sidecar = paths.Sidecar,
+                    volumes = written.Select((w, i) => new { volume = volumes[i].Volume, sidecar = volumes[i].Sidecar, channel = w.Channel, page = w.Page }),
                     placements_from = r.PlacementsFrom,
                     dimensions = r.Dimensions,
                     voxel_size_mm = r.VoxelSizeMm,
@@ -74,8 +89,12 @@ public static class ApplyCommand
                 return CliOutput.ExitOk;
             }
             var o = console.Out;
-            o.WriteLine($"Volume   {paths.Volume}");
-            o.WriteLine($"Sidecar  {paths.Sidecar}");
+            for (int i = 0; i < written.Count; i++)
+            {
+                string what = written[i].Channel + (written[i].Page is int page ? $", page {page}" : "");
+                o.WriteLine(written.Count == 1 && mode == ChannelOutput.Gray ? $"Volume   {volumes[i].Volume}" : $"Volume   {volumes[i].Volume} ({what})");
+                o.WriteLine($"Sidecar  {volumes[i].Sidecar}");
+            }
             o.WriteLine(r.Grid is { Grid: "the build's" } or null
                 ? $"Grid     {r.Dimensions[0]} × {r.Dimensions[1]} × {r.Dimensions[2]} voxels, the same grid and affine as {Path.GetFileName(sidecarPath)}'s volume"
                 : $"Grid     {r.Dimensions[0]} × {r.Dimensions[1]} × {r.Dimensions[2]} voxels of {r.VoxelSizeMm[0] * 1000:0.###} × {r.VoxelSizeMm[1] * 1000:0.###} × {r.VoxelSizeMm[2] * 1000:0.###} µm over the extent of {Path.GetFileName(sidecarPath)}'s grid, its first voxel's outer corner in place");
@@ -85,4 +104,13 @@ public static class ApplyCommand
         }));
         return command;
     }
+
+    internal static ChannelOutput ParseChannels(string text) => text.Trim().ToLowerInvariant() switch
+    {
+        "gray" or "grey" => ChannelOutput.Gray,
+        "rgb" or "colour" or "color" => ChannelOutput.Rgb,
+        "split" => ChannelOutput.Split,
+        _ => throw new StackBuild.IO.InputProblemException(null, $"--channels '{text}' is not known",
+            "give --channels gray (one gray volume), rgb (one colour volume) or split (one volume per channel and page)"),
+    };
 }

@@ -24,6 +24,10 @@ internal sealed class BoxDownsampler
         sums = factor == 1 ? [] : new double[output.Width];
     }
 
+    /// <summary>The full-resolution image's width and height.</summary>
+    public int Width => width;
+    public int Height => height;
+
     /// <summary>How many full-resolution rows have been received.</summary>
     public int RowsSeen { get; private set; }
 

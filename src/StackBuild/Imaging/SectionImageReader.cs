@@ -26,6 +26,10 @@ public sealed record ImageReadOptions
 {
     public GrayChannel Channel { get; init; } = GrayChannel.Luminance;
 
+    /// <summary>Which page of a multi-page TIFF to read (0 = the first; pages are the images of the first one's size,
+    /// see <see cref="SectionImageReader.PageCount"/>). Other formats have only page 0.</summary>
+    public int Page { get; init; }
+
     /// <summary>When set, the image is reduced by area averaging over whole blocks of pixels so its long side is at most this.</summary>
     public int? MaxLongSide { get; init; }
 
@@ -102,6 +106,25 @@ public static class SectionImageReader
         }
     }
 
+    /// <summary>
+    /// How many pages the file holds: for TIFF, the image directories of the first image's size (reduced copies such as
+    /// pyramid levels and thumbnails are not pages); 1 for PNG and JPEG. Each directory is checked before it is read.
+    /// </summary>
+    public static int PageCount(string path)
+    {
+        var facts = Identify(path);
+        if (!facts.Format.StartsWith("TIFF", StringComparison.Ordinal)) return 1;
+        try
+        {
+            return TiffSectionFile.PageDirectories(path).Length;
+        }
+        catch (Exception e) when (IsDecoderFailure(e))
+        {
+            throw new InputProblemException(path, $"its pages cannot be read ({Detail(e)})",
+                "check that the file is complete (copy it again) or export it again", e);
+        }
+    }
+
     /// <summary>Reads the image as gray values in [0, 1], reduced when <see cref="ImageReadOptions.MaxLongSide"/> asks.</summary>
     public static GrayImage ReadGray(string path, ImageReadOptions? options = null) => ReadSection(path, options).Image;
 
@@ -121,7 +144,14 @@ public static class SectionImageReader
         var sink = new BoxDownsampler(facts.Width, facts.Height, factor);
         try
         {
-            if (facts.Format.StartsWith("TIFF", StringComparison.Ordinal))
+            if (options.Page > 0)
+            {
+                if (!facts.Format.StartsWith("TIFF", StringComparison.Ordinal))
+                    throw new InputProblemException(path, $"is a {facts.Format} image, which has one page, not {options.Page + 1}",
+                        "give an image set whose files all hold the same pages (multi-page TIFF)");
+                TiffSectionFile.Read(path, options.Channel, sink, options.Page);
+            }
+            else if (facts.Format.StartsWith("TIFF", StringComparison.Ordinal))
                 ReadTiff(path, facts, options.Channel, sink);
             else
                 ReadWithImageSharp(path, facts, options.Channel, sink);

@@ -125,6 +125,20 @@ public static class NiftiFile
     /// </summary>
     public static void WriteRgb(string path, int nx, int ny, int nz, byte[] rgbInterleaved, Affine affine, NiftiWriteOptions? options = null)
     {
+        var header = RgbHeader(nx, ny, nz, rgbInterleaved, affine, options);
+        WriteFile(path, header, stream => stream.Write(rgbInterleaved));
+    }
+
+    /// <summary>As <see cref="WriteRgb(string, int, int, int, byte[], Affine, NiftiWriteOptions?)"/>, into <paramref name="file"/>
+    /// (gzip-compressed when <paramref name="compress"/>), for a caller that puts the file in place itself.</summary>
+    public static void WriteRgb(Stream file, bool compress, int nx, int ny, int nz, byte[] rgbInterleaved, Affine affine, NiftiWriteOptions? options = null)
+    {
+        var header = RgbHeader(nx, ny, nz, rgbInterleaved, affine, options);
+        WriteStream(file, compress, header, stream => stream.Write(rgbInterleaved));
+    }
+
+    private static NiftiHeader RgbHeader(int nx, int ny, int nz, byte[] rgbInterleaved, Affine affine, NiftiWriteOptions? options)
+    {
         options ??= new NiftiWriteOptions();
         if (nx <= 0 || ny <= 0 || nz <= 0)
             throw new ArgumentOutOfRangeException(nameof(nx), "An RGB volume needs positive dimensions.");
@@ -139,7 +153,7 @@ public static class NiftiFile
         }
         header.CalMin = (float)(options.CalMin ?? min);
         header.CalMax = (float)(options.CalMax ?? max);
-        WriteFile(path, header, stream => stream.Write(rgbInterleaved));
+        return header;
     }
 
     // ---- writing ----

@@ -35,6 +35,8 @@ public sealed record ApplyRecord
     [JsonPropertyName("pixel_size_um")] public double PixelSizeUm { get; init; }
     [JsonPropertyName("bit_depth")] public int BitDepth { get; init; }
     [JsonPropertyName("channel")] public string Channel { get; init; } = "";
+    /// <summary>The page of multi-page images that was drawn, counted from 1; null when the images have one page.</summary>
+    [JsonPropertyName("page")] public int? Page { get; init; }
     [JsonPropertyName("interpolation")] public string Interpolation { get; init; } = "";
     [JsonPropertyName("fill")] public string Fill { get; init; } = "";
     /// <summary>Sections the build placed that the image set has no image for; their planes were filled as gaps.</summary>
@@ -158,6 +160,77 @@ public sealed record ApplyGrid(int Nx, int Ny, double OutputPixelUm, Transform2D
     }
 }
 
+/// <summary>What an image set's colour and pages become (<c>apply --channels</c>).</summary>
+public enum ChannelOutput
+{
+    /// <summary>One gray volume: colour turned to gray as <see cref="GrayChannel"/> says; the first page of multi-page images.</summary>
+    Gray,
+    /// <summary>One colour volume (NIfTI-1 RGB24) of 8-bit colour images; the first page.</summary>
+    Rgb,
+    /// <summary>One volume per colour channel and per page.</summary>
+    Split,
+}
+
+/// <summary>One volume of an applied image set: the page and the channel drawn, and the suffix its file name gets.</summary>
+/// <param name="Suffix">Added to the output's base name ("" for the one volume of a gray, one-page set).</param>
+/// <param name="Page">The page, from 0; null when the set is not split by pages.</param>
+public sealed record ApplyChannel(string Suffix, GrayChannel Channel, int? Page);
+
+/// <summary>Which volumes an image set gives under <see cref="ChannelOutput"/>, and the names they are written under.</summary>
+public static class ApplyChannels
+{
+    /// <summary>
+    /// The volumes to draw. <see cref="ChannelOutput.Gray"/>: one, gray by <paramref name="gray"/>.
+    /// <see cref="ChannelOutput.Rgb"/>: red, green and blue, to be written as one RGB24 volume; refused (naming
+    /// --channels) for gray images, and for 16-bit colour, which RGB24's 8 bits a channel would cut.
+    /// <see cref="ChannelOutput.Split"/>: per page (when the files hold more than one: suffix <c>_pageN</c>, N from 1)
+    /// and per colour channel (when any image is colour: <c>_red</c>, <c>_green</c>, <c>_blue</c>), in that order; every
+    /// file must hold the same number of pages (counted by <see cref="SectionImageReader.PageCount"/>).
+    /// </summary>
+    public static IReadOnlyList<ApplyChannel> Plan(SectionSeries other, ChannelOutput mode, GrayChannel gray)
+    {
+        var present = other.Present.Where(s => s.Image is not null).ToList();
+        bool colour = present.Any(s => s.Image!.Channels == 3);
+        int bits = present.Count == 0 ? 8 : present.Max(s => s.Image!.BitsPerChannel);
+        string where = other.ManifestPath ?? other.Folder;
+        switch (mode)
+        {
+            case ChannelOutput.Gray:
+                return [new ApplyChannel("", gray, null)];
+            case ChannelOutput.Rgb:
+                if (!colour)
+                    throw new InputProblemException(where, "its images are gray, so there is no colour to keep",
+                        "leave out --channels rgb (or give the colour images)");
+                if (bits > 8)
+                    throw new InputProblemException(where, "its colour images have 16 bits a channel, which an RGB24 volume (8 bits a channel) would cut",
+                        "use --channels split to keep 16 bits in one volume per channel");
+                return [.. Components.Select(c => new ApplyChannel("", c.Channel, null))];
+        }
+        int pages = 1;
+        SectionEntry? first = null;
+        foreach (var s in present.Where(s => s.FilePath is not null))
+        {
+            int count = SectionImageReader.PageCount(s.FilePath!);
+            if (first is null) (first, pages) = (s, count);
+            else if (count != pages)
+                throw new InputProblemException(s.FilePath!, $"holds {count} page{(count == 1 ? "" : "s")}, but {Path.GetFileName(first.FilePath)} holds {pages}",
+                    "give an image set whose files all hold the same pages, or leave out --channels split");
+        }
+        var channels = new List<ApplyChannel>();
+        for (int p = 0; p < pages; p++)
+        {
+            string page = pages > 1 ? $"_page{p + 1}" : "";
+            int? pageIndex = pages > 1 ? p : null;
+            if (colour) channels.AddRange(Components.Select(c => new ApplyChannel(page + c.Suffix, c.Channel, pageIndex)));
+            else channels.Add(new ApplyChannel(page, gray, pageIndex));
+        }
+        return channels;
+    }
+
+    private static readonly (GrayChannel Channel, string Suffix)[] Components =
+        [(GrayChannel.Red, "_red"), (GrayChannel.Green, "_green"), (GrayChannel.Blue, "_blue")];
+}
+
 /// <summary>An applied volume (intensities in the image set's own units), its record and the image set's bit depth.</summary>
 public sealed record ApplyResult(Volume Volume, ApplyRecord Record, int InputBitDepth);
 
@@ -177,8 +250,10 @@ public static class ApplyStage
     /// <param name="channel">How colour images become gray.</param>
     /// <param name="createdUtc">The run's time, for the record.</param>
     /// <param name="grid">Another voxel size to draw at (<see cref="ApplyGrid.For"/>); null keeps the build's grid.</param>
+    /// <param name="page">Which page of multi-page images to draw, from 0 (see <see cref="ApplyChannels"/>); null reads the
+    /// first page and records none.</param>
     public static ApplyResult Apply(BuildRecord build, string sidecarPath, SectionSeries other, ISectionImages images, GrayChannel channel,
-        DateTime createdUtc, IProgress<string>? progress = null, ApplyGridOptions? grid = null)
+        DateTime createdUtc, IProgress<string>? progress = null, ApplyGridOptions? grid = null, int? page = null)
     {
         var (nx, ny, _, affine) = SidecarFile.Geometry(build, sidecarPath);
         var parameters = build.Parameters;
@@ -225,7 +300,7 @@ public static class ApplyStage
         double maxValue = bits > 8 ? 65535 : 255;
         var fill = build.Aligned ? parameters.Fill : GapFill.None;
         var settings = new RenderSettings(target.OutputPixelUm, maxValue, channel, parameters.Interpolation, fill,
-            build.SpacingUm, target.PlaneSpacingUm);
+            build.SpacingUm, target.PlaneSpacingUm, page ?? 0);
         var rendered = RenderStage.RenderPlaced(sections, new Volume(target.Nx, target.Ny, planes, target.Affine), settings, images, progress);
         var volume = rendered.Volume;
         if (target.PlaneSpacingUm == resampling?.ToUm)
@@ -274,6 +349,7 @@ public static class ApplyStage
             PixelSizeUm = other.PixelSizeUm,
             BitDepth = bits,
             Channel = channel.ToString().ToLowerInvariant(),
+            Page = page + 1,
             Interpolation = parameters.Interpolation.ToString().ToLowerInvariant(),
             Fill = fill.ToString().ToLowerInvariant(),
             MissingSections = missing,

@@ -29,8 +29,9 @@ public sealed record RenderedVolume(Volume Volume, IReadOnlyList<RenderedSection
 /// <param name="Fill">How empty planes are filled; <see cref="GapFill.None"/> leaves them empty (and always for an unaligned volume).</param>
 /// <param name="SectionSpacingUm">The series' distance between consecutive planes k, µm.</param>
 /// <param name="PlaneSpacingUm">A plane spacing to resample to at the end, µm; null = the section spacing.</param>
+/// <param name="Page">Which page of multi-page images to read (0 = the first).</param>
 public sealed record RenderSettings(double OutputPixelUm, double MaxValue, GrayChannel Channel, Interpolation Interpolation, GapFill Fill,
-    double SectionSpacingUm, double? PlaneSpacingUm);
+    double SectionSpacingUm, double? PlaneSpacingUm, int Page = 0);
 
 public static class RenderStage
 {
@@ -95,7 +96,7 @@ public static class RenderStage
             var full = s.Image!;
             double scale = s.PixelSizeUm / settings.OutputPixelUm;
             int? loadSide = scale < 1 ? Math.Max(1, (int)Math.Ceiling(Math.Max(full.Width, full.Height) * scale)) : null;
-            var loaded = images.Read(s, new ImageReadOptions { Channel = settings.Channel, MaxLongSide = loadSide });
+            var loaded = images.Read(s, new ImageReadOptions { Channel = settings.Channel, MaxLongSide = loadSide, Page = settings.Page });
             var image = loaded.Image;
             float fill = (float)(image.BorderMedian() * settings.MaxValue);
             ScaleInPlace(image, (float)settings.MaxValue);
