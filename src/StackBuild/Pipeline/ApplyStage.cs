@@ -301,7 +301,7 @@ public static class ApplyStage
         var fill = build.Aligned ? parameters.Fill : GapFill.None;
         var settings = new RenderSettings(target.OutputPixelUm, maxValue, channel, parameters.Interpolation, fill,
             build.SpacingUm, target.PlaneSpacingUm, page ?? 0);
-        var rendered = RenderStage.RenderPlaced(sections, new Volume(target.Nx, target.Ny, planes, target.Affine), settings, images, progress);
+        var rendered = RenderStage.RenderPlaced(sections, target.Nx, target.Ny, planes, target.Affine, settings, images, progress);
         var volume = rendered.Volume;
         if (target.PlaneSpacingUm == resampling?.ToUm)
         {
