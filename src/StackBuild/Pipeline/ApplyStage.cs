@@ -43,6 +43,8 @@ public sealed record ApplyRecord
     [JsonPropertyName("missing_sections")] public List<int> MissingSections { get; init; } = [];
     [JsonPropertyName("warnings")] public List<string> Warnings { get; init; } = [];
     [JsonPropertyName("sections")] public List<AppliedSectionRecord> Sections { get; init; } = [];
+    /// <summary>Set when the file is one part of a volume (<c>apply --sections</c>), not a whole volume.</summary>
+    [JsonPropertyName("part")] public ApplyPartRecord? Part { get; init; }
 }
 
 /// <summary>One section of an applied volume.</summary>
@@ -231,6 +233,23 @@ public static class ApplyChannels
         [(GrayChannel.Red, "_red"), (GrayChannel.Green, "_green"), (GrayChannel.Blue, "_blue")];
 }
 
+/// <summary>What <see cref="ApplyStage.Plan"/> decided for an applied volume, before anything is drawn.</summary>
+/// <param name="BuildNx">The build's voxels along i.</param>
+/// <param name="BuildNy">The build's voxels along j.</param>
+/// <param name="BuildAffine">The build's affine as its sidecar stores it.</param>
+/// <param name="Target">The grid drawn into.</param>
+/// <param name="Planes">Planes at the section spacing.</param>
+/// <param name="BuildResampling">The build's resampling along the stack, if any.</param>
+/// <param name="BuildsGrid">Whether the grid is the build's own.</param>
+/// <param name="Sections">Every section of the build, in order, with its image → plane map where it is drawn.</param>
+/// <param name="Bits">The image set's bit depth (8 or 16).</param>
+/// <param name="Missing">Sections the build placed that the image set has no image for.</param>
+/// <param name="FieldMismatch">Sections whose image covers another field than the build's, with how many times as wide.</param>
+/// <param name="Unplaced">Sections of the image set the build has no placement for.</param>
+public sealed record ApplyPlan(BuildRecord Build, string SidecarPath, SectionSeries Other, int BuildNx, int BuildNy, Affine BuildAffine,
+    ApplyGrid Target, int Planes, PlaneResampling? BuildResampling, bool BuildsGrid, List<RenderedSection> Sections, RenderSettings Settings,
+    int Bits, List<int> Missing, List<(int Number, double Share)> FieldMismatch, List<int> Unplaced, GrayChannel Channel, int? Page);
+
 /// <summary>An applied volume (intensities in the image set's own units), its record and the image set's bit depth.</summary>
 public sealed record ApplyResult(Volume Volume, ApplyRecord Record, int InputBitDepth);
 
@@ -254,6 +273,20 @@ public static class ApplyStage
     /// first page and records none.</param>
     public static ApplyResult Apply(BuildRecord build, string sidecarPath, SectionSeries other, ISectionImages images, GrayChannel channel,
         DateTime createdUtc, IProgress<string>? progress = null, ApplyGridOptions? grid = null, int? page = null)
+    {
+        var plan = Plan(build, sidecarPath, other, channel, grid, page);
+        var rendered = RenderStage.RenderPlaced(plan.Sections, plan.Target.Nx, plan.Target.Ny, plan.Planes, plan.Target.Affine, plan.Settings, images, progress);
+        var volume = rendered.Volume;
+        var (record, affine) = Record(plan, rendered.Sections, volume.Nz, volume.Affine, createdUtc);
+        volume.Affine = affine;
+        return new ApplyResult(volume, record, plan.Bits);
+    }
+
+    /// <summary>
+    /// Everything <see cref="Apply"/> decides before it draws: the grid, each section's map from its image to its plane
+    /// (null where nothing is drawn), the render's settings, the bit depth, and what the warnings report. Reads headers only.
+    /// </summary>
+    public static ApplyPlan Plan(BuildRecord build, string sidecarPath, SectionSeries other, GrayChannel channel, ApplyGridOptions? grid = null, int? page = null)
     {
         var (nx, ny, _, affine) = SidecarFile.Geometry(build, sidecarPath);
         var parameters = build.Parameters;
@@ -301,18 +334,30 @@ public static class ApplyStage
         var fill = build.Aligned ? parameters.Fill : GapFill.None;
         var settings = new RenderSettings(target.OutputPixelUm, maxValue, channel, parameters.Interpolation, fill,
             build.SpacingUm, target.PlaneSpacingUm, page ?? 0);
-        var rendered = RenderStage.RenderPlaced(sections, target.Nx, target.Ny, planes, target.Affine, settings, images, progress);
-        var volume = rendered.Volume;
+        return new ApplyPlan(build, sidecarPath, other, nx, ny, affine, target, planes, resampling, buildsGrid, sections, settings, bits,
+            missing, fieldMismatch, unplaced, channel, page);
+    }
+
+    /// <summary>
+    /// The record of an applied volume drawn as <paramref name="plan"/> says, whose render gave <paramref name="sections"/>
+    /// (with their fills), <paramref name="nz"/> planes and <paramref name="renderAffine"/>; and the volume's affine: the
+    /// build's exactly when its grid was used (or its in-plane scaling), not one rebuilt through the resampling's scale.
+    /// </summary>
+    public static (ApplyRecord Record, Affine Affine) Record(ApplyPlan plan, IReadOnlyList<RenderedSection> sections, int nz, Affine renderAffine,
+        DateTime createdUtc)
+    {
+        var (build, sidecarPath, other, target) = (plan.Build, plan.SidecarPath, plan.Other, plan.Target);
+        var (resampling, buildsGrid, missing, fieldMismatch, unplaced) = (plan.BuildResampling, plan.BuildsGrid, plan.Missing, plan.FieldMismatch, plan.Unplaced);
+        var (nx, ny, parameters, fill, bits) = (plan.BuildNx, plan.BuildNy, build.Parameters, plan.Settings.Fill, plan.Bits);
+        var affine = renderAffine;
         if (target.PlaneSpacingUm == resampling?.ToUm)
         {
-            if (volume.Nz != build.Dimensions[2])
-                throw new InputProblemException(sidecarPath, $"its sections give {volume.Nz} planes, but it says the volume has {build.Dimensions[2]}",
+            if (nz != build.Dimensions[2])
+                throw new InputProblemException(sidecarPath, $"its sections give {nz} planes, but it says the volume has {build.Dimensions[2]}",
                     "give the .json written beside the volume by 'stackbuild build', unedited");
-            // The build's affine exactly (or its in-plane scaling), not one rebuilt through the resampling's scale.
-            if (buildsGrid) volume.Affine = affine;
-            else if (resampling is { } z) volume.Affine = ScaleK(target.Affine, z.ToUm / z.FromUm);
+            if (buildsGrid) affine = plan.BuildAffine;
+            else if (resampling is { } z) affine = ScaleK(target.Affine, z.ToUm / z.FromUm);
         }
-        affine = volume.Affine;
 
         var warnings = new List<string>(other.Warnings);
         if (missing.Count > 0)
@@ -333,7 +378,7 @@ public static class ApplyStage
             Created = createdUtc.ToString("yyyy-MM-ddTHH:mm:ssZ", CultureInfo.InvariantCulture),
             PlacementsFrom = Path.GetFullPath(sidecarPath),
             Images = other.ManifestPath ?? other.Folder,
-            Dimensions = [volume.Nx, volume.Ny, volume.Nz],
+            Dimensions = [target.Nx, target.Ny, nz],
             VoxelSizeMm = [affine.VoxelSizes.I, affine.VoxelSizes.J, affine.VoxelSizes.K],
             Affine = affine.ToRows(),
             Grid = new AppliedGridRecord
@@ -348,13 +393,13 @@ public static class ApplyStage
             },
             PixelSizeUm = other.PixelSizeUm,
             BitDepth = bits,
-            Channel = channel.ToString().ToLowerInvariant(),
-            Page = page + 1,
+            Channel = plan.Channel.ToString().ToLowerInvariant(),
+            Page = plan.Page + 1,
             Interpolation = parameters.Interpolation.ToString().ToLowerInvariant(),
             Fill = fill.ToString().ToLowerInvariant(),
             MissingSections = missing,
             Warnings = warnings,
-            Sections = rendered.Sections.Select(s => new AppliedSectionRecord
+            Sections = sections.Select(s => new AppliedSectionRecord
             {
                 Number = s.Entry.Number,
                 File = s.Entry.FilePath is { } f ? Path.GetFileName(f) : null,
@@ -366,7 +411,7 @@ public static class ApplyStage
                 FilledFrom = s.FilledFrom,
             }).ToList(),
         };
-        return new ApplyResult(volume, record, bits);
+        return (record, affine);
     }
 
     /// <summary>

@@ -165,16 +165,8 @@ public static class RenderStage
             .GroupBy(x => x.r.Plane).ToDictionary(g => g.Key, g => g.Select(x => x.i).ToList());
         int total = drawnAt.Count, count = 0;
 
-        PlaneResampling? resampling = null;
-        int planes = nz;
-        double scale = 1;
-        var outAffine = affine;
-        var method = settings.Fill != GapFill.None ? settings.Fill : GapFill.Linear;
-        if (settings.PlaneSpacingUm is double voxelUm && Math.Abs(voxelUm - settings.SectionSpacingUm) > 1e-9 * voxelUm)
-        {
-            (planes, scale, outAffine) = ZResampler.Plan(nx, ny, nz, affine, voxelUm / 1000);
-            resampling = new PlaneResampling(method, settings.SectionSpacingUm, voxelUm);
-        }
+        var (planes, scale, outAffine, resampling) = FinishedPlanes(nx, ny, nz, affine, settings);
+        var method = resampling?.Method ?? GapFill.Linear;
         var sink = open(planes, outAffine);
 
         // Drawn planes by k, kept while a later plane may need them (the gap fill's below and above).
@@ -244,6 +236,21 @@ public static class RenderStage
             before = plane;
         }
         return new StreamedVolume(rendered, settings.Fill, resampling, planes, outAffine);
+    }
+
+    /// <summary>
+    /// How many planes a render of <paramref name="nz"/> planes at the section spacing finishes with, the step in section
+    /// planes between them, their affine, and the resampling along the stack (null when the planes stay at the section
+    /// spacing): a requested plane spacing resamples with the gap fill's method, linear when gaps are not filled.
+    /// </summary>
+    public static (int Planes, double Scale, Affine Affine, PlaneResampling? Resampling) FinishedPlanes(int nx, int ny, int nz, Affine affine,
+        RenderSettings settings)
+    {
+        if (settings.PlaneSpacingUm is not double voxelUm || Math.Abs(voxelUm - settings.SectionSpacingUm) <= 1e-9 * voxelUm)
+            return (nz, 1, affine, null);
+        var (planes, scale, outAffine) = ZResampler.Plan(nx, ny, nz, affine, voxelUm / 1000);
+        var method = settings.Fill != GapFill.None ? settings.Fill : GapFill.Linear;
+        return (planes, scale, outAffine, new PlaneResampling(method, settings.SectionSpacingUm, voxelUm));
     }
 
     private static bool IsDrawn(RenderedSection r) => r.Status is SectionOutcome.Aligned or SectionOutcome.Placed;

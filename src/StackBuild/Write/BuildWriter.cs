@@ -103,6 +103,19 @@ public static class BuildWriter
             })))).ToList(), beforeRename).Select((record, i) => outputs[i].Result with { Record = record }).ToList();
 
     /// <summary>
+    /// Writes the parts of an applied volume (<c>apply --sections</c>, one per channel or page) as one set: each part's
+    /// drawn planes as float32 NIfTI-1 (nothing rounded, so the merge gives the whole run's voxels) and its sidecar.
+    /// </summary>
+    public static IReadOnlyList<ApplyRecord> WriteAppliedParts(IReadOnlyList<(ApplyRecord Record, Imaging.Volume Planes, BuildOutputPaths Paths)> parts,
+        Action<string>? beforeRename = null) =>
+        WriteAppliedVolumes(parts.Select(p => (p.Record, p.Paths, (Action<Stream, bool>)((s, compress) =>
+            NiftiFile.Write(s, compress, p.Planes, new NiftiWriteOptions
+            {
+                DataType = NiftiDataType.Float32,
+                Description = "StackBuild applied volume, one part (merge)",
+            })))).ToList(), beforeRename);
+
+    /// <summary>
     /// Writes the red, green and blue volumes of an 8-bit colour image set as one NIfTI-1 RGB24 volume (R, G, B bytes
     /// interleaved per voxel, nifti1.h) with the red pass's sidecar, its channel "rgb".
     /// </summary>
