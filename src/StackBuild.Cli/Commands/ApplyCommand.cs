@@ -109,12 +109,16 @@ public static class ApplyCommand
                 console.Out.WriteLine("Merge    stackbuild merge PART.json … -o OUT.nii.gz, with the parts covering every section once");
                 return CliOutput.ExitOk;
             }
-            var results = plan.Select(c => ApplyStage.Apply(record, sidecarPath, series, SectionFiles.Instance, c.Channel, DateTime.UtcNow,
-                new BuildCommand.SyncProgress(console), grid, c.Page)).ToList();
+            // Plane by plane into the output files: the volume is never held (docs/benchmarks.md, memory of apply).
+            var plans = plan.Select(c => ApplyStage.Plan(record, sidecarPath, series, c.Channel, grid, c.Page)).ToList();
+            var progress = new BuildCommand.SyncProgress(console);
+            Func<Func<int, StackBuild.Geometry.Affine, RenderStage.IPlaneSink>, ApplyRecord> Render(ApplyPlan p) =>
+                open => ApplyStage.ApplyInto(p, SectionFiles.Instance, open, DateTime.UtcNow, progress);
+            var streamed = mode == ChannelOutput.Rgb
+                ? [new StreamedApplied(paths, plans[0].Bits, plans.Select(Render).ToList())]
+                : plans.Select((p, i) => new StreamedApplied(outputs[i], p.Bits, [Render(p)])).ToList();
+            var written = AppliedVolumeStream.Write(streamed);
             console.EndProgress();
-            IReadOnlyList<ApplyRecord> written = mode == ChannelOutput.Rgb
-                ? [BuildWriter.WriteAppliedRgb(results[0], results[1], results[2], paths)]
-                : BuildWriter.WriteAppliedSet(results.Zip(outputs).ToList()).Select(x => x.Record).ToList();
             var volumes = mode == ChannelOutput.Rgb ? [paths] : outputs;
             var r = written[0];
             if (parse.GetValue(json))

@@ -48,9 +48,10 @@ public static class MergeCommand
             var channel = BuildCommand.ParseChannel(options.Channel);
             var plan = ApplyStage.Plan(build, first.PlacementsFrom, series, channel,
                 new ApplyGridOptions { OutputPixelSizeUm = options.OutputPixelSizeUm, VoxelSizeUm = options.VoxelSizeUm }, options.PageIndex);
-            var result = ApplyParts.Merge(plan, files, DateTime.UtcNow, new BuildCommand.SyncProgress(console));
+            var progress = new BuildCommand.SyncProgress(console);
+            var r = AppliedVolumeStream.Write([new StreamedApplied(paths, plan.Bits,
+                [open => ApplyParts.MergeInto(plan, files, open, DateTime.UtcNow, progress)])])[0];
             console.EndProgress();
-            var r = BuildWriter.WriteApplied(result, paths).Record;
             if (parse.GetValue(json))
             {
                 console.Out.WriteLine(JsonSerializer.Serialize(new

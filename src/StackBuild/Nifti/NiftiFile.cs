@@ -87,6 +87,24 @@ public static class NiftiFile
         WriteStream(file, compress, header, voxels);
     }
 
+    /// <summary>
+    /// Writes a NIfTI-1 volume whose voxels are already in their stored type (uint8, uint16 or rgb24, little-endian, i
+    /// fastest), scl_slope 1 and scl_inter 0, into <paramref name="file"/>: the header as <see cref="Write(Stream, bool, Volume, NiftiWriteOptions?)"/>
+    /// writes it for whole numbers within the type's range, then <paramref name="writeVoxels"/>. For volumes written plane
+    /// by plane, whose voxels are never held at once; cal_min and cal_max are the caller's (the data's range).
+    /// </summary>
+    public static void WriteStored(Stream file, bool compress, int nx, int ny, int nz, Affine affine, NiftiDataType type,
+        double calMin, double calMax, Action<Stream> writeVoxels, NiftiWriteOptions? options = null)
+    {
+        if (type is not (NiftiDataType.UInt8 or NiftiDataType.UInt16 or NiftiDataType.Rgb24))
+            throw new ArgumentException("Stored voxels are uint8, uint16 or rgb24.", nameof(type));
+        options ??= new NiftiWriteOptions();
+        var header = GeometryHeader(nx, ny, nz, affine, type, options);
+        header.CalMin = (float)(options.CalMin ?? calMin);
+        header.CalMax = (float)(options.CalMax ?? calMax);
+        WriteStream(file, compress, header, writeVoxels);
+    }
+
     /// <summary>True when a NIfTI file at <paramref name="path"/> is written gzip-compressed (the name ends in ".gz").</summary>
     public static bool CompressedName(string path) => path.EndsWith(".gz", StringComparison.OrdinalIgnoreCase);
 

@@ -177,6 +177,17 @@ public static class ApplyParts
     /// </summary>
     public static ApplyResult Merge(ApplyPlan plan, IReadOnlyList<ApplyPartFile> parts, DateTime createdUtc, IProgress<string>? progress = null)
     {
+        Volume? volume = null;
+        var record = MergeInto(plan, parts, (count, affine) => new RenderStage.VolumeSink(volume = new Volume(plan.Target.Nx, plan.Target.Ny, count, affine)),
+            createdUtc, progress);
+        volume!.Affine = Affine.FromRows(record.Affine[0], record.Affine[1], record.Affine[2]);
+        return new ApplyResult(volume, record, plan.Bits);
+    }
+
+    /// <summary>As <see cref="Merge"/>, the finished planes handed to the sink <paramref name="open"/> makes and not kept.</summary>
+    public static ApplyRecord MergeInto(ApplyPlan plan, IReadOnlyList<ApplyPartFile> parts, Func<int, Affine, RenderStage.IPlaneSink> open,
+        DateTime createdUtc, IProgress<string>? progress = null)
+    {
         var where = Check(plan, parts);
         int nx = plan.Target.Nx, ny = plan.Target.Ny;
         int loadedPart = -1;
@@ -197,11 +208,7 @@ public static class ApplyParts
             loaded!.Plane(at.Plane).CopyTo(plane);
             return true;
         }
-        Volume? volume = null;
-        var streamed = RenderStage.RenderPlanes(plan.Sections, nx, ny, plan.Planes, plan.Target.Affine, plan.Settings, Draw,
-            (count, affine) => new RenderStage.VolumeSink(volume = new Volume(nx, ny, count, affine)), progress);
-        var (record, finalAffine) = ApplyStage.Record(plan, streamed.Sections, streamed.Planes, streamed.Affine, createdUtc);
-        volume!.Affine = finalAffine;
-        return new ApplyResult(volume, record, plan.Bits);
+        var streamed = RenderStage.RenderPlanes(plan.Sections, nx, ny, plan.Planes, plan.Target.Affine, plan.Settings, Draw, open, progress);
+        return ApplyStage.Record(plan, streamed.Sections, streamed.Planes, streamed.Affine, createdUtc).Record;
     }
 }

@@ -283,6 +283,19 @@ public static class ApplyStage
     }
 
     /// <summary>
+    /// As <see cref="Apply"/>, plane by plane: the finished planes go to the sink <paramref name="open"/> makes (given their
+    /// count and the render's affine) and are not kept; returns the record, whose affine and dimensions are the volume's.
+    /// </summary>
+    public static ApplyRecord ApplyInto(ApplyPlan plan, ISectionImages images, Func<int, Affine, RenderStage.IPlaneSink> open, DateTime createdUtc,
+        IProgress<string>? progress = null)
+    {
+        var (nx, ny) = (plan.Target.Nx, plan.Target.Ny);
+        var streamed = RenderStage.RenderPlanes(plan.Sections, nx, ny, plan.Planes, plan.Target.Affine, plan.Settings,
+            RenderStage.DrawFrom(images, plan.Settings, nx, ny), open, progress);
+        return Record(plan, streamed.Sections, streamed.Planes, streamed.Affine, createdUtc).Record;
+    }
+
+    /// <summary>
     /// Everything <see cref="Apply"/> decides before it draws: the grid, each section's map from its image to its plane
     /// (null where nothing is drawn), the render's settings, the bit depth, and what the warnings report. Reads headers only.
     /// </summary>

@@ -233,7 +233,7 @@ public static class RenderStage
                     Emit(next++, target);
                 }
             }
-            before = plane;
+            before = resampling is null ? null : plane; // kept only for the resampling
         }
         return new StreamedVolume(rendered, settings.Fill, resampling, planes, outAffine);
     }
