@@ -136,9 +136,9 @@ public static class BuildVsLibrary
         Console.WriteLine(F($"  StackBuild / scikit-image: {ours / theirs:0.00}× the time (target: below 1)"));
     }
 
-    private sealed record Measured(double Wall, double Cpu, double PeakRssMb, string Stderr);
+    internal sealed record Measured(double Wall, double Cpu, double PeakRssMb, string Stderr);
 
-    private static Measured Timed(string[] command, string timeFile)
+    internal static Measured Timed(string[] command, string timeFile)
     {
         var run = RunProcess("/usr/bin/time", ["-v", "-o", timeFile, .. command]);
         Check(run, string.Join(' ', command.Take(2)));
@@ -174,7 +174,7 @@ public static class BuildVsLibrary
         throw new InvalidOperationException($"{manifest} has no '#! {key} = …' line");
     }
 
-    private static string LoadAverage() => File.Exists("/proc/loadavg") ? string.Join(' ', File.ReadAllText("/proc/loadavg").Split(' ').Take(3)) : "unknown";
+    internal static string LoadAverage() => File.Exists("/proc/loadavg") ? string.Join(' ', File.ReadAllText("/proc/loadavg").Split(' ').Take(3)) : "unknown";
 
     private static double Median(List<double> values)
     {
@@ -182,11 +182,11 @@ public static class BuildVsLibrary
         return sorted.Count % 2 == 1 ? sorted[sorted.Count / 2] : (sorted[sorted.Count / 2 - 1] + sorted[sorted.Count / 2]) / 2;
     }
 
-    private static string F(FormattableString text) => text.ToString(CultureInfo.InvariantCulture);
+    internal static string F(FormattableString text) => text.ToString(CultureInfo.InvariantCulture);
 
-    private sealed record ProcessRun(int Code, string Stdout, string Stderr);
+    internal sealed record ProcessRun(int Code, string Stdout, string Stderr);
 
-    private static ProcessRun RunProcess(string file, IEnumerable<string> arguments)
+    internal static ProcessRun RunProcess(string file, IEnumerable<string> arguments)
     {
         var start = new ProcessStartInfo(file) { RedirectStandardOutput = true, RedirectStandardError = true, UseShellExecute = false };
         foreach (var a in arguments) start.ArgumentList.Add(a);
@@ -197,12 +197,12 @@ public static class BuildVsLibrary
         return new ProcessRun(process.ExitCode, stdout.Result, stderr.Result);
     }
 
-    private static void Check(ProcessRun run, string what)
+    internal static void Check(ProcessRun run, string what)
     {
         if (run.Code != 0) throw new InvalidOperationException($"{what} failed (exit {run.Code}):\n{run.Stdout}\n{run.Stderr}");
     }
 
-    private static string RepositoryRoot()
+    internal static string RepositoryRoot()
     {
         var dir = new DirectoryInfo(AppContext.BaseDirectory);
         while (dir is not null && !File.Exists(Path.Combine(dir.FullName, "tests/tools/skimage_build_baseline.py"))) dir = dir.Parent;

@@ -12,7 +12,8 @@ namespace StackBuild.Imaging;
 /// <see cref="BitsPerChannel"/> is 8 or 16 (PNG gray below 8 bits is widened to 8 by the decoder).
 /// <see cref="Format"/> is "PNG", "JPEG", "TIFF" or "TIFF (tiled)".
 /// </summary>
-public sealed record ImageFacts(int Width, int Height, int BitsPerChannel, int Channels, string Format)
+/// <see cref="LosslessStrips"/>: a TIFF whose strips LibTiff decodes one at a time to the values ImageSharp gives for the whole image.
+public sealed record ImageFacts(int Width, int Height, int BitsPerChannel, int Channels, string Format, bool LosslessStrips = false)
 {
     public long PixelCount => (long)Width * Height;
     public int LongSide => Math.Max(Width, Height);
@@ -32,6 +33,12 @@ public sealed record ImageReadOptions
 
     /// <summary>When set, the image is reduced by area averaging over whole blocks of pixels so its long side is at most this.</summary>
     public int? MaxLongSide { get; init; }
+
+    /// <summary>
+    /// An array the returned image takes as its pixels when it holds exactly as many (an earlier image of the caller's that
+    /// it no longer needs): a series of images of one size then takes no new memory for each. Null: a new array.
+    /// </summary>
+    public float[]? Reuse { get; init; }
 
     /// <summary>Images whose header declares more pixels than this are refused before anything is allocated.</summary>
     public long MaxPixels { get; init; } = DefaultMaxPixels;
@@ -141,7 +148,7 @@ public static class SectionImageReader
         if (outPixels > Array.MaxLength)
             throw new InputProblemException(path, $"is {facts.Width} × {facts.Height} pixels, too many to hold as one image",
                 "read it reduced (a maximum long side) or export it smaller");
-        var sink = new BoxDownsampler(facts.Width, facts.Height, factor);
+        var sink = new BoxDownsampler(facts.Width, facts.Height, factor, options.Reuse);
         try
         {
             if (options.Page > 0)
@@ -282,10 +289,14 @@ public static class SectionImageReader
     private static InputProblemException NotReadable(string path, string format) =>
         new(path, $"has a {format} signature but its header cannot be read", "replace it with a readable image or move it out of the series folder");
 
+    /// <summary>Decoded size from which a TIFF of lossless strips is read strip by strip (LibTiff) rather than whole (ImageSharp).</summary>
+    public const long StripReadBytes = 16L << 20;
+
     private static void ReadTiff(string path, ImageFacts facts, GrayChannel channel, BoxDownsampler sink)
     {
-        // ImageSharp cannot decode tiled TIFF (NOTES.md); it also refuses some striped layouts LibTiff reads.
-        if (facts.Format == TiffSectionFile.TiledFormat)
+        // ImageSharp cannot decode tiled TIFF (NOTES.md); it also refuses some striped layouts LibTiff reads. A large
+        // image of lossless strips is read strip by strip: ImageSharp would hold the whole decoded image besides the gray one.
+        if (facts.Format == TiffSectionFile.TiledFormat || facts.LosslessStrips && facts.PixelCount * facts.Channels * facts.BitsPerChannel / 8 >= StripReadBytes)
         {
             TiffSectionFile.Read(path, channel, sink);
             return;

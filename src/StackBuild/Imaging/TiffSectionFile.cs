@@ -27,8 +27,13 @@ internal static class TiffSectionFile
         var layout = ReadLayout(path, tiff);
         CheckDataInsideFile(path, tiff, layout.Tiled, stream.Length);
         int channels = layout.Colour is Colour.Gray or Colour.GrayInverted ? 1 : 3;
-        var facts = new ImageFacts(layout.Width, layout.Height, layout.Bits, channels, layout.Tiled ? TiledFormat : "TIFF");
         var compression = (Compression)tiff.GetFieldDefaulted(TiffTag.COMPRESSION)[0].ToInt();
+        // Lossless strips of gray or RGB samples: LibTiff gives the same stored values as ImageSharp and the same look-up
+        // tables turn them into gray, so reading them strip by strip changes no value (palette, inverted gray and JPEG are
+        // converted differently by the two and stay with ImageSharp).
+        bool strips = !layout.Tiled && layout.Colour is Colour.Gray or Colour.Rgb && !layout.JpegYCbCr
+            && compression is Compression.NONE or Compression.LZW or Compression.DEFLATE or Compression.ADOBE_DEFLATE or Compression.PACKBITS;
+        var facts = new ImageFacts(layout.Width, layout.Height, layout.Bits, channels, layout.Tiled ? TiledFormat : "TIFF", strips);
         if (MaxExpansion(compression) is { } expansion)
             SectionImageReader.CheckSizeFitsFile(path, facts, (double)layout.Width * layout.Height * layout.SamplesPerPixel * (layout.Bits / 8),
                 stream.Length, expansion, compression.ToString());

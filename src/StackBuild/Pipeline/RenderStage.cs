@@ -123,21 +123,30 @@ public static class RenderStage
     /// input's levels and resampled through its <see cref="RenderedSection.ImageToPlane"/>, outside the image its border's
     /// median (the slide).
     /// </summary>
-    public static DrawSection DrawFrom(ISectionImages images, RenderSettings settings, int nx, int ny) => (r, plane) =>
+    /// <remarks>Each section's pixels are read into the array of the section before when the sizes agree: a series of large
+    /// sections of one size then holds one section's pixels, not as many as the collector has not yet let go of (measured
+    /// in docs/benchmarks.md).</remarks>
+    public static DrawSection DrawFrom(ISectionImages images, RenderSettings settings, int nx, int ny)
     {
-        if (r.ImageToPlane is not { } imageToPlane) return false;
-        var s = r.Entry;
-        var full = s.Image!;
-        double scale = s.PixelSizeUm / settings.OutputPixelUm;
-        int? loadSide = scale < 1 ? Math.Max(1, (int)Math.Ceiling(Math.Max(full.Width, full.Height) * scale)) : null;
-        var loaded = images.Read(s, new ImageReadOptions { Channel = settings.Channel, MaxLongSide = loadSide, Page = settings.Page });
-        var image = loaded.Image;
-        float fill = (float)(image.BorderMedian() * settings.MaxValue);
-        ScaleInPlace(image, (float)settings.MaxValue);
-        var planeToImage = imageToPlane.Inverse().Then(Resampler.FullToBlockReduced((int)loaded.Downsample));
-        Resampler.Warp(image, planeToImage, plane, nx, ny, fill, settings.Interpolation);
-        return true;
-    };
+        float[]? spare = null;
+        return (r, plane) =>
+        {
+            if (r.ImageToPlane is not { } imageToPlane) return false;
+            var s = r.Entry;
+            var full = s.Image!;
+            double scale = s.PixelSizeUm / settings.OutputPixelUm;
+            int? loadSide = scale < 1 ? Math.Max(1, (int)Math.Ceiling(Math.Max(full.Width, full.Height) * scale)) : null;
+            var loaded = images.Read(s, new ImageReadOptions { Channel = settings.Channel, MaxLongSide = loadSide, Page = settings.Page, Reuse = spare });
+            spare = null;
+            var image = loaded.Image;
+            float fill = (float)(image.BorderMedian() * settings.MaxValue);
+            ScaleInPlace(image, (float)settings.MaxValue);
+            var planeToImage = imageToPlane.Inverse().Then(Resampler.FullToBlockReduced((int)loaded.Downsample));
+            Resampler.Warp(image, planeToImage, plane, nx, ny, fill, settings.Interpolation);
+            spare = image.Pixels;
+            return true;
+        };
+    }
 
     /// <summary>
     /// The render of <see cref="RenderPlaced"/> plane by plane, in order, without holding the volume: each drawn plane is
@@ -169,12 +178,33 @@ public static class RenderStage
         var method = resampling?.Method ?? GapFill.Linear;
         var sink = open(planes, outAffine);
 
+        // Plane buffers are reused rather than left to the collector: at a large grid each is hundreds of MB, and freed
+        // ones would wait for a full collection while new ones are taken (measured, docs/benchmarks.md).
+        var free = new Stack<float[]>();
+        var inUse = new List<float[]>();
         // Drawn planes by k, kept while a later plane may need them (the gap fill's below and above).
         var drawn = new Dictionary<int, float[]>();
+        float[] Rent()
+        {
+            var plane = free.Count > 0 ? free.Pop() : new float[length];
+            Array.Clear(plane);
+            inUse.Add(plane);
+            return plane;
+        }
+        void ReleaseAllBut(params float[]?[] keep)
+        {
+            for (int i = inUse.Count - 1; i >= 0; i--)
+                if (!keep.Contains(inUse[i]) && !drawn.ContainsValue(inUse[i]))
+                {
+                    free.Push(inUse[i]);
+                    inUse.RemoveAt(i);
+                }
+        }
+
         float[] Drawn(int k)
         {
             if (drawn.TryGetValue(k, out var plane)) return plane;
-            plane = new float[length];
+            plane = Rent();
             if (drawnAt.TryGetValue(k, out int i))
             {
                 var r = rendered[i];
@@ -201,7 +231,7 @@ public static class RenderStage
             if (good.Contains(k)) plane = Drawn(k);
             else
             {
-                plane = new float[length];
+                plane = Rent();
                 if (settings.Fill != GapFill.None && gapEntries.TryGetValue(k, out var entries))
                 {
                     int below = good.GetViewBetween(int.MinValue, k).DefaultIfEmpty(-1).Max();
@@ -209,7 +239,7 @@ public static class RenderStage
                     if (below >= 0 && above >= 0)
                     {
                         double t = (k - below) / (double)(above - below);
-                        GapFiller.Interpolate(Drawn(below), Drawn(above), nx, ny, t, settings.Fill).CopyTo(plane, 0);
+                        GapFiller.InterpolateInto(Drawn(below), Drawn(above), nx, ny, t, settings.Fill, plane);
                         int from = rendered.First(x => x.Plane == below && IsDrawn(x)).Entry.Number;
                         int to = rendered.First(x => x.Plane == above && IsDrawn(x)).Entry.Number;
                         foreach (int i in entries) rendered[i] = rendered[i] with { Filled = settings.Fill, FilledFrom = [from, to] };
@@ -228,12 +258,15 @@ public static class RenderStage
                     var (below, needsNext) = ZResampler.Sources(next, scale, nz);
                     if (below > k || below == k && needsNext) break;
                     var (a, b) = (below == k ? plane : before!, below + 1 == k ? plane : null);
-                    var target = new float[length];
+                    var target = Rent();
                     ZResampler.PlaneAt(next, scale, nz, j => j == below ? a : b, target, nx, ny, method);
                     Emit(next++, target);
+                    inUse.Remove(target);
+                    free.Push(target);
                 }
             }
             before = resampling is null ? null : plane; // kept only for the resampling
+            ReleaseAllBut(before);
         }
         return new StreamedVolume(rendered, settings.Fill, resampling, planes, outAffine);
     }

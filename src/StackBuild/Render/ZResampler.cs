@@ -88,7 +88,7 @@ public static class ZResampler
         else if (method == GapFill.None)
             plane(t < 0.5 ? below : below + 1).CopyTo(target);
         else
-            GapFiller.Interpolate(plane(below), plane(below + 1), nx, ny, t, method).CopyTo(target);
+            GapFiller.InterpolateInto(plane(below), plane(below + 1), nx, ny, t, method, target);
     }
 
     /// <summary>Original plane k's voxels.</summary>
