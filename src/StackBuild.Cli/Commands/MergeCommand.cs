@@ -40,7 +40,7 @@ public static class MergeCommand
                     throw new InputProblemException(paths.Volume, "this output's sidecar would replace one of the parts", "choose another output name");
             var build = SidecarFile.ReadWithVolume(first.PlacementsFrom, console.Error);
             BuildWriter.CheckNotReplacing(paths, first.PlacementsFrom);
-            var series = ApplyStage.OpenImages(options.Manifest ?? options.Images, build, new SeriesOptions
+            var series = ApplyStage.OpenImages(options.Images, build, new SeriesOptions
             {
                 ManifestPath = options.Manifest,
                 PixelSizeUm = options.PixelSizeUm,
