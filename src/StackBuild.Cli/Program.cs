@@ -56,6 +56,7 @@ public static class Program
         yield return CutCommand.Create(console);
         yield return BuildCommand.Create(console, hooks);
         yield return ApplyCommand.Create(console);
+        yield return MergeCommand.Create(console);
         yield return PointsCommand.Create(console);
         yield return EvaluateCommand.Create(console);
         yield return ResliceCommand.Create(console);

@@ -136,9 +136,9 @@ public static class BuildVsLibrary
         Console.WriteLine(F($"  StackBuild / scikit-image: {ours / theirs:0.00}× the time (target: below 1)"));
     }
 
-    private sealed record Measured(double Wall, double Cpu, double PeakRssMb, string Stderr);
+    internal sealed record Measured(double Wall, double Cpu, double PeakRssMb, string Stderr);
 
-    private static Measured Timed(string[] command, string timeFile)
+    internal static Measured Timed(string[] command, string timeFile)
     {
         var run = RunProcess("/usr/bin/time", ["-v", "-o", timeFile, .. command]);
         Check(run, string.Join(' ', command.Take(2)));

@@ -13,16 +13,22 @@ internal sealed class BoxDownsampler
     private readonly double[] sums;
     private int rowsInBlock, outputRow;
 
-    public BoxDownsampler(int width, int height, int factor)
+    /// <param name="reuse">An array to take as the output's pixels when it holds exactly as many (every pixel is written).</param>
+    public BoxDownsampler(int width, int height, int factor, float[]? reuse = null)
     {
         if (width <= 0 || height <= 0) throw new ArgumentOutOfRangeException(nameof(width));
         if (factor < 1) throw new ArgumentOutOfRangeException(nameof(factor));
         this.width = width;
         this.height = height;
         this.factor = factor;
-        output = new GrayImage((width + factor - 1) / factor, (height + factor - 1) / factor);
+        int outWidth = (width + factor - 1) / factor, outHeight = (height + factor - 1) / factor;
+        output = new GrayImage(outWidth, outHeight, reuse?.Length == (long)outWidth * outHeight ? reuse : null);
         sums = factor == 1 ? [] : new double[output.Width];
     }
+
+    /// <summary>The full-resolution image's width and height.</summary>
+    public int Width => width;
+    public int Height => height;
 
     /// <summary>How many full-resolution rows have been received.</summary>
     public int RowsSeen { get; private set; }

@@ -12,7 +12,8 @@ namespace StackBuild.Imaging;
 /// <see cref="BitsPerChannel"/> is 8 or 16 (PNG gray below 8 bits is widened to 8 by the decoder).
 /// <see cref="Format"/> is "PNG", "JPEG", "TIFF" or "TIFF (tiled)".
 /// </summary>
-public sealed record ImageFacts(int Width, int Height, int BitsPerChannel, int Channels, string Format)
+/// <see cref="LosslessStrips"/>: a TIFF whose strips LibTiff decodes one at a time to the values ImageSharp gives for the whole image.
+public sealed record ImageFacts(int Width, int Height, int BitsPerChannel, int Channels, string Format, bool LosslessStrips = false)
 {
     public long PixelCount => (long)Width * Height;
     public int LongSide => Math.Max(Width, Height);
@@ -26,8 +27,18 @@ public sealed record ImageReadOptions
 {
     public GrayChannel Channel { get; init; } = GrayChannel.Luminance;
 
+    /// <summary>Which page of a multi-page TIFF to read (0 = the first; pages are the images of the first one's size,
+    /// see <see cref="SectionImageReader.PageCount"/>). Other formats have only page 0.</summary>
+    public int Page { get; init; }
+
     /// <summary>When set, the image is reduced by area averaging over whole blocks of pixels so its long side is at most this.</summary>
     public int? MaxLongSide { get; init; }
+
+    /// <summary>
+    /// An array the returned image takes as its pixels when it holds exactly as many (an earlier image of the caller's that
+    /// it no longer needs): a series of images of one size then takes no new memory for each. Null: a new array.
+    /// </summary>
+    public float[]? Reuse { get; init; }
 
     /// <summary>Images whose header declares more pixels than this are refused before anything is allocated.</summary>
     public long MaxPixels { get; init; } = DefaultMaxPixels;
@@ -102,6 +113,25 @@ public static class SectionImageReader
         }
     }
 
+    /// <summary>
+    /// How many pages the file holds: for TIFF, the image directories of the first image's size (reduced copies such as
+    /// pyramid levels and thumbnails are not pages); 1 for PNG and JPEG. Each directory is checked before it is read.
+    /// </summary>
+    public static int PageCount(string path)
+    {
+        var facts = Identify(path);
+        if (!facts.Format.StartsWith("TIFF", StringComparison.Ordinal)) return 1;
+        try
+        {
+            return TiffSectionFile.PageDirectories(path).Length;
+        }
+        catch (Exception e) when (IsDecoderFailure(e))
+        {
+            throw new InputProblemException(path, $"its pages cannot be read ({Detail(e)})",
+                "check that the file is complete (copy it again) or export it again", e);
+        }
+    }
+
     /// <summary>Reads the image as gray values in [0, 1], reduced when <see cref="ImageReadOptions.MaxLongSide"/> asks.</summary>
     public static GrayImage ReadGray(string path, ImageReadOptions? options = null) => ReadSection(path, options).Image;
 
@@ -118,10 +148,17 @@ public static class SectionImageReader
         if (outPixels > Array.MaxLength)
             throw new InputProblemException(path, $"is {facts.Width} × {facts.Height} pixels, too many to hold as one image",
                 "read it reduced (a maximum long side) or export it smaller");
-        var sink = new BoxDownsampler(facts.Width, facts.Height, factor);
+        var sink = new BoxDownsampler(facts.Width, facts.Height, factor, options.Reuse);
         try
         {
-            if (facts.Format.StartsWith("TIFF", StringComparison.Ordinal))
+            if (options.Page > 0)
+            {
+                if (!facts.Format.StartsWith("TIFF", StringComparison.Ordinal))
+                    throw new InputProblemException(path, $"is a {facts.Format} image, which has one page, not {options.Page + 1}",
+                        "give an image set whose files all hold the same pages (multi-page TIFF)");
+                TiffSectionFile.Read(path, options.Channel, sink, options.Page);
+            }
+            else if (facts.Format.StartsWith("TIFF", StringComparison.Ordinal))
                 ReadTiff(path, facts, options.Channel, sink);
             else
                 ReadWithImageSharp(path, facts, options.Channel, sink);
@@ -252,10 +289,14 @@ public static class SectionImageReader
     private static InputProblemException NotReadable(string path, string format) =>
         new(path, $"has a {format} signature but its header cannot be read", "replace it with a readable image or move it out of the series folder");
 
+    /// <summary>Decoded size from which a TIFF of lossless strips is read strip by strip (LibTiff) rather than whole (ImageSharp).</summary>
+    public const long StripReadBytes = 16L << 20;
+
     private static void ReadTiff(string path, ImageFacts facts, GrayChannel channel, BoxDownsampler sink)
     {
-        // ImageSharp cannot decode tiled TIFF (NOTES.md); it also refuses some striped layouts LibTiff reads.
-        if (facts.Format == TiffSectionFile.TiledFormat)
+        // ImageSharp cannot decode tiled TIFF (NOTES.md); it also refuses some striped layouts LibTiff reads. A large
+        // image of lossless strips is read strip by strip: ImageSharp would hold the whole decoded image besides the gray one.
+        if (facts.Format == TiffSectionFile.TiledFormat || facts.LosslessStrips && facts.PixelCount * facts.Channels * facts.BitsPerChannel / 8 >= StripReadBytes)
         {
             TiffSectionFile.Read(path, channel, sink);
             return;

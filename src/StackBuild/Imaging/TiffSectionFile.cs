@@ -27,19 +27,53 @@ internal static class TiffSectionFile
         var layout = ReadLayout(path, tiff);
         CheckDataInsideFile(path, tiff, layout.Tiled, stream.Length);
         int channels = layout.Colour is Colour.Gray or Colour.GrayInverted ? 1 : 3;
-        var facts = new ImageFacts(layout.Width, layout.Height, layout.Bits, channels, layout.Tiled ? TiledFormat : "TIFF");
         var compression = (Compression)tiff.GetFieldDefaulted(TiffTag.COMPRESSION)[0].ToInt();
+        // Lossless strips of gray or RGB samples: LibTiff gives the same stored values as ImageSharp and the same look-up
+        // tables turn them into gray, so reading them strip by strip changes no value (palette, inverted gray and JPEG are
+        // converted differently by the two and stay with ImageSharp).
+        bool strips = !layout.Tiled && layout.Colour is Colour.Gray or Colour.Rgb && !layout.JpegYCbCr
+            && compression is Compression.NONE or Compression.LZW or Compression.DEFLATE or Compression.ADOBE_DEFLATE or Compression.PACKBITS;
+        var facts = new ImageFacts(layout.Width, layout.Height, layout.Bits, channels, layout.Tiled ? TiledFormat : "TIFF", strips);
         if (MaxExpansion(compression) is { } expansion)
             SectionImageReader.CheckSizeFitsFile(path, facts, (double)layout.Width * layout.Height * layout.SamplesPerPixel * (layout.Bits / 8),
                 stream.Length, expansion, compression.ToString());
         return facts;
     }
 
-    public static void Read(string path, GrayChannel channel, BoxDownsampler sink)
+    /// <summary>Most image directories looked at for <see cref="PageDirectories"/>.</summary>
+    public const int MostPages = 4096;
+
+    /// <summary>
+    /// The directories that hold the file's pages: those of the first image's size, in file order (each checked as the
+    /// first is before LibTiff reads it). Directories of another size are reduced copies (a scanner's pyramid levels,
+    /// thumbnails, TIFF 6.0's NewSubfileType "reduced-resolution") and are not pages.
+    /// </summary>
+    public static int[] PageDirectories(string path)
     {
         using var stream = SectionImageReader.OpenRead(path);
+        var sizes = CheckDirectories(path, stream, MostPages);
+        return [.. Enumerable.Range(0, sizes.Count).Where(d => sizes[d] == sizes[0])];
+    }
+
+    /// <summary>Decodes page <paramref name="page"/> (0 = the first image; see <see cref="PageDirectories"/>) into gray rows.</summary>
+    public static void Read(string path, GrayChannel channel, BoxDownsampler sink, int page = 0)
+    {
+        int directory = 0;
+        if (page > 0)
+        {
+            var pages = PageDirectories(path);
+            if (page >= pages.Length)
+                throw new InputProblemException(path, $"has {pages.Length} page{(pages.Length == 1 ? "" : "s")} of its first image's size, not {page + 1}",
+                    "give an image set whose files all hold the same pages");
+            directory = pages[page];
+        }
+        using var stream = SectionImageReader.OpenRead(path);
         using var tiff = Open(path, stream);
+        if (directory > 0 && !tiff.SetDirectory((short)directory)) throw Failed(path, $"page {page + 1} cannot be read");
         var layout = ReadLayout(path, tiff);
+        if (layout.Width != sink.Width || layout.Height != sink.Height)
+            throw new InputProblemException(path, $"page {page + 1} is {layout.Width} × {layout.Height} pixels, the first {sink.Width} × {sink.Height}",
+                "export the pages at one size");
         if (layout.JpegYCbCr) tiff.SetField(TiffTag.JPEGCOLORMODE, JpegColorMode.RGB); // the codec returns RGB
         var tables = SampleTables(tiff, layout, channel);
         int blockWidth, blockHeight;
@@ -159,7 +193,14 @@ internal static class TiffSectionFile
     /// LibTiff reads it: LibTiff takes memory for as many values as a tag declares (a damaged count took 950 MB for a
     /// 664-byte file) before it finds them missing. Layout from the TIFF 6.0 specification §2 and BigTIFF.
     /// </summary>
-    private static void CheckFirstDirectory(string path, Stream stream)
+    private static void CheckFirstDirectory(string path, Stream stream) => CheckDirectories(path, stream, 1);
+
+    /// <summary>
+    /// Checks the chain of image directories from the header as <see cref="CheckFirstDirectory"/> checks the first, at most
+    /// <paramref name="most"/> of them (a chain that loops back is cut where it loops), and returns each one's declared
+    /// width and height in file order (TIFF 6.0 §2: each directory ends with the offset of the next, 0 after the last).
+    /// </summary>
+    private static List<(ulong Width, ulong Height)> CheckDirectories(string path, Stream stream, int most)
     {
         long length = stream.Length;
         var head = new byte[16];
@@ -178,20 +219,41 @@ internal static class TiffSectionFile
         if (big && got < 16) throw Damaged(path, $"the file ends after {got} bytes, inside the BigTIFF header");
         ulong directory = big ? U(head.AsSpan(8), 8) : U(head.AsSpan(4), 4);
         int countSize = big ? 8 : 2, entrySize = big ? 20 : 12, inline = big ? 8 : 4;
-        if (directory > (ulong)length - (ulong)countSize)
-            throw Damaged(path, $"its first image directory starts at byte {directory:N0}, past the end of the {length:N0}-byte file");
-        var countBytes = new byte[countSize];
-        stream.Position = (long)directory;
-        stream.ReadExactly(countBytes);
-        ulong entries = U(countBytes, countSize);
-        if (entries > ((ulong)length - directory - (ulong)countSize) / (ulong)entrySize)
-            throw Damaged(path, $"its first image directory declares {entries:N0} entries, more than the {length:N0}-byte file holds");
-        var table = new byte[(int)entries * entrySize];
-        stream.ReadExactly(table);
-        stream.Position = 0;
+        var sizes = new List<(ulong Width, ulong Height)>();
+        var seen = new HashSet<ulong>();
+        for (int n = 0; n < most && (n == 0 || directory != 0) && seen.Add(directory); n++)
+        {
+            string which = n == 0 ? "first image directory" : $"image directory {n + 1}";
+            if (directory > (ulong)length - (ulong)countSize)
+                throw Damaged(path, $"its {which} starts at byte {directory:N0}, past the end of the {length:N0}-byte file");
+            var countBytes = new byte[countSize];
+            stream.Position = (long)directory;
+            stream.ReadExactly(countBytes);
+            ulong entries = U(countBytes, countSize);
+            if (entries > ((ulong)length - directory - (ulong)countSize) / (ulong)entrySize)
+                throw Damaged(path, $"its {which} declares {entries:N0} entries, more than the {length:N0}-byte file holds");
+            var table = new byte[(int)entries * entrySize];
+            stream.ReadExactly(table);
+            var next = new byte[inline];
+            ulong nextDirectory = stream.ReadAtLeast(next, inline, throwOnEndOfStream: false) == inline ? U(next, inline) : 0;
+            stream.Position = 0;
+            var (single, counts) = CheckEntries(path, table, (int)entries, entrySize, inline, big, length, U);
+            CheckBlockCount(path, single, counts);
+            sizes.Add((single.GetValueOrDefault(256), single.GetValueOrDefault(257)));
+            directory = nextDirectory;
+        }
+        return sizes;
+    }
+
+    private delegate ulong Unsigned(ReadOnlySpan<byte> bytes, int size);
+
+    /// <summary>Refuses an entry of one directory whose values run past the end of the file; returns the one-value tags and every tag's count.</summary>
+    private static (Dictionary<int, ulong> Single, Dictionary<int, ulong> Counts) CheckEntries(string path, byte[] table, int entries,
+        int entrySize, int inline, bool big, long length, Unsigned U)
+    {
         var single = new Dictionary<int, ulong>(); // tags with one SHORT, LONG or LONG8 value, as stored in the entry
         var counts = new Dictionary<int, ulong>();
-        for (int e = 0; e < (int)entries; e++)
+        for (int e = 0; e < entries; e++)
         {
             var entry = table.AsSpan(e * entrySize, entrySize);
             int tag = (int)U(entry, 2);
@@ -214,7 +276,7 @@ internal static class TiffSectionFile
             if (count > (ulong)length / (ulong)typeSize || offset > (ulong)length - count * (ulong)typeSize)
                 throw Damaged(path, $"its tag {tag} declares {count:N0} values from byte {offset:N0}, past the end of the {length:N0}-byte file");
         }
-        CheckBlockCount(path, single, counts);
+        return (single, counts);
     }
 
     /// <summary>

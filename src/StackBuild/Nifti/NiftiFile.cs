@@ -87,6 +87,24 @@ public static class NiftiFile
         WriteStream(file, compress, header, voxels);
     }
 
+    /// <summary>
+    /// Writes a NIfTI-1 volume whose voxels are already in their stored type (uint8, uint16 or rgb24, little-endian, i
+    /// fastest), scl_slope 1 and scl_inter 0, into <paramref name="file"/>: the header as <see cref="Write(Stream, bool, Volume, NiftiWriteOptions?)"/>
+    /// writes it for whole numbers within the type's range, then <paramref name="writeVoxels"/>. For volumes written plane
+    /// by plane, whose voxels are never held at once; cal_min and cal_max are the caller's (the data's range).
+    /// </summary>
+    public static void WriteStored(Stream file, bool compress, int nx, int ny, int nz, Affine affine, NiftiDataType type,
+        double calMin, double calMax, Action<Stream> writeVoxels, NiftiWriteOptions? options = null)
+    {
+        if (type is not (NiftiDataType.UInt8 or NiftiDataType.UInt16 or NiftiDataType.Rgb24))
+            throw new ArgumentException("Stored voxels are uint8, uint16 or rgb24.", nameof(type));
+        options ??= new NiftiWriteOptions();
+        var header = GeometryHeader(nx, ny, nz, affine, type, options);
+        header.CalMin = (float)(options.CalMin ?? calMin);
+        header.CalMax = (float)(options.CalMax ?? calMax);
+        WriteStream(file, compress, header, writeVoxels);
+    }
+
     /// <summary>True when a NIfTI file at <paramref name="path"/> is written gzip-compressed (the name ends in ".gz").</summary>
     public static bool CompressedName(string path) => path.EndsWith(".gz", StringComparison.OrdinalIgnoreCase);
 
@@ -125,6 +143,20 @@ public static class NiftiFile
     /// </summary>
     public static void WriteRgb(string path, int nx, int ny, int nz, byte[] rgbInterleaved, Affine affine, NiftiWriteOptions? options = null)
     {
+        var header = RgbHeader(nx, ny, nz, rgbInterleaved, affine, options);
+        WriteFile(path, header, stream => stream.Write(rgbInterleaved));
+    }
+
+    /// <summary>As <see cref="WriteRgb(string, int, int, int, byte[], Affine, NiftiWriteOptions?)"/>, into <paramref name="file"/>
+    /// (gzip-compressed when <paramref name="compress"/>), for a caller that puts the file in place itself.</summary>
+    public static void WriteRgb(Stream file, bool compress, int nx, int ny, int nz, byte[] rgbInterleaved, Affine affine, NiftiWriteOptions? options = null)
+    {
+        var header = RgbHeader(nx, ny, nz, rgbInterleaved, affine, options);
+        WriteStream(file, compress, header, stream => stream.Write(rgbInterleaved));
+    }
+
+    private static NiftiHeader RgbHeader(int nx, int ny, int nz, byte[] rgbInterleaved, Affine affine, NiftiWriteOptions? options)
+    {
         options ??= new NiftiWriteOptions();
         if (nx <= 0 || ny <= 0 || nz <= 0)
             throw new ArgumentOutOfRangeException(nameof(nx), "An RGB volume needs positive dimensions.");
@@ -139,7 +171,7 @@ public static class NiftiFile
         }
         header.CalMin = (float)(options.CalMin ?? min);
         header.CalMax = (float)(options.CalMax ?? max);
-        WriteFile(path, header, stream => stream.Write(rgbInterleaved));
+        return header;
     }
 
     // ---- writing ----

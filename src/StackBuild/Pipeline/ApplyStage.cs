@@ -35,12 +35,16 @@ public sealed record ApplyRecord
     [JsonPropertyName("pixel_size_um")] public double PixelSizeUm { get; init; }
     [JsonPropertyName("bit_depth")] public int BitDepth { get; init; }
     [JsonPropertyName("channel")] public string Channel { get; init; } = "";
+    /// <summary>The page of multi-page images that was drawn, counted from 1; null when the images have one page.</summary>
+    [JsonPropertyName("page")] public int? Page { get; init; }
     [JsonPropertyName("interpolation")] public string Interpolation { get; init; } = "";
     [JsonPropertyName("fill")] public string Fill { get; init; } = "";
     /// <summary>Sections the build placed that the image set has no image for; their planes were filled as gaps.</summary>
     [JsonPropertyName("missing_sections")] public List<int> MissingSections { get; init; } = [];
     [JsonPropertyName("warnings")] public List<string> Warnings { get; init; } = [];
     [JsonPropertyName("sections")] public List<AppliedSectionRecord> Sections { get; init; } = [];
+    /// <summary>Set when the file is one part of a volume (<c>apply --sections</c>), not a whole volume.</summary>
+    [JsonPropertyName("part")] public ApplyPartRecord? Part { get; init; }
 }
 
 /// <summary>One section of an applied volume.</summary>
@@ -158,6 +162,94 @@ public sealed record ApplyGrid(int Nx, int Ny, double OutputPixelUm, Transform2D
     }
 }
 
+/// <summary>What an image set's colour and pages become (<c>apply --channels</c>).</summary>
+public enum ChannelOutput
+{
+    /// <summary>One gray volume: colour turned to gray as <see cref="GrayChannel"/> says; the first page of multi-page images.</summary>
+    Gray,
+    /// <summary>One colour volume (NIfTI-1 RGB24) of 8-bit colour images; the first page.</summary>
+    Rgb,
+    /// <summary>One volume per colour channel and per page.</summary>
+    Split,
+}
+
+/// <summary>One volume of an applied image set: the page and the channel drawn, and the suffix its file name gets.</summary>
+/// <param name="Suffix">Added to the output's base name ("" for the one volume of a gray, one-page set).</param>
+/// <param name="Page">The page, from 0; null when the set is not split by pages.</param>
+public sealed record ApplyChannel(string Suffix, GrayChannel Channel, int? Page);
+
+/// <summary>Which volumes an image set gives under <see cref="ChannelOutput"/>, and the names they are written under.</summary>
+public static class ApplyChannels
+{
+    /// <summary>
+    /// The volumes to draw. <see cref="ChannelOutput.Gray"/>: one, gray by <paramref name="gray"/>.
+    /// <see cref="ChannelOutput.Rgb"/>: red, green and blue, to be written as one RGB24 volume; refused (naming
+    /// --channels) for gray images, and for 16-bit colour, which RGB24's 8 bits a channel would cut.
+    /// <see cref="ChannelOutput.Split"/>: per page (when the files hold more than one: suffix <c>_pageN</c>, N from 1)
+    /// and per colour channel (when any image is colour: <c>_red</c>, <c>_green</c>, <c>_blue</c>), in that order; every
+    /// file must hold the same number of pages (counted by <see cref="SectionImageReader.PageCount"/>).
+    /// </summary>
+    public static IReadOnlyList<ApplyChannel> Plan(SectionSeries other, ChannelOutput mode, GrayChannel gray)
+    {
+        var present = other.Present.Where(s => s.Image is not null).ToList();
+        bool colour = present.Any(s => s.Image!.Channels == 3);
+        int bits = present.Count == 0 ? 8 : present.Max(s => s.Image!.BitsPerChannel);
+        string where = other.ManifestPath ?? other.Folder;
+        switch (mode)
+        {
+            case ChannelOutput.Gray:
+                return [new ApplyChannel("", gray, null)];
+            case ChannelOutput.Rgb:
+                if (!colour)
+                    throw new InputProblemException(where, "its images are gray, so there is no colour to keep",
+                        "leave out --channels rgb (or give the colour images)");
+                if (bits > 8)
+                    throw new InputProblemException(where, "its colour images have 16 bits a channel, which an RGB24 volume (8 bits a channel) would cut",
+                        "use --channels split to keep 16 bits in one volume per channel");
+                return [.. Components.Select(c => new ApplyChannel("", c.Channel, null))];
+        }
+        int pages = 1;
+        SectionEntry? first = null;
+        foreach (var s in present.Where(s => s.FilePath is not null))
+        {
+            int count = SectionImageReader.PageCount(s.FilePath!);
+            if (first is null) (first, pages) = (s, count);
+            else if (count != pages)
+                throw new InputProblemException(s.FilePath!, $"holds {count} page{(count == 1 ? "" : "s")}, but {Path.GetFileName(first.FilePath)} holds {pages}",
+                    "give an image set whose files all hold the same pages, or leave out --channels split");
+        }
+        var channels = new List<ApplyChannel>();
+        for (int p = 0; p < pages; p++)
+        {
+            string page = pages > 1 ? $"_page{p + 1}" : "";
+            int? pageIndex = pages > 1 ? p : null;
+            if (colour) channels.AddRange(Components.Select(c => new ApplyChannel(page + c.Suffix, c.Channel, pageIndex)));
+            else channels.Add(new ApplyChannel(page, gray, pageIndex));
+        }
+        return channels;
+    }
+
+    private static readonly (GrayChannel Channel, string Suffix)[] Components =
+        [(GrayChannel.Red, "_red"), (GrayChannel.Green, "_green"), (GrayChannel.Blue, "_blue")];
+}
+
+/// <summary>What <see cref="ApplyStage.Plan"/> decided for an applied volume, before anything is drawn.</summary>
+/// <param name="BuildNx">The build's voxels along i.</param>
+/// <param name="BuildNy">The build's voxels along j.</param>
+/// <param name="BuildAffine">The build's affine as its sidecar stores it.</param>
+/// <param name="Target">The grid drawn into.</param>
+/// <param name="Planes">Planes at the section spacing.</param>
+/// <param name="BuildResampling">The build's resampling along the stack, if any.</param>
+/// <param name="BuildsGrid">Whether the grid is the build's own.</param>
+/// <param name="Sections">Every section of the build, in order, with its image → plane map where it is drawn.</param>
+/// <param name="Bits">The image set's bit depth (8 or 16).</param>
+/// <param name="Missing">Sections the build placed that the image set has no image for.</param>
+/// <param name="FieldMismatch">Sections whose image covers another field than the build's, with how many times as wide.</param>
+/// <param name="Unplaced">Sections of the image set the build has no placement for.</param>
+public sealed record ApplyPlan(BuildRecord Build, string SidecarPath, SectionSeries Other, int BuildNx, int BuildNy, Affine BuildAffine,
+    ApplyGrid Target, int Planes, PlaneResampling? BuildResampling, bool BuildsGrid, List<RenderedSection> Sections, RenderSettings Settings,
+    int Bits, List<int> Missing, List<(int Number, double Share)> FieldMismatch, List<int> Unplaced, GrayChannel Channel, int? Page);
+
 /// <summary>An applied volume (intensities in the image set's own units), its record and the image set's bit depth.</summary>
 public sealed record ApplyResult(Volume Volume, ApplyRecord Record, int InputBitDepth);
 
@@ -177,8 +269,37 @@ public static class ApplyStage
     /// <param name="channel">How colour images become gray.</param>
     /// <param name="createdUtc">The run's time, for the record.</param>
     /// <param name="grid">Another voxel size to draw at (<see cref="ApplyGrid.For"/>); null keeps the build's grid.</param>
+    /// <param name="page">Which page of multi-page images to draw, from 0 (see <see cref="ApplyChannels"/>); null reads the
+    /// first page and records none.</param>
     public static ApplyResult Apply(BuildRecord build, string sidecarPath, SectionSeries other, ISectionImages images, GrayChannel channel,
-        DateTime createdUtc, IProgress<string>? progress = null, ApplyGridOptions? grid = null)
+        DateTime createdUtc, IProgress<string>? progress = null, ApplyGridOptions? grid = null, int? page = null)
+    {
+        var plan = Plan(build, sidecarPath, other, channel, grid, page);
+        var rendered = RenderStage.RenderPlaced(plan.Sections, plan.Target.Nx, plan.Target.Ny, plan.Planes, plan.Target.Affine, plan.Settings, images, progress);
+        var volume = rendered.Volume;
+        var (record, affine) = Record(plan, rendered.Sections, volume.Nz, volume.Affine, createdUtc);
+        volume.Affine = affine;
+        return new ApplyResult(volume, record, plan.Bits);
+    }
+
+    /// <summary>
+    /// As <see cref="Apply"/>, plane by plane: the finished planes go to the sink <paramref name="open"/> makes (given their
+    /// count and the render's affine) and are not kept; returns the record, whose affine and dimensions are the volume's.
+    /// </summary>
+    public static ApplyRecord ApplyInto(ApplyPlan plan, ISectionImages images, Func<int, Affine, RenderStage.IPlaneSink> open, DateTime createdUtc,
+        IProgress<string>? progress = null)
+    {
+        var (nx, ny) = (plan.Target.Nx, plan.Target.Ny);
+        var streamed = RenderStage.RenderPlanes(plan.Sections, nx, ny, plan.Planes, plan.Target.Affine, plan.Settings,
+            RenderStage.DrawFrom(images, plan.Settings, nx, ny), open, progress);
+        return Record(plan, streamed.Sections, streamed.Planes, streamed.Affine, createdUtc).Record;
+    }
+
+    /// <summary>
+    /// Everything <see cref="Apply"/> decides before it draws: the grid, each section's map from its image to its plane
+    /// (null where nothing is drawn), the render's settings, the bit depth, and what the warnings report. Reads headers only.
+    /// </summary>
+    public static ApplyPlan Plan(BuildRecord build, string sidecarPath, SectionSeries other, GrayChannel channel, ApplyGridOptions? grid = null, int? page = null)
     {
         var (nx, ny, _, affine) = SidecarFile.Geometry(build, sidecarPath);
         var parameters = build.Parameters;
@@ -225,19 +346,31 @@ public static class ApplyStage
         double maxValue = bits > 8 ? 65535 : 255;
         var fill = build.Aligned ? parameters.Fill : GapFill.None;
         var settings = new RenderSettings(target.OutputPixelUm, maxValue, channel, parameters.Interpolation, fill,
-            build.SpacingUm, target.PlaneSpacingUm);
-        var rendered = RenderStage.RenderPlaced(sections, new Volume(target.Nx, target.Ny, planes, target.Affine), settings, images, progress);
-        var volume = rendered.Volume;
+            build.SpacingUm, target.PlaneSpacingUm, page ?? 0);
+        return new ApplyPlan(build, sidecarPath, other, nx, ny, affine, target, planes, resampling, buildsGrid, sections, settings, bits,
+            missing, fieldMismatch, unplaced, channel, page);
+    }
+
+    /// <summary>
+    /// The record of an applied volume drawn as <paramref name="plan"/> says, whose render gave <paramref name="sections"/>
+    /// (with their fills), <paramref name="nz"/> planes and <paramref name="renderAffine"/>; and the volume's affine: the
+    /// build's exactly when its grid was used (or its in-plane scaling), not one rebuilt through the resampling's scale.
+    /// </summary>
+    public static (ApplyRecord Record, Affine Affine) Record(ApplyPlan plan, IReadOnlyList<RenderedSection> sections, int nz, Affine renderAffine,
+        DateTime createdUtc)
+    {
+        var (build, sidecarPath, other, target) = (plan.Build, plan.SidecarPath, plan.Other, plan.Target);
+        var (resampling, buildsGrid, missing, fieldMismatch, unplaced) = (plan.BuildResampling, plan.BuildsGrid, plan.Missing, plan.FieldMismatch, plan.Unplaced);
+        var (nx, ny, parameters, fill, bits) = (plan.BuildNx, plan.BuildNy, build.Parameters, plan.Settings.Fill, plan.Bits);
+        var affine = renderAffine;
         if (target.PlaneSpacingUm == resampling?.ToUm)
         {
-            if (volume.Nz != build.Dimensions[2])
-                throw new InputProblemException(sidecarPath, $"its sections give {volume.Nz} planes, but it says the volume has {build.Dimensions[2]}",
+            if (nz != build.Dimensions[2])
+                throw new InputProblemException(sidecarPath, $"its sections give {nz} planes, but it says the volume has {build.Dimensions[2]}",
                     "give the .json written beside the volume by 'stackbuild build', unedited");
-            // The build's affine exactly (or its in-plane scaling), not one rebuilt through the resampling's scale.
-            if (buildsGrid) volume.Affine = affine;
-            else if (resampling is { } z) volume.Affine = ScaleK(target.Affine, z.ToUm / z.FromUm);
+            if (buildsGrid) affine = plan.BuildAffine;
+            else if (resampling is { } z) affine = ScaleK(target.Affine, z.ToUm / z.FromUm);
         }
-        affine = volume.Affine;
 
         var warnings = new List<string>(other.Warnings);
         if (missing.Count > 0)
@@ -258,7 +391,7 @@ public static class ApplyStage
             Created = createdUtc.ToString("yyyy-MM-ddTHH:mm:ssZ", CultureInfo.InvariantCulture),
             PlacementsFrom = Path.GetFullPath(sidecarPath),
             Images = other.ManifestPath ?? other.Folder,
-            Dimensions = [volume.Nx, volume.Ny, volume.Nz],
+            Dimensions = [target.Nx, target.Ny, nz],
             VoxelSizeMm = [affine.VoxelSizes.I, affine.VoxelSizes.J, affine.VoxelSizes.K],
             Affine = affine.ToRows(),
             Grid = new AppliedGridRecord
@@ -273,12 +406,13 @@ public static class ApplyStage
             },
             PixelSizeUm = other.PixelSizeUm,
             BitDepth = bits,
-            Channel = channel.ToString().ToLowerInvariant(),
+            Channel = plan.Channel.ToString().ToLowerInvariant(),
+            Page = plan.Page + 1,
             Interpolation = parameters.Interpolation.ToString().ToLowerInvariant(),
             Fill = fill.ToString().ToLowerInvariant(),
             MissingSections = missing,
             Warnings = warnings,
-            Sections = rendered.Sections.Select(s => new AppliedSectionRecord
+            Sections = sections.Select(s => new AppliedSectionRecord
             {
                 Number = s.Entry.Number,
                 File = s.Entry.FilePath is { } f ? Path.GetFileName(f) : null,
@@ -290,7 +424,7 @@ public static class ApplyStage
                 FilledFrom = s.FilledFrom,
             }).ToList(),
         };
-        return new ApplyResult(volume, record, bits);
+        return (record, affine);
     }
 
     /// <summary>

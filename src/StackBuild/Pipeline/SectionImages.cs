@@ -47,7 +47,7 @@ public sealed class SectionsInMemory(IReadOnlyDictionary<int, GrayImage> images)
                 "give an image for every present section of the series");
         int longSide = Math.Max(image.Width, image.Height);
         int factor = options.MaxLongSide is int maxSide ? Math.Max(1, (longSide + maxSide - 1) / maxSide) : 1;
-        var sink = new BoxDownsampler(image.Width, image.Height, factor);
+        var sink = new BoxDownsampler(image.Width, image.Height, factor, options.Reuse);
         for (int y = 0; y < image.Height; y++) sink.Accept(image.Row(y));
         return new LoadedSection(sink.Finish(), factor);
     }

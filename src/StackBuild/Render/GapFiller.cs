@@ -30,6 +30,26 @@ public static class GapFiller
     public static float[] Interpolate(ReadOnlySpan<float> below, ReadOnlySpan<float> above, int width, int height, double t, GapFill method) =>
         Interpolate(below, above, width, height, t, method, new FlowOptions());
 
+    /// <summary>
+    /// <see cref="Interpolate(ReadOnlySpan{float}, ReadOnlySpan{float}, int, int, double, GapFill)"/> written into
+    /// <paramref name="destination"/>: the linear blend takes no memory of its own (a plane-by-plane render at a large grid
+    /// would otherwise leave a plane of garbage per gap); the flow fill's result is copied in.
+    /// </summary>
+    public static void InterpolateInto(ReadOnlySpan<float> below, ReadOnlySpan<float> above, int width, int height, double t, GapFill method,
+        Span<float> destination)
+    {
+        if (width <= 0 || height <= 0 || below.Length != width * height || above.Length != width * height || destination.Length < width * height)
+            throw new ArgumentException($"Both planes and the destination must hold {width} × {height} values.");
+        t = double.IsNaN(t) ? 0.5 : Math.Clamp(t, 0, 1);
+        if (method != GapFill.Flow || t == 0 || t == 1)
+        {
+            float wa = (float)(1 - t), wb = (float)t;
+            for (int i = 0; i < below.Length; i++) destination[i] = wa * below[i] + wb * above[i];
+            return;
+        }
+        Interpolate(below, above, width, height, t, method).CopyTo(destination);
+    }
+
     /// <inheritdoc cref="Interpolate(ReadOnlySpan{float}, ReadOnlySpan{float}, int, int, double, GapFill)"/>
     public static float[] Interpolate(ReadOnlySpan<float> below, ReadOnlySpan<float> above, int width, int height, double t, GapFill method, FlowOptions options)
     {

@@ -40,6 +40,13 @@ public sealed record BuildOutputPaths(string Volume, string Sidecar)
     }
 
     /// <summary>
+    /// The paths of one volume of several written from one output name: <paramref name="suffix"/> added to the base name
+    /// (OTHER.nii.gz with "_red" → OTHER_red.nii.gz and OTHER_red.json).
+    /// </summary>
+    public BuildOutputPaths WithSuffix(string suffix) =>
+        suffix.Length == 0 ? this : For(Sidecar[..^".json".Length] + suffix + Volume[(Sidecar.Length - ".json".Length)..]);
+
+    /// <summary>
     /// Checks, before any work is done, that the outputs can be written: the folder exists, a file can be created in it, none
     /// of the file outputs is a folder, and an OME-Zarr output's path is free, an empty folder, or an earlier StackBuild
     /// OME-Zarr image (which is replaced, as an earlier NIfTI volume is).
@@ -95,17 +102,82 @@ public static class BuildWriter
     /// Writes an applied volume and its sidecar (<see cref="ApplyRecord"/>) as one set, as <see cref="Write"/> does, in the
     /// image set's bit depth. Refuses an output whose sidecar would replace the sidecar the placements came from.
     /// </summary>
-    public static ApplyResult WriteApplied(ApplyResult result, BuildOutputPaths paths, Action<string>? beforeRename = null)
+    public static ApplyResult WriteApplied(ApplyResult result, BuildOutputPaths paths, Action<string>? beforeRename = null) =>
+        WriteAppliedSet([(result, paths)], beforeRename)[0];
+
+    /// <summary>
+    /// Writes several applied volumes (one per channel or page) and their sidecars as one set: every volume is staged,
+    /// then every sidecar, and all are put in place together or none.
+    /// </summary>
+    public static IReadOnlyList<ApplyResult> WriteAppliedSet(IReadOnlyList<(ApplyResult Result, BuildOutputPaths Paths)> outputs,
+        Action<string>? beforeRename = null) =>
+        WriteAppliedVolumes(outputs.Select(o => (o.Result.Record, o.Paths, (Func<OutputSet, string>)(set =>
+            StageVolume(set, o.Paths, o.Result.Volume, o.Result.InputBitDepth, "StackBuild placements applied to another image set")))).ToList(),
+            beforeRename).Select((record, i) => outputs[i].Result with { Record = record }).ToList();
+
+    /// <summary>
+    /// Writes the parts of an applied volume (<c>apply --sections</c>, one per channel or page) as one set: each part's
+    /// drawn planes as float32 NIfTI-1 (nothing rounded, so the merge gives the whole run's voxels) and its sidecar.
+    /// </summary>
+    public static IReadOnlyList<ApplyRecord> WriteAppliedParts(IReadOnlyList<(ApplyRecord Record, Imaging.Volume Planes, BuildOutputPaths Paths)> parts,
+        Action<string>? beforeRename = null) =>
+        WriteAppliedVolumes(parts.Select(p => (p.Record, p.Paths, NiftiOnly(p.Paths, (s, compress) =>
+            NiftiFile.Write(s, compress, p.Planes, new NiftiWriteOptions
+            {
+                DataType = NiftiDataType.Float32,
+                Description = "StackBuild applied volume, one part (merge)",
+            })))).ToList(), beforeRename);
+
+    /// <summary>
+    /// Writes the red, green and blue volumes of an 8-bit colour image set as one NIfTI-1 RGB24 volume (R, G, B bytes
+    /// interleaved per voxel, nifti1.h) with the red pass's sidecar, its channel "rgb".
+    /// </summary>
+    public static ApplyRecord WriteAppliedRgb(ApplyResult red, ApplyResult green, ApplyResult blue, BuildOutputPaths paths,
+        Action<string>? beforeRename = null)
     {
-        CheckNotReplacing(paths, result.Record.PlacementsFrom);
-        paths.CheckWritable();
-        using var set = new OutputSet(beforeRename);
-        var volume = StageVolume(set, paths, result.Volume, result.InputBitDepth, "StackBuild placements applied to another image set");
-        var written = result with
+        var v = red.Volume;
+        if (red.InputBitDepth > 8 || green.InputBitDepth > 8 || blue.InputBitDepth > 8)
+            throw new ArgumentException("RGB24 holds 8 bits a channel.", nameof(red));
+        var bytes = new byte[3L * v.Voxels.Length];
+        for (long i = 0; i < v.Voxels.Length; i++)
         {
-            Record = result.Record with { Volume = Path.GetFileName(paths.Volume), VolumeSha256 = SidecarFile.Sha256(volume) },
-        };
-        set.Stage(paths.Sidecar, s => WriteText(s, JsonSerializer.Serialize(written.Record, JsonOptions) + "\n"));
+            bytes[3 * i] = (byte)red.Volume.Voxels[i];
+            bytes[3 * i + 1] = (byte)green.Volume.Voxels[i];
+            bytes[3 * i + 2] = (byte)blue.Volume.Voxels[i];
+        }
+        var record = red.Record with { Channel = "rgb" };
+        return WriteAppliedVolumes([(record, paths, NiftiOnly(paths, (s, compress) => NiftiFile.WriteRgb(s, compress, v.Nx, v.Ny, v.Nz, bytes, v.Affine,
+            new NiftiWriteOptions { Description = "StackBuild placements applied to another image set" })))], beforeRename)[0];
+    }
+
+    /// <summary>Stages a NIfTI-1 file written by <paramref name="write"/> (a part or an RGB24 volume, which OME-Zarr output does not hold).</summary>
+    private static Func<OutputSet, string> NiftiOnly(BuildOutputPaths paths, Action<Stream, bool> write)
+    {
+        if (paths.IsOmeZarr)
+            throw new InputProblemException(paths.Volume, "parts and RGB24 colour volumes are written as NIfTI-1 only",
+                "end this output's name with .nii.gz (stackbuild merge can then write the whole volume as .ome.zarr)");
+        return set => set.Stage(paths.Volume, s => write(s, NiftiFile.CompressedName(paths.Volume)));
+    }
+
+    private static List<ApplyRecord> WriteAppliedVolumes(IReadOnlyList<(ApplyRecord Record, BuildOutputPaths Paths, Func<OutputSet, string> StageVolume)> outputs,
+        Action<string>? beforeRename)
+    {
+        foreach (var (record, paths, _) in outputs)
+        {
+            CheckNotReplacing(paths, record.PlacementsFrom);
+            paths.CheckWritable();
+        }
+        using var set = new OutputSet(beforeRename);
+        var written = outputs.Select(o =>
+        {
+            var volume = o.StageVolume(set);
+            return o.Record with { Volume = Path.GetFileName(o.Paths.Volume), VolumeSha256 = SidecarFile.Sha256(volume) };
+        }).ToList();
+        for (int i = 0; i < outputs.Count; i++)
+        {
+            var record = written[i];
+            set.Stage(outputs[i].Paths.Sidecar, s => WriteText(s, JsonSerializer.Serialize(record, JsonOptions) + "\n"));
+        }
         set.Commit();
         return written;
     }

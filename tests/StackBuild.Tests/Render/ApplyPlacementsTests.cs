@@ -171,7 +171,8 @@ public sealed class ApplyPlacementsTests(ApplyDemoFixture demo)
         return Correlation(volume.Plane(s.ZIndex), truthPlane.Plane(0));
     }
 
-    private static double Correlation(ReadOnlySpan<float> a, ReadOnlySpan<float> b)
+    /// <summary>Pearson's correlation of two planes.</summary>
+    internal static double Correlation(ReadOnlySpan<float> a, ReadOnlySpan<float> b)
     {
         double ma = 0, mb = 0;
         for (int i = 0; i < a.Length; i++) { ma += a[i]; mb += b[i]; }

@@ -42,7 +42,7 @@ public class SectionImageReaderTests
         SectionImageTestFiles.Gray8Png(dir.File("a.png"), 20, 9, V);
         SectionImageTestFiles.Gray8Tiff(dir.File("a.tif"), 20, 9, V);
         Assert.Equal(new ImageFacts(20, 9, 8, 1, "PNG"), SectionImageReader.Identify(dir.File("a.png")));
-        Assert.Equal(new ImageFacts(20, 9, 8, 1, "TIFF"), SectionImageReader.Identify(dir.File("a.tif")));
+        Assert.Equal(new ImageFacts(20, 9, 8, 1, "TIFF", LosslessStrips: true), SectionImageReader.Identify(dir.File("a.tif")));
         foreach (var name in new[] { "a.png", "a.tif" })
         {
             var image = SectionImageReader.ReadGray(dir.File(name));
@@ -116,7 +116,7 @@ public class SectionImageReaderTests
         var path = dir.File("tiled.tif");
         // 45 × 33 with 16 × 16 tiles: the right and bottom tiles are cut short.
         SectionImageTestFiles.LibTiff(path, 45, 33, 16, 1, (x, y, s) => Wide(x, y), tile: striped ? null : 16, bigEndian: bigEndian);
-        Assert.Equal(new ImageFacts(45, 33, 16, 1, striped ? "TIFF" : "TIFF (tiled)"), SectionImageReader.Identify(path));
+        Assert.Equal(new ImageFacts(45, 33, 16, 1, striped ? "TIFF" : "TIFF (tiled)", LosslessStrips: striped), SectionImageReader.Identify(path));
         AssertExact16(SectionImageReader.ReadGray(path), Wide);
     }
 
