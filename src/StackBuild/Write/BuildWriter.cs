@@ -121,7 +121,8 @@ public static class BuildWriter
     /// </summary>
     public static IReadOnlyList<ApplyRecord> WriteAppliedParts(IReadOnlyList<(ApplyRecord Record, Imaging.Volume Planes, BuildOutputPaths Paths)> parts,
         Action<string>? beforeRename = null) =>
-        WriteAppliedVolumes(parts.Select(p => (p.Record, p.Paths, NiftiOnly(p.Paths, (s, compress) =>
+        WriteAppliedVolumes(parts.Select(p => (p.Record, p.Paths, NiftiOnly(p.Paths, "a part (apply --sections) is written as NIfTI-1 only",
+            "end the part's name with .nii.gz; stackbuild merge can then write the whole volume as .ome.zarr", (s, compress) =>
             NiftiFile.Write(s, compress, p.Planes, new NiftiWriteOptions
             {
                 DataType = NiftiDataType.Float32,
@@ -146,16 +147,18 @@ public static class BuildWriter
             bytes[3 * i + 2] = (byte)blue.Volume.Voxels[i];
         }
         var record = red.Record with { Channel = "rgb" };
-        return WriteAppliedVolumes([(record, paths, NiftiOnly(paths, (s, compress) => NiftiFile.WriteRgb(s, compress, v.Nx, v.Ny, v.Nz, bytes, v.Affine,
+        return WriteAppliedVolumes([(record, paths, NiftiOnly(paths, "an RGB24 colour volume is written as NIfTI-1 only",
+            "end the output's name with .nii.gz, or give --channels split for one OME-Zarr image per channel", (s, compress) => NiftiFile.WriteRgb(s, compress, v.Nx, v.Ny, v.Nz, bytes, v.Affine,
             new NiftiWriteOptions { Description = "StackBuild placements applied to another image set" })))], beforeRename)[0];
     }
 
-    /// <summary>Stages a NIfTI-1 file written by <paramref name="write"/> (a part or an RGB24 volume, which OME-Zarr output does not hold).</summary>
-    private static Func<OutputSet, string> NiftiOnly(BuildOutputPaths paths, Action<Stream, bool> write)
+    /// <summary>
+    /// Stages a NIfTI-1 file written by <paramref name="write"/> (a part or an RGB24 volume, which OME-Zarr output does not
+    /// hold); an <c>.ome.zarr</c> name is refused with <paramref name="problem"/> and <paramref name="todo"/>.
+    /// </summary>
+    private static Func<OutputSet, string> NiftiOnly(BuildOutputPaths paths, string problem, string todo, Action<Stream, bool> write)
     {
-        if (paths.IsOmeZarr)
-            throw new InputProblemException(paths.Volume, "parts and RGB24 colour volumes are written as NIfTI-1 only",
-                "end this output's name with .nii.gz (stackbuild merge can then write the whole volume as .ome.zarr)");
+        if (paths.IsOmeZarr) throw new InputProblemException(paths.Volume, problem, todo);
         return set => set.Stage(paths.Volume, s => write(s, NiftiFile.CompressedName(paths.Volume)));
     }
 

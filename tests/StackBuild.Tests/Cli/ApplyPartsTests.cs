@@ -89,4 +89,20 @@ public sealed class ApplyPartsTests(ApplyDemoFixture demo)
         Assert.Equal(1, code);
         Assert.Contains("not a part of an applied volume", Assert.Single(err.Split('\n', StringSplitOptions.RemoveEmptyEntries)));
     }
+
+    [Fact]
+    public void APartIsNiftiAndMergeWritesTheWholeVolumeAsOmeZarr()
+    {
+        // A part named .ome.zarr is refused in one line with nothing written; merge of NIfTI parts may write .ome.zarr.
+        var (code, _, err) = CliRun.Run(["apply", demo.Paths.Sidecar, "--images", demo.SeriesB, "-o", Out("zpart.ome.zarr"), .. Options, "--sections", "1-20"]);
+        Assert.Equal(1, code);
+        Assert.Contains("a part (apply --sections) is written as NIfTI-1 only", Assert.Single(err.Split('\n', StringSplitOptions.RemoveEmptyEntries)));
+        Assert.False(Directory.Exists(Out("zpart.ome.zarr")) || File.Exists(Out("zpart.ome.zarr")) || File.Exists(Out("zpart.json")));
+        Apply("zparts-a.nii.gz", "--sections", "1-20");
+        Apply("zparts-b.nii.gz", "--sections", "21-999");
+        (code, _, err) = CliRun.Run("merge", Out("zparts-a.json"), Out("zparts-b.json"), "-o", Out("zmerged.ome.zarr"));
+        Assert.True(code == 0, err);
+        Assert.True(File.Exists(Path.Combine(Out("zmerged.ome.zarr"), ".zattrs")));
+        Assert.Contains("zmerged.ome.zarr", File.ReadAllText(Out("zmerged.json")));
+    }
 }
