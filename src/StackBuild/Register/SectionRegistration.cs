@@ -183,9 +183,7 @@ public static class SectionRegistration
             if (fixedSection.Scale > moving.Scale) fixedSection = fixedSection.AtScale(moving.Scale);
             else moving = moving.AtScale(fixedSection.Scale);
         }
-        int n = Math.Max(fixedSection.CanvasSize, moving.CanvasSize);
-        var fixedCanvas = fixedSection.CanvasSize == n ? fixedSection.Canvas : new SectionCanvas(fixedSection, n);
-        var movingCanvas = moving.CanvasSize == n ? moving.Canvas : new SectionCanvas(moving, n);
+        var (fixedCanvas, movingCanvas) = OnOneCanvas(fixedSection, moving);
         using var engine = new PairEngine(fixedCanvas, movingCanvas, options.LowPass);
         // Coarse to fine: hypotheses are searched and their angles refined on the half-size canvases when both sections'
         // tissue is large enough there, then polished here; small sections (a specimen's ends) stay at this size throughout.
@@ -264,11 +262,17 @@ public static class SectionRegistration
     {
         if (Math.Abs(fixedSection.Scale - moving.Scale) > 1e-12 * Math.Max(fixedSection.Scale, moving.Scale))
             throw new ArgumentException("both sections must be prepared at one scale");
-        int n = Math.Max(fixedSection.CanvasSize, moving.CanvasSize);
-        var fixedCanvas = fixedSection.CanvasSize == n ? fixedSection.Canvas : new SectionCanvas(fixedSection, n);
-        var movingCanvas = moving.CanvasSize == n ? moving.Canvas : new SectionCanvas(moving, n);
+        var (fixedCanvas, movingCanvas) = OnOneCanvas(fixedSection, moving);
         using var engine = new PairEngine(fixedCanvas, movingCanvas, 0);
         return engine.Ncc(movingCanvas.FullToCanvas.Inverse().Then(movingToFixed).Then(fixedCanvas.FullToCanvas));
+    }
+
+    /// <summary>Both sections' canvases at one size (the larger's; the smaller section laid on a canvas of that size).</summary>
+    private static (SectionCanvas Fixed, SectionCanvas Moving) OnOneCanvas(PreparedSection fixedSection, PreparedSection moving)
+    {
+        int n = Math.Max(fixedSection.CanvasSize, moving.CanvasSize);
+        return (fixedSection.CanvasSize == n ? fixedSection.Canvas : new SectionCanvas(fixedSection, n),
+            moving.CanvasSize == n ? moving.Canvas : new SectionCanvas(moving, n));
     }
 
     /// <summary>The confidence rule documented on <see cref="PairResult"/>.</summary>
