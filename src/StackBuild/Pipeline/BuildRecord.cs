@@ -228,6 +228,11 @@ public sealed record SectionTemplateRecord
     /// confident neighbour match, and no template match in that part was accepted (the note says why); null otherwise.
     /// </summary>
     [JsonPropertyName("part_unplaced")] public bool? PartUnplaced { get; init; }
+    /// <summary>
+    /// The number of a section placed by its own template match that this section was carried with through its
+    /// registration (chain link) to it, its own match having been set aside; null otherwise.
+    /// </summary>
+    [JsonPropertyName("carried_with")] public int? CarriedWith { get; init; }
     /// <summary>True when the template's corrections step at this section: the chain link from the section before is likely wrong.</summary>
     [JsonPropertyName("chain_step")] public bool ChainStep { get; init; }
     /// <summary>

@@ -155,7 +155,8 @@ public static class RecordStage
             RouteDisagreementUm = place.RouteDisagreement is { } d ? d * workUm : null,
             RunnerUp = pair?.RunnerUp is { } ru ? new HypothesisRecord(ru.Mirrored, ru.RotationDegrees, ru.Ncc, ru.Mirrored != pair.Best.Mirrored) : null,
             DriftCorrectionUm = smoothing is null || place.Route is LinkRoute.Failed or LinkRoute.Template || place.Part != 0 ? null : smoothing.CorrectionPx[n] * workUm,
-            Template = placements.OnTemplate is { } onTemplate ? TemplateRecord(onTemplate, placements.Chain, n, workUm, sections[n].Image) : null,
+            Template = placements.OnTemplate is { } onTemplate ? TemplateRecord(onTemplate, placements.Chain, n, workUm, sections[n].Image)
+                with { CarriedWith = onTemplate.Guide.Sections[n].CarriedFrom is int from ? sections[from].Entry.Number : null } : null,
             SideMargin = parity is null || double.IsInfinity(parity.Margin[n]) ? null : Math.Round(parity.Margin[n], 4),
             NccBefore = place.LinkedTo >= 0 && sections[n].Prepared is { } a && sections[place.LinkedTo].Prepared is { } b
                 ? CentredNcc(a.WorkImage, b.WorkImage) : null,

@@ -51,7 +51,8 @@ public static class TemplateStage
             ChainFailed: chain[n].Route == LinkRoute.Failed,
             Unanchored: chain[n].Route != LinkRoute.Failed && chain[n].Part != 0,
             SideUncertain: sideMargin is not null && sideMargin[n] < MirrorParity.UncertainMargin,
-            LinkErrorPx: acrossError[n], Scratch: scratch?[n])).ToList(), GuideOptions));
+            LinkErrorPx: acrossError[n], Scratch: scratch?[n], LinkedTo: chain[n].LinkedTo >= 0 ? chain[n].LinkedTo : null,
+            OwnRouteDisagreementPx: chain[n].AnyRouteDisagreement)).ToList(), GuideOptions));
         var planeToWork = Transform2D.Scale(template.PixelWidthMm * 1000 / workUm, template.PixelHeightMm * 1000 / workUm);
         // A section the chain could not place takes its own template match when the guide accepted it (route 'template'); one
         // in a part of the chain that neither the chain nor the template could put anywhere is left out (route 'failed').

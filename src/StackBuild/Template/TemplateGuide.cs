@@ -28,9 +28,15 @@ namespace StackBuild.Template;
 /// than the match with the chain's side.</param>
 /// <param name="Scratch">The section's match to its slice searched from scratch, when one was already made (for the side
 /// decision); used instead of searching again.</param>
+/// <param name="LinkedTo">Index of the section this one's chain placement hangs on (the one it was registered to); null for the
+/// reference, a failed section or when unknown. A section placed by its own template match carries the sections hanging on it
+/// whose own matches were set aside.</param>
+/// <param name="OwnRouteDisagreementPx">How far apart (working pixels) the section's placements through its first and second
+/// neighbour lie, trusted or not; null with fewer than two routes. Beyond <see cref="TemplateGuideOptions.LooseLinkPx"/> the
+/// section's own link is as doubtful as a weak one: a weak template match of it is searched again from scratch.</param>
 public sealed record TemplateGuideSection(double Z, GrayImage? Image, Transform2D ToReference, GrayImage? Slice, double ChainConfidence = 1,
     bool ChainFailed = false, double? LinkErrorPx = null, bool Unanchored = false, bool SideUncertain = false, TemplateMatch? Scratch = null,
-    double? OwnLinkConfidence = null)
+    double? OwnLinkConfidence = null, int? LinkedTo = null, double? OwnRouteDisagreementPx = null)
 {
     /// <summary>Confidence of the link that placed this section.</summary>
     public double OwnConfidence => OwnLinkConfidence ?? ChainConfidence;
@@ -80,6 +86,13 @@ public sealed record TemplateGuideOptions
     /// <summary>…or, for a section the chain did place, this many times the similarity of its match near the chain placement
     /// (MRI simulation: 1.8–1.9 for a turned or mirrored section; demo section 4: 1.06).</summary>
     public double RescueMargin { get; init; } = 1.1;
+    /// <summary>
+    /// A section whose two routes (first and second neighbour) disagree by more than this (working pixels) hangs on a link as
+    /// doubtful as one below <see cref="RescueChainConfidence"/>: when its match near the chain placement is weak (below
+    /// <see cref="RescueSimilarityShare"/> of its neighbours'), it too is searched from scratch. (The whole head's second
+    /// section, seed 67: link confidence 0.53, routes 392 px apart, match 0.10 against its neighbours' 0.27, chained 156 px off.)
+    /// </summary>
+    public double LooseLinkPx { get; init; } = 10;
     /// <summary>A chain link below this confidence separates the stack into parts whose corrections are smoothed apart.</summary>
     /// <remarks>So does a step in the template corrections larger than <see cref="StepPx"/> or <see cref="StepDegrees"/>
     /// (a wrong chain link that every later section inherits).</remarks>
@@ -108,9 +121,12 @@ public sealed record TemplateGuideInput(IReadOnlyList<TemplateGuideSection> Sect
 /// <param name="Unplaced">True when nothing placed the section: it lies in a part of the chain that nothing links to the
 /// reference (<see cref="TemplateGuideSection.Unanchored"/>) and no template match in that part was accepted, so where the
 /// part lies is unknown; <paramref name="Reason"/> says so.</param>
+/// <param name="CarriedFrom">Index of the section placed by its own template match that this one was carried with, through its
+/// chain link (<see cref="TemplateGuideSection.LinkedTo"/>, possibly over several links); null otherwise.</param>
 public sealed record TemplateSectionPlacement(int Index, Transform2D SectionToSlice, Transform2D ChainToSlice, Transform2D? Measured,
     double? Similarity, double Confidence, double? ResidualPx, double? ResidualDegrees, double? DeviationPx, double? DeviationDegrees,
-    bool Outlier, string? Reason, double CorrectionDegrees, double CorrectionX, double CorrectionY, bool PlacedByTemplate = false, bool Unplaced = false);
+    bool Outlier, string? Reason, double CorrectionDegrees, double CorrectionX, double CorrectionY, bool PlacedByTemplate = false, bool Unplaced = false,
+    int? CarriedFrom = null);
 
 /// <param name="ReferenceToSlice">The one rigid map from the reference frame onto the template slices' frame.</param>
 /// <param name="GlobalAgreement">Fraction of the globally searched sections that agreed with the chosen map.</param>
@@ -237,7 +253,14 @@ public static class TemplateGuide
         // from scratch; a match as good as its neighbours' and clearly better than the one near the chain placement
         // places it alone (a wrong mirror or turn from a torn section's weak pair registration is undone this way).
         var rescue = new TemplateMatch?[n];
-        var retry = usable.Where(i => !candidate[i] || sections[i].OwnConfidence < options.RescueChainConfidence || sections[i].SideUncertain).Concat(orphans).ToList();
+        bool Loose(int i) => sections[i].OwnRouteDisagreementPx > options.LooseLinkPx;
+        bool WeakMatch(int i)
+        {
+            var near = usable.Where(j => j != i && candidate[j] && Math.Abs(j - i) <= half).Select(j => measured[j]!.Similarity).ToList();
+            return near.Count >= 3 && measured[i]!.Similarity < options.RescueSimilarityShare * Median(near);
+        }
+        var retry = usable.Where(i => !candidate[i] || sections[i].OwnConfidence < options.RescueChainConfidence || sections[i].SideUncertain
+            || (Loose(i) && WeakMatch(i))).Concat(orphans).ToList();
         Parallel.ForEach(retry, i => rescue[i] = sections[i].Scratch ?? TemplateRegistration.Register(sections[i].Image!, sections[i].Slice!, null, options.Registration));
         // An unplaced section is judged against its neighbours' matches whichever way they were found: where the chain
         // failed over a whole stretch, the other unplaced sections' matches from scratch are its neighbours' matches.
@@ -279,13 +302,37 @@ public static class TemplateGuide
             // match from scratch turns it over only where the chain had little to say: the pairs could not tell the side, or
             // the link itself is weak. (A strongly linked end section whose template match near the chain placement was set
             // aside found the other mirror 1.7× better from scratch, and was wrong: natbrainlab, seed 1, its last sections.)
-            bool mayFlip = sections[i].SideUncertain || sections[i].OwnConfidence < options.RescueChainConfidence;
+            bool mayFlip = sections[i].SideUncertain || sections[i].OwnConfidence < options.RescueChainConfidence || Loose(i);
             if (flips && !mayFlip) rescue[i] = null;
             else if (found >= options.RescueSimilarityShare * local && (found >= options.RescueMargin * own || sideByTemplate))
                 reason[i] = $"placed by its own template match (similarity {found:0.###}, neighbours' median {local:0.###}; near the chain placement {own:0.###}" +
                     (flips ? ", mirrored against the chain" : "") + ")" +
                     (sideByTemplate && found < options.RescueMargin * own ? "; its neighbours could not tell which side is up, the template decided" : "");
             else rescue[i] = null;
+        }
+
+        // (c3) A section placed by its own template match takes along the sections hanging on it by a confident link whose own
+        // matches were set aside: their chain placements went through its wrong one. (The whole head's first section, seed 53:
+        // registered to the next with confidence 1.0, that next section's link turned by 164° and its own match from scratch
+        // rescuing it; the first section's match near its chain placement, weak, was set aside and the course beyond the
+        // last accepted match left it 153 px off.) Taken only where the template likes the carried placement at least as well
+        // as the chain's: a match searched from there scores no lower than the one near the chain placement.
+        var carried = new (Transform2D Map, int From)?[n];
+        for (bool more = true; more;)
+        {
+            more = false;
+            foreach (int j in usable)
+            {
+                if (carried[j] is not null || rescue[j] is not null || candidate[j] || sections[j].Unanchored) continue;
+                if (sections[j].LinkedTo is not int i || i < 0 || i >= n || sections[i].ChainFailed || sections[j].OwnConfidence < options.RescueChainConfidence) continue;
+                Transform2D? placedI = rescue[i] is { } r ? r.SectionToSlice : carried[i]?.Map;
+                if (placedI is null) continue;
+                var map = chain[j].Then(chain[i].Inverse()).Then(placedI.Value);
+                var there = TemplateRegistration.Register(sections[j].Image!, sections[j].Slice!, map, options.Registration);
+                if (there.Similarity < measured[j]!.Similarity) continue;
+                carried[j] = (map, rescue[i] is not null ? i : carried[i]!.Value.From);
+                more = true;
+            }
         }
 
         // (d) Fuse: the smoothed correction applied to the chain placement.
@@ -337,6 +384,15 @@ public static class TemplateGuide
                 continue;
             }
             var m = measured[i];
+            if (carried[i] is { } c)
+            {
+                var (cx, cy) = c.Map.Apply(centres[i].Item1, centres[i].Item2);
+                result[i] = new TemplateSectionPlacement(i, c.Map, chain[i], m?.SectionToSlice, m?.Similarity, 0,
+                    m == null ? null : Distance(m.SectionToSlice.Apply(centres[i].Item1, centres[i].Item2), (qx, qy)), m == null ? null : angle[i],
+                    deviationPx[i], deviationDeg[i], m != null, reason[i], AngleDifference(c.Map.RotationDegrees, chain[i].RotationDegrees),
+                    cx - qx, cy - qy, CarriedFrom: c.From);
+                continue;
+            }
             if (sections[i].Unanchored && !measuredSegments.Contains(segment[i]))
             {
                 string lost = "not linked to the rest of the stack by a confident neighbour match, and no template match in its part of the stack was " +

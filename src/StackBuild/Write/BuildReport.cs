@@ -114,6 +114,8 @@ public static class SectionFlags
         if (s.Damaged) reasons.Add("marked damaged in the manifest" + (string.IsNullOrEmpty(s.Note) ? "" : $" ({s.Note})"));
         if (s.Template?.Outlier is { } why) reasons.Add($"its template match was set aside ({why})");
         if (s.Template is { PlacedByTemplate: true } t) reasons.Add(t.Note ?? "placed by its own template match");
+        if (s.Template is { CarriedWith: int with })
+            reasons.Add($"placed with section {with}, which its own template match placed, through the registrations between them: check it against section {with}");
         if (s.Template is { ChainStep: true }) reasons.Add("the template sees a step in the chain here: the link to the section before is likely wrong (the stack was corrected on either side separately)");
         // The template moved the section against its registration to the section before by more than the flag's limit: the
         // link or the template's course there is off by at least half of that (a noisy template followed section by section).

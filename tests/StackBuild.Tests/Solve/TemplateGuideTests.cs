@@ -363,6 +363,49 @@ public class TemplateGuideTests(ITestOutputHelper output)
         Assert.True(guided.MedianErrorPx <= 1, $"median error {guided.MedianErrorPx} px");
     }
 
+    [Theory]
+    [InlineData(false)]
+    [InlineData(true)]
+    public void AnEndSectionHangingOnASectionTheTemplateRescuedMovesWithIt(bool looseNotWeak)
+    {
+        // The last two sections of a stack: the link of the second-to-last is wrong by 164° (weak, so its own match from
+        // scratch places it), and the last, a small end piece, is registered to it by a confident link and so inherits the
+        // same wrong turn. The last section's match near its chain placement cannot be trusted, and it is too small to be
+        // placed from scratch; it must move with the section it hangs on (the whole head's first section, seed 53: 153 px off
+        // before this, 1.2 px after). Without its link (LinkedTo) the guide has no way to know, and it stays far off.
+        var (sim, planes) = MriSimulation();
+        var sections = sim.Input.Sections.ToList();
+        int last = sections.Count - 1, rescued = last - 1;
+        double c = (Canvas - 1) / 2.0;
+        var wrong = Transform2D.Rotation(164, c, c);
+        // The end piece: only a disc of 22 px radius about the canvas centre is left of the last section (the rest background).
+        var piece = sections[last].Image!.Clone();
+        float background = piece[0, 0];
+        for (int y = 0; y < Canvas; y++) for (int x = 0; x < Canvas; x++) if (double.Hypot(x - c, y - c) > 22) piece[x, y] = background;
+        // Its link is weak (confidence 0.3), or (looseNotWeak) confident enough (0.53) but its two routes lie 300 px apart, so that
+        // the course lets its match near the chain placement through and only the match's weakness against its neighbours' and
+        // the loose link send it to a search from scratch (the whole head's second section, seed 67).
+        sections[rescued] = looseNotWeak
+            ? sections[rescued] with { ToReference = wrong.Then(sections[rescued].ToReference), ChainConfidence = 0.53, OwnLinkConfidence = 0.53,
+                LinkedTo = rescued - 1, OwnRouteDisagreementPx = 300, LinkErrorPx = 300 / Math.Sqrt(2) }
+            : sections[rescued] with { ToReference = wrong.Then(sections[rescued].ToReference), ChainConfidence = 0.3, OwnLinkConfidence = 0.3, LinkedTo = rescued - 1 };
+        // The last section's chain placement: its true link to the rescued one, then the rescued one's wrong placement.
+        var link = sections[last].ToReference.Then(sim.Input.Sections[rescued].ToReference.Inverse());
+        sections[last] = sections[last] with { Image = piece, ToReference = link.Then(sections[rescued].ToReference), OwnLinkConfidence = 1, LinkedTo = rescued };
+        var all = Enumerable.Range(0, planes.Count).ToArray();
+        var withLink = sim with { Input = sim.Input with { Sections = sections } };
+        var (chain, guided, result) = RunAndReport("MRI ch2, an end section hanging on a rescued one", withLink, all);
+        var unlinked = sections.Select((x, i) => i == last ? x with { LinkedTo = null } : x).ToList();
+        var (_, alone, aloneResult) = RunAndReport("…the same without the link known", sim with { Input = sim.Input with { Sections = unlinked } }, all);
+        output.WriteLine($"  last section: {guided.Errors[last]:0.###} px with the link known ({result.Sections[last].Reason}); {alone.Errors[last]:0.###} px without; chain {chain.Errors[last]:0.#} px");
+        Assert.True(result.Sections[rescued].PlacedByTemplate, result.Sections[rescued].Reason);
+        Assert.False(aloneResult.Sections[last].PlacedByTemplate, "the end piece must not be placed from scratch for the test to mean anything");
+        Assert.True(alone.Errors[last] > 10, $"without the link the end piece is only {alone.Errors[last]} px off: the test means nothing");
+        Assert.Equal(rescued, result.Sections[last].CarriedFrom);
+        Assert.True(guided.Errors[last] < 1.5, $"the end piece is {guided.Errors[last]} px off");
+        Assert.True(guided.Errors[rescued] < 1.5, $"the rescued section is {guided.Errors[rescued]} px off");
+    }
+
     [Fact]
     public void RigidFitRecoversAKnownMapWithAndWithoutMirror()
     {
