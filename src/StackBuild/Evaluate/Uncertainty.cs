@@ -26,7 +26,9 @@ public sealed record SectionUncertainty(int Number, double LinkUm, double Accumu
 /// </list>
 /// Errors of successive links are taken as independent, so variances add along the chain from the reference
 /// (a random walk; common practice for chained pairwise registration). A build guided by a template replaces the
-/// walk by <see cref="TemplateError"/>: each section's error is then relative to the template, not the reference.
+/// walk by <see cref="TemplateError"/>: each section's error is then relative to the template, not the reference; a
+/// section carried with one its own template match placed takes that match's error, the registrations in between
+/// (<see cref="CarriedLinks"/>) and its own misfit there.
 /// </remarks>
 public static class Uncertainty
 {
@@ -70,6 +72,9 @@ public static class Uncertainty
             // template matches around the section agree with the fused placements.
             if (s.Template is { PlacedByTemplate: true } && TemplateError(s, record.Sections, single: true) is double ownUm)
                 variance = ownUm * ownUm; // placed by one template match alone: no chain link, no averaging over neighbours
+            else if (s.Template is { CarriedWith: int anchor } && TemplateError(s, record.Sections, single: true) is double anchorUm
+                     && CarriedLinks(s, anchor, placed, pixelUm, extentUm) is double linksVariance)
+                variance = anchorUm * anchorUm + linksVariance + Math.Pow(s.Template.MisfitUm ?? 0, 2);
             else if (s.Template is not null && TemplateError(s, record.Sections) is double templateUm)
                 variance = link[s.Number] * link[s.Number] + templateUm * templateUm + beyond.GetValueOrDefault(s.Number);
             if (position.TryGetValue(s.Number, out int at0))
@@ -137,6 +142,30 @@ public static class Uncertainty
             if (double.IsFinite(nearer)) result[order[i].Number] = nearer;
         }
         return result;
+    }
+
+    /// <summary>
+    /// The variance (µm²) of the registrations that carried a section with the section <paramref name="anchor"/> that its own
+    /// template match placed (<see cref="SectionTemplateRecord.CarriedWith"/>): each link's peak and gross-error terms from
+    /// the section up to the anchor. Their route disagreements are left out: the carry went through these registrations
+    /// alone, not through the second-neighbour routes, and the disagreement that marked the chain wrong there (ch2 j, seed
+    /// 53: 392 px at the link the template rescued) is what the carry undid. The caller adds the anchor's single-match
+    /// error and the misfit of the match searched from the carried placement, which checks the carry directly. Null when
+    /// the walk does not reach the anchor (an edited record).
+    /// </summary>
+    internal static double? CarriedLinks(SectionRecord section, int anchor, IReadOnlyDictionary<int, SectionRecord> placed, double pixelUm, double extentUm)
+    {
+        double variance = 0;
+        var visited = new HashSet<int>();
+        for (var at = section; at.Number != anchor; )
+        {
+            if (!visited.Add(at.Number)) return null;
+            double e = LinkError(at with { RouteDisagreementUm = null }, pixelUm, extentUm);
+            variance += e * e;
+            if (at.RegisteredTo is not int parent || !placed.TryGetValue(parent, out var next)) return null;
+            at = next;
+        }
+        return variance;
     }
 
     /// <summary>Sections on either side whose template matches set the course at a section (the fusion's window, 11 sections).</summary>

@@ -241,7 +241,10 @@ public sealed record SectionTemplateRecord
     /// </summary>
     [JsonPropertyName("correction_um")] public double? CorrectionUm { get; init; }
     [JsonPropertyName("correction_deg")] public double? CorrectionDegrees { get; init; }
-    /// <summary>How far (µm, at the section's centre) its own template match lies from its final placement; null when unmatched.</summary>
+    /// <summary>
+    /// How far (µm, at the section's centre) its own template match lies from its final placement; null when unmatched. For a
+    /// section carried with another (<see cref="CarriedWith"/>), the match searched from the carried placement.
+    /// </summary>
     [JsonPropertyName("misfit_um")] public double? MisfitUm { get; init; }
     /// <summary>
     /// How far (µm, the largest at the corners of the image's middle half) the template moved the section relative to the placed section

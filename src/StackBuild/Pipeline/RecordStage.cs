@@ -193,7 +193,9 @@ public static class RecordStage
         var p = t.Guide.Sections[n];
         double cx = (image.Width - 1) / 2.0, cy = (image.Height - 1) / 2.0;
         double? misfit = null;
-        if (p.Measured is { } measured)
+        // A carried section's own match near its chain placement was set aside; what checks where it was put is the match
+        // searched from the carried placement.
+        if ((p.CarriedCheck ?? p.Measured) is { } measured)
         {
             var (ax, ay) = measured.Apply(cx, cy);
             var (bx, by) = p.SectionToSlice.Apply(cx, cy);

@@ -123,10 +123,12 @@ public sealed record TemplateGuideInput(IReadOnlyList<TemplateGuideSection> Sect
 /// part lies is unknown; <paramref name="Reason"/> says so.</param>
 /// <param name="CarriedFrom">Index of the section placed by its own template match that this one was carried with, through its
 /// chain link (<see cref="TemplateGuideSection.LinkedTo"/>, possibly over several links); null otherwise.</param>
+/// <param name="CarriedCheck">For a carried section, its template match searched from the carried placement (what the carry was
+/// checked with; how far it lies from the carried placement is the section's misfit); null otherwise.</param>
 public sealed record TemplateSectionPlacement(int Index, Transform2D SectionToSlice, Transform2D ChainToSlice, Transform2D? Measured,
     double? Similarity, double Confidence, double? ResidualPx, double? ResidualDegrees, double? DeviationPx, double? DeviationDegrees,
     bool Outlier, string? Reason, double CorrectionDegrees, double CorrectionX, double CorrectionY, bool PlacedByTemplate = false, bool Unplaced = false,
-    int? CarriedFrom = null);
+    int? CarriedFrom = null, Transform2D? CarriedCheck = null);
 
 /// <param name="ReferenceToSlice">The one rigid map from the reference frame onto the template slices' frame.</param>
 /// <param name="GlobalAgreement">Fraction of the globally searched sections that agreed with the chosen map.</param>
@@ -317,7 +319,7 @@ public static class TemplateGuide
         // rescuing it; the first section's match near its chain placement, weak, was set aside and the course beyond the
         // last accepted match left it 153 px off.) Taken only where the template likes the carried placement at least as well
         // as the chain's: a match searched from there scores no lower than the one near the chain placement.
-        var carried = new (Transform2D Map, int From)?[n];
+        var carried = new (Transform2D Map, int From, Transform2D Check)?[n];
         for (bool more = true; more;)
         {
             more = false;
@@ -330,7 +332,7 @@ public static class TemplateGuide
                 var map = chain[j].Then(chain[i].Inverse()).Then(placedI.Value);
                 var there = TemplateRegistration.Register(sections[j].Image!, sections[j].Slice!, map, options.Registration);
                 if (there.Similarity < measured[j]!.Similarity) continue;
-                carried[j] = (map, rescue[i] is not null ? i : carried[i]!.Value.From);
+                carried[j] = (map, rescue[i] is not null ? i : carried[i]!.Value.From, there.SectionToSlice);
                 more = true;
             }
         }
@@ -390,7 +392,7 @@ public static class TemplateGuide
                 result[i] = new TemplateSectionPlacement(i, c.Map, chain[i], m?.SectionToSlice, m?.Similarity, 0,
                     m == null ? null : Distance(m.SectionToSlice.Apply(centres[i].Item1, centres[i].Item2), (qx, qy)), m == null ? null : angle[i],
                     deviationPx[i], deviationDeg[i], m != null, reason[i], AngleDifference(c.Map.RotationDegrees, chain[i].RotationDegrees),
-                    cx - qx, cy - qy, CarriedFrom: c.From);
+                    cx - qx, cy - qy, CarriedFrom: c.From, CarriedCheck: c.Check);
                 continue;
             }
             if (sections[i].Unanchored && !measuredSegments.Contains(segment[i]))

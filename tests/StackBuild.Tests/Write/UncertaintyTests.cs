@@ -87,6 +87,34 @@ public sealed class UncertaintyTests(ITestOutputHelper output)
     }
 
     [Fact]
+    public void ASectionCarriedWithARescuedOneTakesItsMatchAndTheLinksBetweenNotTheWrongRoute()
+    {
+        // Sections 1–6 guided by a template, 6 the reference, each registered towards it. Section 2's chain link went wrong
+        // (its two routes 392 registration pixels apart, 3920 µm at 10 µm pixels), and the template rescued it
+        // with its own match; section 1, registered to 2 with confidence 1 and inheriting 2's wrong route, was carried with
+        // it (template.carried_with = 2), its match from the carried placement 15 µm off. Its estimate is 2's single-match
+        // error, its own link's peak term and that misfit, not the route disagreement the carry undid.
+        SectionRecord Guided(int number, double disagreementUm, SectionTemplateRecord t) =>
+            Link(number, number == 6 ? null : number + 1, 1, 25, disagreementUm) with { ZIndex = number, Template = t };
+        var used = new SectionTemplateRecord { Matched = true, MisfitUm = 10 };
+        var record = Record(
+            Guided(1, 3920, new SectionTemplateRecord { Matched = true, MisfitUm = 15, Outlier = "set aside", CarriedWith = 2 }),
+            Guided(2, 3920, new SectionTemplateRecord { Matched = true, MisfitUm = 0, PlacedByTemplate = true }),
+            Guided(3, 0, used), Guided(4, 0, used), Guided(5, 0, used), Guided(6, 0, used));
+        var e = Uncertainty.Estimate(record);
+        double single = 10; // RMS misfit of the four used matches within ±5, one match's error (not divided by √4)
+        double peak = 10 / 5.0; // 10 µm pixel / √25, confidence 1: no gross term
+        Assert.Equal(Math.Sqrt(single * single + peak * peak + 15 * 15), e[1].AccumulatedUm, 6);
+        Assert.Equal(single, e[2].AccumulatedUm, 6);
+        // Without carried_with the same section hangs on the wrong route: its estimate is the disagreement's, 200× larger.
+        var uncarried = record with { Sections = [record.Sections[0] with { Template = record.Sections[0].Template! with { CarriedWith = null } }, .. record.Sections.Skip(1)] };
+        Assert.True(Uncertainty.Estimate(uncarried)[1].AccumulatedUm > 2000);
+        // A record whose walk does not reach the named section (edited by hand) keeps the chain's estimate.
+        var broken = record with { Sections = [record.Sections[0] with { Template = record.Sections[0].Template! with { CarriedWith = 5 }, RegisteredTo = 6 }, .. record.Sections.Skip(1)] };
+        Assert.True(Uncertainty.Estimate(broken)[1].AccumulatedUm > 2000);
+    }
+
+    [Fact]
     public void DriftIsARandomWalkSeenAfterOneGlobalFit()
     {
         // The drift term's variance N/3 − t + t²/N is the continuous limit of a discrete random walk of unit steps with
