@@ -21,6 +21,7 @@ public static class Program
         {
             if (args.Length > 0 && args[0] == "accuracy") { AccuracyTable.Run(args[1..]); return; }
             if (args.Length > 0 && args[0] == "pairs") { PairDiagnosis.Run(args[1..]); return; }
+            if (args.Length > 0 && args[0] == "sides") { SideDiagnosis.Run(args[1..]); return; }
             if (args.Length > 0 && args[0] == "build-vs-library") { BuildVsLibrary.Run(args[1..]); return; }
             if (args.Length > 0 && args[0] == "pair-cache") { PairCacheBenchmark.Run(args[1..]); return; }
             if (args.Length > 0 && args[0] == "large-apply") { LargeApply.Run(args[1..]); return; }

@@ -6,7 +6,8 @@ namespace StackBuild.Evaluate;
 
 /// <summary>One section's estimated placement error.</summary>
 /// <param name="LinkUm">Standard error (µm) of the one registration that tied the section to the section it was registered to.</param>
-/// <param name="AccumulatedUm">Standard error (µm) relative to the reference section: the link errors summed along the chain as a random walk.</param>
+/// <param name="AccumulatedUm">Standard error (µm) of the section's placement: the link errors summed along the chain as a random walk
+/// (without a template, as one global fit sees that walk, plus the drift term; with one, relative to the template).</param>
 public sealed record SectionUncertainty(int Number, double LinkUm, double AccumulatedUm);
 
 /// <summary>
@@ -25,7 +26,8 @@ public sealed record SectionUncertainty(int Number, double LinkUm, double Accumu
 /// for a close call between hypotheses that may have picked the wrong one.</item>
 /// </list>
 /// Errors of successive links are taken as independent, so variances add along the chain from the reference
-/// (a random walk; common practice for chained pairwise registration). A build guided by a template replaces the
+/// (a random walk; common practice for chained pairwise registration); without a template the walk is taken as one global
+/// fit sees it, about the stack's mean (<see cref="WalkAboutMean"/>). A build guided by a template replaces the
 /// walk by <see cref="TemplateError"/>: each section's error is then relative to the template, not the reference; a
 /// section carried with one its own template match placed takes that match's error, the registrations in between
 /// (<see cref="CarriedLinks"/>) and its own misfit there.
@@ -56,18 +58,13 @@ public static class Uncertainty
         var order = guided ? [] : placed.Values.OrderBy(s => s.ZIndex).Select(s => s.Number).ToList();
         var position = order.Select((number, t) => (number, t)).ToDictionary(x => x.number, x => x.t);
         var beyond = guided ? UncheckedLinks(placed.Values, link) : new Dictionary<int, double>();
+        var paths = placed.Values.ToDictionary(s => s.Number, s => PathToReference(s, placed));
+        var aboutMean = guided ? new Dictionary<int, double>() : WalkAboutMean(paths, link);
         foreach (var s in placed.Values)
         {
-            double variance = 0;
-            var visited = new HashSet<int>();
-            var at = s;
-            // Walk to the reference; a loop or a missing parent stops the walk (only possible in an edited record).
-            while (visited.Add(at.Number))
-            {
-                variance += link[at.Number] * link[at.Number];
-                if (at.RegisteredTo is not int parent || !placed.TryGetValue(parent, out var next)) break;
-                at = next;
-            }
+            // The links from the section to the reference, their errors added as a random walk; without a template, as one
+            // global fit sees that walk (about the stack's mean: WalkAboutMean), so the reference's own estimate is not zero.
+            double variance = aboutMean.TryGetValue(s.Number, out double v) ? v : paths[s.Number].Sum(k => link[k] * link[k]);
             // With a template the chain no longer accumulates: the course is the template's, known as well as the
             // template matches around the section agree with the fused placements.
             if (s.Template is { PlacedByTemplate: true } && TemplateError(s, record.Sections, single: true) is double ownUm)
@@ -85,6 +82,59 @@ public static class Uncertainty
             // A part the chain could not link to the reference has no known place without a template: no estimate.
             if (s.Part is not null && s.Template is null) continue;
             result[s.Number] = new SectionUncertainty(s.Number, link[s.Number], Math.Sqrt(variance));
+        }
+        return result;
+    }
+
+    /// <summary>
+    /// The sections whose links lead from <paramref name="section"/> to its reference (itself first, the reference last: each
+    /// section stands for its own link to the one it was registered to). A loop or a missing parent ends the walk (only
+    /// possible in an edited record); the path is then marked as not reaching a reference by its last section's route.
+    /// </summary>
+    private static List<int> PathToReference(SectionRecord section, IReadOnlyDictionary<int, SectionRecord> placed)
+    {
+        var path = new List<int>();
+        var visited = new HashSet<int>();
+        for (var at = section; visited.Add(at.Number);)
+        {
+            path.Add(at.Number);
+            if (at.RegisteredTo is not int parent || !placed.TryGetValue(parent, out var next)) break;
+            at = next;
+        }
+        return path;
+    }
+
+    /// <summary>
+    /// Without a template, each section's chain walk as one global fit sees it: the variance of W(i) − mean W over the
+    /// sections of its tree (those that reach the same reference), where W(i) is the sum of the independent link errors
+    /// e_k on the path from i to the reference. With s_k the share of the tree's sections whose path holds link k,
+    /// W(i) − mean W = Σ_k e_k (1[k on i's path] − s_k), so Var = Σ_k v_k (1[k on i's path] − s_k)² (error propagation for
+    /// a sum of independent terms; common practice). The reference's estimate is then no longer zero — after a global fit
+    /// it is as likely to be off as its neighbours (the issue this answers: a chain's reference 24 px off with an estimate
+    /// of 0 µm; inia19-NeuroMaps' reference, 6 px off and the only section of its plain build more than 2 px off left
+    /// unflagged on every seed, docs/accuracy.md) — and sections far out are charged less for the links near the reference,
+    /// which the fit shares out over the whole stack.
+    /// </summary>
+    internal static Dictionary<int, double> WalkAboutMean(IReadOnlyDictionary<int, List<int>> paths, IReadOnlyDictionary<int, double> link)
+    {
+        var result = new Dictionary<int, double>();
+        foreach (var tree in paths.GroupBy(p => p.Value[^1]))
+        {
+            var members = tree.ToList();
+            var share = new Dictionary<int, double>();
+            foreach (var (_, path) in members)
+                foreach (int k in path) share[k] = share.GetValueOrDefault(k) + 1.0 / members.Count;
+            foreach (var (number, path) in members)
+            {
+                var on = path.ToHashSet();
+                double variance = 0;
+                foreach (var (k, sk) in share)
+                {
+                    double d = (on.Contains(k) ? 1 : 0) - sk;
+                    variance += link[k] * link[k] * d * d;
+                }
+                result[number] = variance;
+            }
         }
         return result;
     }

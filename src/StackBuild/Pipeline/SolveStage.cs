@@ -72,6 +72,7 @@ public static class SolveStage
             return new Placements(placed, null, null, null, false, false, options.Align ? ["only one section: nothing to align"] : []);
         }
         var chain = ChainSolver.Solve(sections.Count, pairs.Pair, i => Corners(sections[i].Image), options.Chain);
+        chain = PartsOnTheStacksSide(chain, pairs.Parity, i => (sections[i].Image.Width - 1) / 2.0);
         // Without a template nothing else can say where a part the chain could not link lies: it hangs on its best match
         // across the break, however weak (a template build leaves the parts to the template, which places them by itself).
         IReadOnlyList<PartJoin> joins = [];
@@ -110,6 +111,28 @@ public static class SolveStage
     /// <summary>Centres one image on another (for unaligned placement).</summary>
     private static Transform2D CentreOn(GrayImage image, GrayImage reference) =>
         Transform2D.Translation((reference.Width - image.Width) / 2.0, (reference.Height - image.Height) / 2.0);
+
+    /// <summary>
+    /// A part of the chain (a stretch no confident match links to the rest) is placed relative to its own part reference,
+    /// laid as that section lies on its slide; but which side of every section is up was decided for the whole stack at once
+    /// (<see cref="MirrorParity"/>), across the break too. A part whose reference lies the other way up than the stack's
+    /// reference is turned over about the part reference's centre (<paramref name="centreX"/>, its image's x centre), so that
+    /// every section of it keeps its decided side. (The macaque template cut coronally, seed 71: the last 17 sections, a part
+    /// after a lost section whose reference was face down, came out the wrong way up with a template although every side had
+    /// been decided right; the template's matches, all "mirrored against the chain", were set aside. A build without a
+    /// template joins the part through a pair (<see cref="ChainSolver.JoinParts"/>), whose map carries the mirror either way.)
+    /// </summary>
+    internal static IReadOnlyList<ChainPlacement> PartsOnTheStacksSide(IReadOnlyList<ChainPlacement> chain, ParityResult parity, Func<int, double> centreX)
+    {
+        int reference = ChainPlacements.ReferenceIndex(chain);
+        var turn = new Dictionary<int, Transform2D>();
+        for (int i = 0; i < chain.Count; i++)
+            if (chain[i].Route == LinkRoute.PartReference && parity.Flipped[i] != parity.Flipped[reference])
+                turn[chain[i].Part] = Transform2D.MirrorX(centreX(i));
+        if (turn.Count == 0) return chain;
+        return chain.Select(c => c.Route != LinkRoute.Failed && c.Part != 0 && turn.TryGetValue(c.Part, out var mirror)
+            ? c with { ToReference = c.ToReference.Then(mirror) } : c).ToList();
+    }
 
     /// <summary>
     /// Most sections are mounted face up (common practice), so when more than half came out mirrored relative to

@@ -11,6 +11,43 @@ namespace StackBuild.Tests;
 /// </summary>
 public sealed class ChainPartsTests
 {
+    [Fact]
+    public void APartWhoseReferenceLiesFaceDownKeepsEverySectionsDecidedSide()
+    {
+        // Stack: 0–1 the reference's part, 2 not placed, 3–5 a part chained to its own reference 4, and 6–7 a second part on
+        // reference 6. Which side is up was decided for the whole stack: 4 face down like 3, 5 face up; 6 and 7 face up.
+        // Within part 1 the chain maps 3 and 5 onto 4 as their pairs say (3 the same side as 4, 5 the other), 4 itself the
+        // identity, so without the stack's decision the part would come out the other way up as a whole.
+        var turn = Transform2D.Rotation(20, 10, 10).Then(Transform2D.Translation(3, -2));
+        var mirror = Transform2D.MirrorX(12);
+        var chain = new List<ChainPlacement>
+        {
+            new(Transform2D.Identity, LinkRoute.Reference, -1, null, null),
+            new(turn, LinkRoute.Neighbour, 0, null, null),
+            new(Transform2D.Identity, LinkRoute.Failed, -1, null, null),
+            new(turn, LinkRoute.Neighbour, 4, null, null, 1, 1),
+            new(Transform2D.Identity, LinkRoute.PartReference, -1, null, null, 0, 1),
+            new(mirror.Then(turn), LinkRoute.Neighbour, 4, null, null, 1, 1),
+            new(Transform2D.Identity, LinkRoute.PartReference, -1, null, null, 0, 2),
+            new(turn, LinkRoute.Neighbour, 6, null, null, 1, 2),
+        };
+        bool[] flipped = [false, false, false, true, true, false, false, false];
+        var parity = new ParityResult(flipped, new double[8], []);
+        var placed = Pipeline.SolveStage.PartsOnTheStacksSide(chain, parity, _ => 12);
+        foreach (int i in new[] { 0, 1, 3, 4, 5, 6, 7 })
+            Assert.Equal(flipped[i] != flipped[0], placed[i].ToReference.IsMirrored);
+        // Turned over about the part reference's centre: the part's inner placements are kept (4 onto itself, mirrored).
+        var (x, y) = placed[4].ToReference.Apply(12, 5);
+        Assert.Equal(12, x, 9);
+        Assert.Equal(5, y, 9);
+        // Part 2, whose reference lies the stack's way up, and the reference's own part are untouched.
+        Assert.Same(chain[6], placed[6]);
+        Assert.Same(chain[7], placed[7]);
+        Assert.Same(chain[1], placed[1]);
+        // Without the turn part 1 comes out the wrong way up as a whole: what the test guards against.
+        Assert.NotEqual(flipped[3] != flipped[0], chain[3].ToReference.IsMirrored);
+    }
+
     /// <summary>Each section lies shifted by (i, 0) from section 0; pairs that cross the break between 11 and 12 match nothing.</summary>
     private static PairResult Pair(int moving, int fixedIndex, int breakAt)
     {

@@ -38,12 +38,15 @@ public sealed class UncertaintyTests(ITestOutputHelper output)
         // Without a template each estimate also carries the chain's slow drift: placed sections 1, 2, 3, 5 are positions
         // 0..3 of 3 links, 10 µm registration pixels.
         double Drift(int t) => Uncertainty.DriftError(t, 3) * 10;
-        Assert.Equal(Drift(0), e[1].AccumulatedUm, 9);
         Assert.Equal(10 / 5.0, e[2].LinkUm, 9); // 10 µm pixel / √25
         Assert.Equal(Math.Sqrt(2 * 2 + 30 * 30), e[3].LinkUm, 9);
         double gross = 0.4 * Uncertainty.GrossErrorFraction * 1000; // extent 100 × 10 µm
         Assert.Equal(Math.Sqrt(5 * 5 + gross * gross), e[5].LinkUm, 9);
-        Assert.Equal(Math.Sqrt(e[2].LinkUm * e[2].LinkUm + e[3].LinkUm * e[3].LinkUm + e[5].LinkUm * e[5].LinkUm + Drift(3) * Drift(3)), e[5].AccumulatedUm, 9);
+        // The walk as one global fit sees it: links 2, 3, 5 lie on the paths of 3, 2 and 1 of the 4 sections (shares 3/4,
+        // 1/2, 1/4); section 5's path holds all three, so each counts (1 − share)², and the reference's holds none, each share².
+        double l2 = e[2].LinkUm * e[2].LinkUm, l3 = e[3].LinkUm * e[3].LinkUm, l5 = e[5].LinkUm * e[5].LinkUm;
+        Assert.Equal(Math.Sqrt(l2 / 16 + l3 / 4 + l5 * 9 / 16 + Drift(3) * Drift(3)), e[5].AccumulatedUm, 9);
+        Assert.Equal(Math.Sqrt(l2 * 9 / 16 + l3 / 4 + l5 / 16 + Drift(0) * Drift(0)), e[1].AccumulatedUm, 9);
         Assert.False(e.ContainsKey(4));
         var annotated = Uncertainty.Annotate(record);
         Assert.Null(annotated.Sections[3].EstimatedErrorUm);
@@ -53,13 +56,48 @@ public sealed class UncertaintyTests(ITestOutputHelper output)
     }
 
     [Fact]
+    public void TheChainWalkAboutTheStacksMeanMatchesASimulatedGlobalFit()
+    {
+        // A chain of 41 sections with its reference at 15 (not the middle) and link errors of different sizes: WalkAboutMean's
+        // variance for each section against 40,000 simulated chains whose placements are the sums of normal link errors
+        // along the path to the reference, the mean over the stack taken off (what one global translation fit removes).
+        // Independent of the formula: MathNet's normal sampler and plain sums.
+        const int n = 41, reference = 15;
+        var sd = Enumerable.Range(0, n).Select(i => i == reference ? 0 : 1 + 0.1 * (i % 7)).ToArray();
+        var link = Enumerable.Range(0, n).ToDictionary(i => i, i => sd[i]);
+        var paths = Enumerable.Range(0, n).ToDictionary(i => i, i =>
+        {
+            var path = new List<int>();
+            for (int at = i; ; at += Math.Sign(reference - at)) { path.Add(at); if (at == reference) break; }
+            return path;
+        });
+        var formula = Uncertainty.WalkAboutMean(paths, link);
+        var random = new MathNet.Numerics.Distributions.Normal(0, 1, new Random(5));
+        const int trials = 40_000;
+        var sum2 = new double[n];
+        var e = new double[n];
+        var w = new double[n];
+        for (int t = 0; t < trials; t++)
+        {
+            for (int i = 0; i < n; i++) e[i] = sd[i] * random.Sample();
+            for (int i = 0; i < n; i++) w[i] = paths[i].Sum(k => e[k]);
+            double mean = w.Average();
+            for (int i = 0; i < n; i++) sum2[i] += (w[i] - mean) * (w[i] - mean);
+        }
+        for (int i = 0; i < n; i++)
+            Assert.InRange(sum2[i] / trials / formula[i], 0.96, 1.04); // 40,000 trials: the variance's own sampling error is about 0.7 %
+        Assert.True(formula[reference] > 1, $"the reference's variance after the fit is {formula[reference]:0.00}, not near zero");
+    }
+
+    [Fact]
     public void TheDriftOfAPlainBuildRunsOverTheWholeStackItsJoinedPartsIncluded()
     {
         // Sections 1–3 a part joined by a weak match (part 1, no estimate of their own), 4–8 the stack with the reference 6.
         // The drift is the whole stack's, seen after one global fit over all eight: section 6 sits at position 5 of 7 links,
         // not at position 2 of 4 (the stretch without the part), which would understate it.
-        var part = Enumerable.Range(1, 3).Select(n => Link(n, n + 1, 1, 25, null) with { Part = 1, ZIndex = n - 1 });
-        var stack = new[] { Link(4, 5, 1, 25, null), Link(5, 6, 1, 25, null), Link(6, null, 1, 1, null), Link(7, 6, 1, 25, null), Link(8, 7, 1, 25, null) }
+        // (Links of negligible error, a peak-to-sidelobe ratio of 10¹², so that the estimates are the drift term alone.)
+        var part = Enumerable.Range(1, 3).Select(n => Link(n, n + 1, 1, 1e12, null) with { Part = 1, ZIndex = n - 1 });
+        var stack = new[] { Link(4, 5, 1, 1e12, null), Link(5, 6, 1, 1e12, null), Link(6, null, 1, 1, null), Link(7, 6, 1, 1e12, null), Link(8, 7, 1, 1e12, null) }
             .Select((s, t) => s with { ZIndex = t + 3 });
         var e = Uncertainty.Estimate(Record([.. part, .. stack]));
         Assert.Equal(Uncertainty.DriftError(5, 7) * 10, e[6].AccumulatedUm, 9);
