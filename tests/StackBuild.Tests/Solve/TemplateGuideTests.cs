@@ -256,6 +256,33 @@ public class TemplateGuideTests(ITestOutputHelper output)
         Assert.True(nearStep < 2, $"sections beside the wrong link are {nearStep} px off");
     }
 
+    [Fact]
+    public void AStepFoundLateAtAnEndIsMovedToWhereTheCorrectionsChange()
+    {
+        // The first two sections hang on a link turned 177° (a distant link at an end), sections 2 and 3 were not placed by
+        // the chain, and section 4 is chained right but weakly (0.32) to the rest. A step needs three accepted matches on
+        // either side, so it is found after section 4, which was then judged against the first two's course and set aside:
+        // 123 px off in the label atlas's coronal cut, seeds 67 and 71 (docs/accuracy.md). Moved to where the corrections
+        // change, section 4 follows the stretch it belongs to.
+        var (sim, planes) = MriSimulation();
+        // The stack is a part nothing links to the reference (as there), so every section's match is searched from scratch.
+        var sections = sim.Input.Sections.Select(x => x with { Unanchored = true }).ToList();
+        var wrong = Transform2D.Rotation(177, 140, 120);
+        for (int s = 0; s < 2; s++) sections[s] = sections[s] with { ToReference = sections[s].ToReference.Then(wrong) };
+        for (int s = 2; s < 4; s++) sections[s] = sections[s] with { ToReference = Transform2D.Identity, ChainConfidence = 1, ChainFailed = true };
+        sections[4] = sections[4] with { ChainConfidence = 0.32 };
+        sections[5] = sections[5] with { ChainConfidence = 0.32 };
+        var broken = sim with { Input = sim.Input with { Sections = sections } };
+        var (chain, guided, result) = RunAndReport("MRI ch2, the first two sections 177° off, two unplaced, the fifth weakly chained", broken, Enumerable.Range(0, planes.Count).ToArray());
+        output.WriteLine($"  steps: {string.Join(", ", result.ChainSteps!)}; section 4: {guided.Errors[4]:0.###} px ({result.Sections[4].Reason ?? "match used"})");
+        output.WriteLine($"  chain errors 0–6: {string.Join(", ", Enumerable.Range(0, 7).Select(i => chain.Errors[i].ToString("0.#")))}; guided: {string.Join(", ", Enumerable.Range(0, 7).Select(i => guided.Errors[i].ToString("0.##")))}");
+        Assert.True(chain.Errors[0] > 15 && chain.Errors[1] > 5, "the first sections must be far off for the test to mean anything");
+        Assert.Equal([4], result.ChainSteps!);
+        Assert.False(result.Sections[4].Outlier, result.Sections[4].Reason);
+        Assert.True(guided.Errors[4] < 1, $"section 4 is {guided.Errors[4]} px off");
+        Assert.True(Math.Max(guided.Errors[0], guided.Errors[1]) < 2, $"the first sections are {guided.Errors[0]} and {guided.Errors[1]} px off");
+    }
+
     [Theory]
     [InlineData(60)]
     [InlineData(175)]
