@@ -232,6 +232,15 @@ public static class TemplateGuide
             deviationDeg[i] = Math.Abs(angle[i] - mac);
         }
         var devs = usable.Where(i => candidate[i]).ToList();
+        // The median similarity of the other candidate matches within the window when this one's is below the rescue share
+        // of it (a weak match, as the rescue judges one); null otherwise or with fewer than three to compare with.
+        double? WeakAmong(int i)
+        {
+            var near = devs.Where(j => j != i && Math.Abs(j - i) <= half).Select(j => measured[j]!.Similarity).ToList();
+            if (near.Count < 3) return null;
+            double around = Median(near);
+            return measured[i]!.Similarity < options.RescueSimilarityShare * around ? around : null;
+        }
         // Each chain link's likely error (working pixels at the corners, and as a turn in degrees); null when the chain gave none.
         var (linkPx, linkDeg) = sections.Any(x => x.LinkErrorPx is not null) ? LinkSteps(sections) : (null, null);
         if (devs.Count >= 3)
@@ -248,6 +257,13 @@ public static class TemplateGuide
                 double looseLimitDeg = known ? Math.Max(limitDeg, 2 * linkDeg![i]) : limitDeg;
                 if (deviationPx[i] > looseLimitPx) reason[i] = $"{deviationPx[i]:0.#} px away from where its neighbours' template matches put it; at most {looseLimitPx:0.#} px accepted";
                 else if (deviationDeg[i] > looseLimitDeg) reason[i] = $"turned {deviationDeg[i]:0.#}° against its neighbours' template matches; at most {looseLimitDeg:0.#}° accepted";
+                // Beyond the usual limit only a match as good as its neighbours' may overrule a loose link: a weak one at a
+                // small end section can lie anywhere (the macaque template cut coronally, seed 73: the last section's match,
+                // similarity 0.034 against 0.25 around it, 14 px from a link whose routes lay 344 px apart, was used and
+                // put it 25 px off).
+                else if ((deviationPx[i] > limitPx || deviationDeg[i] > limitDeg) && WeakAmong(i) is double around)
+                    reason[i] = $"{deviationPx[i]:0.#} px and {deviationDeg[i]:0.#}° away from where its neighbours' template matches put it, and too weak " +
+                                $"(similarity {measured[i]!.Similarity:0.###} against {around:0.###} around it) to overrule its loose chain link";
                 if (reason[i] != null) candidate[i] = false;
             }
         }

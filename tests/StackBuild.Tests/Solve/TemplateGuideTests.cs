@@ -434,6 +434,31 @@ public class TemplateGuideTests(ITestOutputHelper output)
     }
 
     [Fact]
+    public void AWeakMatchCannotOverruleALooseLinkBeyondTheUsualLimit()
+    {
+        // The last section is an end piece whose template match is weak and wrong (a disc of another plane's image, so that it
+        // matches its slice poorly and anywhere), while its chain placement is right; its link is loose (routes 300 px apart),
+        // which widens the outlier limit to twice the link's error. Used, the weak match would place the section; set aside,
+        // the section follows the chain and the course (the macaque template cut coronally, seed 73: 25 px off before, 0.6 px
+        // after).
+        var (sim, planes) = MriSimulation();
+        var sections = sim.Input.Sections.ToList();
+        int last = sections.Count - 1;
+        double c = (Canvas - 1) / 2.0;
+        var other = sections[last - 10].Image!.Clone();
+        float background = other[0, 0];
+        for (int y = 0; y < Canvas; y++) for (int x = 0; x < Canvas; x++) if (double.Hypot(x - c, y - c) > 30) other[x, y] = background;
+        sections[last] = sections[last] with { Image = other, OwnRouteDisagreementPx = 300, LinkErrorPx = 300 / Math.Sqrt(2) };
+        var (chain, guided, result) = RunAndReport("MRI ch2, a weak wrong match at a loose end link", sim with { Input = sim.Input with { Sections = sections } },
+            Enumerable.Range(0, planes.Count).ToArray());
+        var p = result.Sections[last];
+        output.WriteLine($"  last section: {guided.Errors[last]:0.###} px (chain {chain.Errors[last]:0.###} px); similarity {p.Similarity:0.###}, deviation {p.DeviationPx:0.#} px; {p.Reason ?? "match used"}");
+        Assert.True(p.Outlier, $"the weak match was used: {guided.Errors[last]} px off");
+        Assert.Contains("too weak", p.Reason);
+        Assert.True(guided.Errors[last] < 1.5, $"the last section is {guided.Errors[last]} px off");
+    }
+
+    [Fact]
     public void RigidFitRecoversAKnownMapWithAndWithoutMirror()
     {
         // Analytic truth: points moved by a known rigid map (mirrored or not) give that map back.
