@@ -119,10 +119,16 @@ public static class TemplateRegistration
                 candidates.Add((pose, problem.Score(pose, top, ref evaluations)));
             }
         candidates.Sort((x, y) => y.Score.CompareTo(x.Score));
+        // When both mirrors are to be measured (the template's vote on the side), each gets the same number of candidates:
+        // one mirror refined from four angles against the other's single best coarse angle favoured the first wherever the
+        // coarsest level could hardly tell angles apart (a small end section), and such a lopsided vote turned sections over
+        // (natbrainlab j, seed 79: section 74 mirrored by 0.154 against 0.049, wrong; docs/accuracy.md).
+        bool both = options.TryMirror && options.MeasureOtherMirror;
         var chosen = new List<Pose>();
         foreach (var c in candidates)
         {
-            if (chosen.Count >= options.GlobalCandidates) break;
+            if (chosen.Count >= options.GlobalCandidates * (both ? 2 : 1)) break;
+            if (both && chosen.Count(o => o.Mirrored == c.Pose.Mirrored) >= options.GlobalCandidates) continue;
             if (chosen.Any(o => o.Mirrored == c.Pose.Mirrored && AngleGap(o.Degrees, c.Pose.Degrees) < 1.5 * options.GlobalAngleStepDegrees)) continue;
             chosen.Add(c.Pose);
         }
