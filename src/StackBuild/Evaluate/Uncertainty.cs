@@ -70,7 +70,7 @@ public static class Uncertainty
             if (s.Template is { PlacedByTemplate: true } && TemplateError(s, record.Sections, single: true) is double ownUm)
                 variance = ownUm * ownUm; // placed by one template match alone: no chain link, no averaging over neighbours
             else if (s.Template is { CarriedWith: int anchor } && TemplateError(s, record.Sections, single: true) is double anchorUm
-                     && CarriedLinks(s, anchor, placed, pixelUm, extentUm) is double linksVariance)
+                     && CarriedLinks(paths[s.Number], anchor, placed, pixelUm, extentUm) is double linksVariance)
                 variance = anchorUm * anchorUm + linksVariance + Math.Pow(s.Template.MisfitUm ?? 0, 2);
             else if (s.Template is not null && TemplateError(s, record.Sections) is double templateUm)
                 variance = link[s.Number] * link[s.Number] + templateUm * templateUm + beyond.GetValueOrDefault(s.Number);
@@ -201,21 +201,13 @@ public static class Uncertainty
     /// alone, not through the second-neighbour routes, and the disagreement that marked the chain wrong there (ch2 j, seed
     /// 53: 392 px at the link the template rescued) is what the carry undid. The caller adds the anchor's single-match
     /// error and the misfit of the match searched from the carried placement, which checks the carry directly. Null when
-    /// the walk does not reach the anchor (an edited record).
+    /// the section's path to the reference (<see cref="PathToReference"/>) does not pass the anchor (an edited record).
     /// </summary>
-    internal static double? CarriedLinks(SectionRecord section, int anchor, IReadOnlyDictionary<int, SectionRecord> placed, double pixelUm, double extentUm)
+    internal static double? CarriedLinks(List<int> path, int anchor, IReadOnlyDictionary<int, SectionRecord> placed, double pixelUm, double extentUm)
     {
-        double variance = 0;
-        var visited = new HashSet<int>();
-        for (var at = section; at.Number != anchor; )
-        {
-            if (!visited.Add(at.Number)) return null;
-            double e = LinkError(at with { RouteDisagreementUm = null }, pixelUm, extentUm);
-            variance += e * e;
-            if (at.RegisteredTo is not int parent || !placed.TryGetValue(parent, out var next)) return null;
-            at = next;
-        }
-        return variance;
+        int at = path.IndexOf(anchor);
+        if (at < 0) return null;
+        return path.Take(at).Sum(k => { double e = LinkError(placed[k] with { RouteDisagreementUm = null }, pixelUm, extentUm); return e * e; });
     }
 
     /// <summary>Sections on either side whose template matches set the course at a section (the fusion's window, 11 sections).</summary>

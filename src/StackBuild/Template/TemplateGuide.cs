@@ -232,11 +232,11 @@ public static class TemplateGuide
             deviationDeg[i] = Math.Abs(angle[i] - mac);
         }
         var devs = usable.Where(i => candidate[i]).ToList();
-        // The median similarity of the other candidate matches within the window when this one's is below the rescue share
+        // The median similarity of the other matches of the pool within the window when this one's is below the rescue share
         // of it (a weak match, as the rescue judges one); null otherwise or with fewer than three to compare with.
-        double? WeakAmong(int i)
+        double? WeakAmong(int i, IEnumerable<int> pool)
         {
-            var near = devs.Where(j => j != i && Math.Abs(j - i) <= half).Select(j => measured[j]!.Similarity).ToList();
+            var near = pool.Where(j => j != i && Math.Abs(j - i) <= half).Select(j => measured[j]!.Similarity).ToList();
             if (near.Count < 3) return null;
             double around = Median(near);
             return measured[i]!.Similarity < options.RescueSimilarityShare * around ? around : null;
@@ -261,7 +261,7 @@ public static class TemplateGuide
                 // small end section can lie anywhere (the macaque template cut coronally, seed 73: the last section's match,
                 // similarity 0.034 against 0.25 around it, 14 px from a link whose routes lay 344 px apart, was used and
                 // put it 25 px off).
-                else if ((deviationPx[i] > limitPx || deviationDeg[i] > limitDeg) && WeakAmong(i) is double around)
+                else if ((deviationPx[i] > limitPx || deviationDeg[i] > limitDeg) && WeakAmong(i, devs) is double around)
                     reason[i] = $"{deviationPx[i]:0.#} px and {deviationDeg[i]:0.#}° away from where its neighbours' template matches put it, and too weak " +
                                 $"(similarity {measured[i]!.Similarity:0.###} against {around:0.###} around it) to overrule its loose chain link";
                 if (reason[i] != null) candidate[i] = false;
@@ -273,11 +273,7 @@ public static class TemplateGuide
         // places it alone (a wrong mirror or turn from a torn section's weak pair registration is undone this way).
         var rescue = new TemplateMatch?[n];
         bool Loose(int i) => sections[i].OwnRouteDisagreementPx > options.LooseLinkPx;
-        bool WeakMatch(int i)
-        {
-            var near = usable.Where(j => j != i && candidate[j] && Math.Abs(j - i) <= half).Select(j => measured[j]!.Similarity).ToList();
-            return near.Count >= 3 && measured[i]!.Similarity < options.RescueSimilarityShare * Median(near);
-        }
+        bool WeakMatch(int i) => WeakAmong(i, usable.Where(j => candidate[j])) is not null;
         var retry = usable.Where(i => !candidate[i] || sections[i].OwnConfidence < options.RescueChainConfidence || sections[i].SideUncertain
             || (Loose(i) && WeakMatch(i))).Concat(orphans).ToList();
         Parallel.ForEach(retry, i => rescue[i] = sections[i].Scratch ?? TemplateRegistration.Register(sections[i].Image!, sections[i].Slice!, null, options.Registration));
