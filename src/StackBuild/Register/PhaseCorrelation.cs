@@ -1,3 +1,4 @@
+using System.Runtime.Intrinsics;
 using MathNet.Numerics;
 using StackBuild.Imaging;
 using StackBuild.Numerics;
@@ -121,13 +122,7 @@ public static class PhaseCorrelation
         ComplexImage cross, ComplexImage surface, double upsample, float[]? spectralWeight = null)
     {
         int w = fft.Width, h = fft.Height;
-        CrossPower(fixedSpectrum.Span, movingSpectrum.Span, cross.Span);
-        if (spectralWeight != null)
-        {
-            var c = cross.Span;
-            for (int i = 0; i < c.Length; i++) c[i] *= spectralWeight[i];
-        }
-        cross.Span.CopyTo(surface.Span);
+        CrossPower(fixedSpectrum.Span, movingSpectrum.Span, spectralWeight, cross.Span, surface.Span);
         fft.Inverse(surface);
         var s = surface.Span;
         int best = 0;
@@ -175,15 +170,22 @@ public static class PhaseCorrelation
         return weight;
     }
 
-    /// <summary>The normalised cross-power spectrum F·conj(M)/|F·conj(M)| (0 where either spectrum vanishes).</summary>
-    private static void CrossPower(ReadOnlySpan<Complex32> f, ReadOnlySpan<Complex32> m, Span<Complex32> result)
+    /// <summary>
+    /// The normalised cross-power spectrum F·conj(M)/|F·conj(M)| (0 where either spectrum vanishes), times the spectral
+    /// weight when there is one, written to both <paramref name="result"/> and <paramref name="copy"/> in one pass.
+    /// </summary>
+    private static void CrossPower(ReadOnlySpan<Complex32> f, ReadOnlySpan<Complex32> m, float[]? weight, Span<Complex32> result, Span<Complex32> copy)
     {
+        if (weight is not null && weight.Length < result.Length) throw new ArgumentException("the spectral weight is smaller than the spectrum", nameof(weight));
         for (int i = 0; i < result.Length; i++)
         {
             float fr = f[i].Real, fi = f[i].Imaginary, mr = m[i].Real, mi = m[i].Imaginary;
             float re = fr * mr + fi * mi, im = fi * mr - fr * mi;
             float mag = MathF.Sqrt(re * re + im * im);
-            result[i] = mag > 1e-20f ? new Complex32(re / mag, im / mag) : Complex32.Zero;
+            float cr = 0, ci = 0;
+            if (mag > 1e-20f) { cr = re / mag; ci = im / mag; }
+            if (weight is not null) { cr *= weight[i]; ci *= weight[i]; }
+            result[i] = copy[i] = new Complex32(cr, ci);
         }
     }
 
@@ -218,65 +220,82 @@ public static class PhaseCorrelation
         var xs = new double[size];
         var ys = new double[size];
         for (int j = 0; j < size; j++) { xs[j] = dx0 + (j - centre) / upsample; ys[j] = dy0 + (j - centre) / upsample; }
-        var (kxRe, kxIm) = Kernel(w, xs);   // [kx * size + j]
-        var (kyRe, kyIm) = Kernel(h, ys);   // [ky * size + i]
+        int half = w / 2;
+        // The grid's columns padded to whole vectors of four: each lane sums exactly the terms, in exactly the order, that a
+        // loop over one column would, so the result is the same bit for bit (.NET never fuses a multiply and an add).
+        int stride = (size + 3) & ~3;
+        var (kxRe, kxIm) = Kernel(w, xs, half + 1, stride);   // [kx * stride + j]; only kx = 0…w/2 is used
+        var (kyRe, kyIm) = Kernel(h, ys, h, size);            // [ky * size + i]
         // Step 1: T[ky, j] = Σ_kx c·R[ky, kx]·e^(2πi·fx·x_j/w) over kx = 0…w/2 only. Both images are real, so
         // R is Hermitian (R(−k) = conj R(k)) and the real part we need counts each column kx and its mirror −kx
         // alike: c = 2 for the columns that have a distinct mirror, 1 for kx = 0 and the Nyquist column.
-        var tRe = new double[h * size];
-        var tIm = new double[h * size];
-        nint address = (nint)cross.Pointer;
-        int half = w / 2;
+        var tRe = new double[h * stride];
+        var tIm = new double[h * stride];
+        var row0 = (Complex32*)cross.Pointer;
         // One thread: pairs are registered in parallel already, so a parallel loop here only adds its overhead.
-        var aRe = new double[size];
-        var aIm = new double[size];
-        for (int ky = 0; ky < h; ky++)
+        fixed (double* exRe = kxRe, exIm = kxIm, outRe = tRe, outIm = tIm)
         {
-            Array.Clear(aRe);
-            Array.Clear(aIm);
-            var row = (Complex32*)address + (long)ky * w;
-            for (int kx = 0; kx <= half; kx++)
+            for (int ky = 0; ky < h; ky++)
             {
-                double c = kx == 0 || 2 * kx == w ? 1 : 2;
-                double vr = c * row[kx].Real, vi = c * row[kx].Imaginary;
-                int k0 = kx * size;
-                for (int j = 0; j < size; j++)
+                var row = row0 + (long)ky * w;
+                for (int j0 = 0; j0 < stride; j0 += 4)
                 {
-                    double er = kxRe[k0 + j], ei = kxIm[k0 + j];
-                    aRe[j] += vr * er - vi * ei;
-                    aIm[j] += vr * ei + vi * er;
+                    var aRe = Vector256<double>.Zero;
+                    var aIm = Vector256<double>.Zero;
+                    for (int kx = 0; kx <= half; kx++)
+                    {
+                        double c = kx == 0 || 2 * kx == w ? 1 : 2;
+                        var vr = Vector256.Create(c * row[kx].Real);
+                        var vi = Vector256.Create(c * row[kx].Imaginary);
+                        var er = Vector256.Load(exRe + kx * stride + j0);
+                        var ei = Vector256.Load(exIm + kx * stride + j0);
+                        aRe += vr * er - vi * ei;
+                        aIm += vr * ei + vi * er;
+                    }
+                    aRe.Store(outRe + ky * stride + j0);
+                    aIm.Store(outIm + ky * stride + j0);
                 }
             }
-            Array.Copy(aRe, 0, tRe, ky * size, size);
-            Array.Copy(aIm, 0, tIm, ky * size, size);
         }
         // Step 2: Re out[i, j] = Re Σ_ky e^(2πi·fy·y_i/h)·T[ky, j].
         double best = double.NegativeInfinity;
         int bi = 0, bj = 0;
-        for (int i = 0; i < size; i++)
-        for (int j = 0; j < size; j++)
+        Span<double> sums = stackalloc double[stride];
+        fixed (double* tr = tRe, ti = tIm)
         {
-            double re = 0;
-            for (int ky = 0; ky < h; ky++)
-                re += kyRe[ky * size + i] * tRe[ky * size + j] - kyIm[ky * size + i] * tIm[ky * size + j];
-            if (re > best) { best = re; bi = i; bj = j; }
+            for (int i = 0; i < size; i++)
+            {
+                for (int j0 = 0; j0 < stride; j0 += 4)
+                {
+                    var re = Vector256<double>.Zero;
+                    for (int ky = 0; ky < h; ky++)
+                        re += Vector256.Create(kyRe[ky * size + i]) * Vector256.Load(tr + ky * stride + j0)
+                            - Vector256.Create(kyIm[ky * size + i]) * Vector256.Load(ti + ky * stride + j0);
+                    re.CopyTo(sums[j0..]);
+                }
+                for (int j = 0; j < size; j++)
+                    if (sums[j] > best) { best = sums[j]; bi = i; bj = j; }
+            }
         }
         return (xs[bj], ys[bi], best / ((double)w * h));
     }
 
-    /// <summary>e^(2πi·f·p/n) (real and imaginary parts) for the signed frequency f of each FFT bin and each position p.</summary>
-    private static (double[] Re, double[] Im) Kernel(int n, double[] positions)
+    /// <summary>
+    /// e^(2πi·f·p/n) (real and imaginary parts) for the signed frequency f of the first <paramref name="bins"/> FFT bins and
+    /// each position p, laid out [bin * <paramref name="stride"/> + j] (lanes past the positions are 0).
+    /// </summary>
+    private static (double[] Re, double[] Im) Kernel(int n, double[] positions, int bins, int stride)
     {
-        var re = new double[n * positions.Length];
-        var im = new double[n * positions.Length];
-        for (int bin = 0; bin < n; bin++)
+        var re = new double[bins * stride];
+        var im = new double[bins * stride];
+        for (int bin = 0; bin < bins; bin++)
         {
             int f = bin < (n + 1) / 2 ? bin : bin - n;
             for (int j = 0; j < positions.Length; j++)
             {
                 double a = 2 * Math.PI * f * positions[j] / n;
-                re[bin * positions.Length + j] = Math.Cos(a);
-                im[bin * positions.Length + j] = Math.Sin(a);
+                re[bin * stride + j] = Math.Cos(a);
+                im[bin * stride + j] = Math.Sin(a);
             }
         }
         return (re, im);
