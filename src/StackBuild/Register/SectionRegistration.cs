@@ -104,7 +104,7 @@ public static class SectionRegistration
     /// <see cref="PreparedSection"/>, <see cref="Preprocessing"/>, or a shared tool they call (warps, bilinear sampling,
     /// Gaussian blur, the FFT); otherwise a build with a filled cache keeps the old results (DEVELOPERS.md).
     /// </summary>
-    public const int CodeVersion = 1;
+    public const int CodeVersion = 2;
 
     private const double CoarseUpsample = 1; // whole pixels suffice to rank hypotheses; the best two are refined
     private const double DistinctDegrees = 10;
