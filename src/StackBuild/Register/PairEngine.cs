@@ -26,7 +26,7 @@ internal sealed class PairEngine : IDisposable
     /// <summary>
     /// The moving canvas's image and soft mask at each pixel and its right neighbour, four floats a pixel (image, image right,
     /// mask, mask right; the last column's right neighbours are 0), so <see cref="NccVector"/> reads a sample's two upper or
-    /// two lower corners of both with one load; null without SSE.
+    /// two lower corners of both with one load; null without AVX (then the scalar NCC needs no packing).
     /// </summary>
     private readonly float[]? _corners;
     private readonly float[]? _spectralWeight;
@@ -43,7 +43,7 @@ internal sealed class PairEngine : IDisposable
         _cross = new ComplexImage(_n, _n);
         _surface = new ComplexImage(_n, _n);
         _warped = TakeWarpBuffer(_n);
-        if (Sse.IsSupported) _corners = PackCorners(movingCanvas, TakeBuffer(4 * _n * _n));
+        if (Avx.IsSupported) _corners = PackCorners(movingCanvas, TakeBuffer(4 * _n * _n));
         _spectralWeight = lowPass > 0 ? Weights.GetOrAdd((_n, lowPass), k => PhaseCorrelation.GaussianSpectralWeight(k.Item1, k.Item1, k.Item2)) : null;
     }
 
@@ -184,7 +184,7 @@ internal sealed class PairEngine : IDisposable
     /// processor has AVX (<see cref="NccVector"/>), else one at a time (<see cref="NccScalar"/>); the two sample the same
     /// positions to within rounding and differ only in the order of the sums (about 1e-15 of the NCC).
     /// </summary>
-    internal double Ncc(Transform2D map) => Avx.IsSupported && _corners is not null ? NccVector(map) : NccScalar(map);
+    internal double Ncc(Transform2D map) => _corners is not null ? NccVector(map) : NccScalar(map);
 
     /// <summary>The pixel box of the fixed canvas that <see cref="Ncc"/> visits for <paramref name="map"/>.</summary>
     private (int X0, int Y0, int X1, int Y1) NccBox(Transform2D map)
