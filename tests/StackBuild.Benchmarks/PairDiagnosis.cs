@@ -24,11 +24,16 @@ public static class PairDiagnosis
             throw new ArgumentException("use: pairs VOLUME.nii.gz AXIS SEED FROM TO [EVERY]  (e.g. pairs /usr/share/mricron/templates/ch2bet.nii.gz k 7 1 16)");
         int seed = int.Parse(args[2], CultureInfo.InvariantCulture), from = int.Parse(args[3], CultureInfo.InvariantCulture), to = int.Parse(args[4], CultureInfo.InvariantCulture);
         int every = args.Length > 5 ? int.Parse(args[5], CultureInfo.InvariantCulture) : 2;
-        // Optional after EVERY: "bright" (bright-field), "16" (16-bit), "upscale F" (F scan pixels per voxel), as the accuracy table cuts.
+        // Optional after EVERY: "bright" (bright-field), "16" (16-bit), "upscale F" (F scan pixels per voxel), as the accuracy table cuts;
+        // "files DIR" (below).
         bool bright = args.Skip(6).Contains("bright");
         int bits = args.Skip(6).Contains("16") ? 16 : 8;
         int at = Array.IndexOf(args, "upscale");
         double upscale = at > 5 && at + 1 < args.Length ? double.Parse(args[at + 1], CultureInfo.InvariantCulture) : 1;
+        // "files DIR": the sections read from the images the cut wrote there (as a build reads them: 8- or 16-bit quantised)
+        // instead of taken from the cut in memory.
+        int fileAt = Array.IndexOf(args, "files");
+        string? files = fileAt > 5 && fileAt + 1 < args.Length ? args[fileAt + 1] : null;
         var volume = NiftiFile.Read(args[0]).ToVolume();
         var (vi, vj, vk) = volume.Affine.VoxelSizes;
         double? pixelUm = upscale == 1 ? null : Math.Min(vi, Math.Min(vj, vk)) * 1000 / upscale;
@@ -37,7 +42,8 @@ public static class PairDiagnosis
         var options = new RegistrationOptions { WorkSize = 1 << 16 };
         var prepared = new SortedDictionary<int, PreparedSection>();
         for (int n = Math.Max(1, from); n <= Math.Min(to, series.Sections.Count); n++)
-            if (series.Scans[n - 1] is { } scan) prepared[n] = SectionRegistration.Prepare(scan, options);
+            if (series.Scans[n - 1] is { } scan)
+                prepared[n] = SectionRegistration.Prepare(files is null ? scan : SectionImageReader.ReadGray(Path.Combine(files, $"section_{n:000}.png")), options);
         var numbers = prepared.Keys.ToList();
         Console.WriteLine("moving<-fixed  tissue share  side  found NCC right / wrong  truth NCC  right side: angle error °, shift at centre px");
         for (int i = 0; i < numbers.Count; i++)

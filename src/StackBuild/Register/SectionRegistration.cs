@@ -104,7 +104,7 @@ public static class SectionRegistration
     /// <see cref="PreparedSection"/>, <see cref="Preprocessing"/>, or a shared tool they call (warps, bilinear sampling,
     /// Gaussian blur, the FFT); otherwise a build with a filled cache keeps the old results (DEVELOPERS.md).
     /// </summary>
-    public const int CodeVersion = 2;
+    public const int CodeVersion = 3;
 
     private const double CoarseUpsample = 1; // whole pixels suffice to rank hypotheses; the best two are refined
     private const double DistinctDegrees = 10;
@@ -212,35 +212,34 @@ public static class SectionRegistration
         }
         coarse.Sort((a, b) => b.Ncc.CompareTo(a.Ncc));
         double step = PolarSpectrum.DegreesPerBin;
-        // Per mirror: the best hypothesis refined, and the best one more than 10° away from it (its runner-up, refined
-        // for the mirror that wins here, coarse for the other), so that a mirror decided for the whole stack
-        // (MirrorParity) can still say how distinct the chosen angle is.
+        // Per mirror: the best coarse hypothesis refined and polished, and the best one more than 10° away from it (its
+        // runner-up) refined too, polished where it overtakes, the other kept as that mirror's runner-up, so that a mirror
+        // decided for the whole stack (MirrorParity) can still say how distinct the chosen angle is. The leading mirror's
+        // runner-up is always refined; the other mirror's where the search runs at this size (small tissue, a specimen's
+        // ends), whose coarse NCC (whole pixels) often ties between angles, so that both mirrors are searched equally hard
+        // where the mirror decision is hardest (inia19-t1-brain j, seed 79, section 76 onto 75: the right side's two leading
+        // angles tied at 0.656 coarse; the first refined to 0.676, the second, 160° away, to 0.806, above the wrong side's
+        // 0.782). On larger tissue the other mirror's runner-up stays coarse: refining it cost 14 % of a pair's time there.
         var perMirror = new List<(PairHypothesis Best, double? RunnerUpNcc, PairEngine.Evaluation? RunnerUp)>();
-        foreach (bool mirrored in mirrors)
+        var firsts = mirrors.Select(m =>
         {
-            var first = coarse.First(e => e.Mirrored == mirrored);
-            var refined = Finish(search.Refine(first, step, options.AngleTolerance, options.UpsampleFactor));
-            var second = coarse.FirstOrDefault(e => e.Mirrored == mirrored && IsDistinct(e, refined));
-            perMirror.Add((ToHypothesis(refined, fixedCanvas, movingCanvas), second is null ? null : Here(second).Ncc, second));
+            var first = Finish(search.Refine(coarse.First(e => e.Mirrored == m), step, options.AngleTolerance, options.UpsampleFactor));
+            return (Refined: first, Second: coarse.FirstOrDefault(e => e.Mirrored == m && IsDistinct(e, first)));
+        }).OrderByDescending(f => f.Refined.Ncc).ToList();
+        for (int n = 0; n < firsts.Count; n++)
+        {
+            var (refined, second) = firsts[n];
+            if (second is null) { perMirror.Add((ToHypothesis(refined, fixedCanvas, movingCanvas), null, null)); continue; }
+            if (n > 0 && half is not null) { var coarseHere = Here(second); perMirror.Add((ToHypothesis(refined, fixedCanvas, movingCanvas), coarseHere.Ncc, coarseHere)); continue; }
+            var refinedSearch = search.Refine(second, step, options.AngleTolerance, options.UpsampleFactor);
+            var refinedSecond = Here(refinedSearch);
+            if (refinedSecond.Ncc > refined.Ncc) refinedSecond = Finish(refinedSearch);
+            if (refinedSecond.Ncc > refined.Ncc) (refined, refinedSecond) = (refinedSecond, refined); // the runner-up overtook
+            perMirror.Add((ToHypothesis(refined, fixedCanvas, movingCanvas), refinedSecond.Ncc, refinedSecond));
         }
         perMirror.Sort((a, b) => b.Best.Ncc.CompareTo(a.Best.Ncc));
-        var (bestHypothesis, sameRunnerUpNcc, sameRunnerUp) = perMirror[0];
+        var (bestHypothesis, sameRunnerUpNcc, sameRunnerUpHere) = perMirror[0];
         var other = perMirror.Count > 1 ? perMirror[1] : default;
-        PairEngine.Evaluation? sameRunnerUpHere = null;
-        if (sameRunnerUp is not null)
-        {
-            var refinedSearch = search.Refine(sameRunnerUp, step, options.AngleTolerance, options.UpsampleFactor);
-            var refinedSame = Here(refinedSearch);
-            if (refinedSame.Ncc > bestHypothesis.Ncc) refinedSame = Finish(refinedSearch);
-            sameRunnerUpNcc = refinedSame.Ncc;
-            if (refinedSame.Ncc > bestHypothesis.Ncc)
-            {
-                // The refined runner-up overtook the best of its mirror: swap them.
-                sameRunnerUpNcc = bestHypothesis.Ncc;
-                bestHypothesis = ToHypothesis(refinedSame, fixedCanvas, movingCanvas);
-            }
-            sameRunnerUpHere = refinedSame;
-        }
         // The runner-up overall: the better of the other mirror's best and this mirror's distinct runner-up.
         PairHypothesis? runnerUp = other.Best;
         if (sameRunnerUpHere is not null && (runnerUp is null || sameRunnerUpHere.Ncc > runnerUp.Ncc))
