@@ -126,25 +126,40 @@ public static class AccuracyRun
 
     /// <summary>
     /// A template of another resolution and contrast than the scans: 2×2×2 block means (the affine moved to the block
-    /// centres), the square root of the values scaled to 0–200, Gaussian noise of standard deviation 5 (the same recipe as
-    /// tests/tools/template_world_check.py make, which the tests check with nibabel).
+    /// centres), the square root of the values scaled to 0–200, Gaussian noise of standard deviation 5 (the recipe of
+    /// tests/tools/template_world_check.py make, which the tests check with nibabel). An odd number of planes along an axis
+    /// keeps its last plane as a block of its own, that plane counted twice (the recipe of the script drops it): a template
+    /// must cover the whole specimen, and until 2026-12-05 the last sagittal plane of a 181-plane volume lay outside it, so
+    /// nothing checked the section cut there. The blocks the script makes are the same here, values and noise alike (the
+    /// scaling and the noise's order are taken over them first; the last planes follow).
     /// </summary>
     public static Volume CoarseTemplate(Volume v, int seed)
     {
-        int nx = v.Nx / 2, ny = v.Ny / 2, nz = v.Nz / 2;
+        int fx = v.Nx / 2, fy = v.Ny / 2, fz = v.Nz / 2;                      // whole blocks
+        int nx = (v.Nx + 1) / 2, ny = (v.Ny + 1) / 2, nz = (v.Nz + 1) / 2;    // with an odd last plane's block
         var data = new float[(long)nx * ny * nz];
+        long At(int i, int j, int k) => i + (long)nx * (j + (long)ny * k);
+        bool Whole(int i, int j, int k) => i < fx && j < fy && k < fz;
         for (int k = 0; k < nz; k++)
         for (int j = 0; j < ny; j++)
         for (int i = 0; i < nx; i++)
         {
             double sum = 0;
-            for (int c = 0; c < 8; c++) sum += v[2 * i + (c & 1), 2 * j + (c >> 1 & 1), 2 * k + (c >> 2)];
-            data[i + (long)nx * (j + (long)ny * k)] = (float)(sum / 8);
+            for (int c = 0; c < 8; c++)
+                sum += v[Math.Min(2 * i + (c & 1), v.Nx - 1), Math.Min(2 * j + (c >> 1 & 1), v.Ny - 1), Math.Min(2 * k + (c >> 2), v.Nz - 1)];
+            data[At(i, j, k)] = (float)(sum / 8);
         }
-        float min = data.Min(), max = data.Max();
+        float min = float.MaxValue, max = float.MinValue;
+        for (int k = 0; k < fz; k++)
+        for (int j = 0; j < fy; j++)
+        for (int i = 0; i < fx; i++) { min = Math.Min(min, data[At(i, j, k)]); max = Math.Max(max, data[At(i, j, k)]); }
         var rng = new DemoRandom(seed, purpose: 43);
-        for (int n = 0; n < data.Length; n++)
-            data[n] = (float)(Math.Sqrt(Math.Max(0, (data[n] - min) / Math.Max(1e-12, max - min))) * 200 + 5 * rng.NextGaussian());
+        float Scaled(float x) => (float)(Math.Sqrt(Math.Max(0, (x - min) / Math.Max(1e-12, max - min))) * 200 + 5 * rng.NextGaussian());
+        foreach (bool whole in new[] { true, false })
+            for (int k = 0; k < nz; k++)
+            for (int j = 0; j < ny; j++)
+            for (int i = 0; i < nx; i++)
+                if (Whole(i, j, k) == whole) data[At(i, j, k)] = Scaled(data[At(i, j, k)]);
         var a = v.Affine;
         var rows = new double[3][];
         for (int r = 0; r < 3; r++)
