@@ -70,3 +70,40 @@ public sealed unsafe class ComplexImage : IDisposable
         _data = null;
     }
 }
+
+/// <summary>
+/// Complex images kept per thread for reuse: each registered pair needs several scratch spectra of the canvas size, and
+/// allocating and freeing them in native memory for each of hundreds of pairs left the C library's heap several hundred
+/// megabytes larger than what was in use (the ch2bet series of docs/benchmarks.md: peak RSS 643 MB, 483 MB with every
+/// such block mapped and unmapped on its own).
+/// </summary>
+internal static class ComplexImagePool
+{
+    /// <summary>At most this many images wait on one thread (two canvas sizes, four each: a pair and its half-size pair).</summary>
+    private const int MaxSpare = 8;
+
+    [ThreadStatic] private static List<ComplexImage>? _spare;
+
+    /// <summary>An image of that size whose contents are whatever was left in it: the caller writes every element before reading it.</summary>
+    public static ComplexImage Rent(int width, int height)
+    {
+        var spare = _spare;
+        if (spare is not null)
+            for (int i = spare.Count - 1; i >= 0; i--)
+                if (spare[i].Width == width && spare[i].Height == height)
+                {
+                    var image = spare[i];
+                    spare.RemoveAt(i);
+                    return image;
+                }
+        return new ComplexImage(width, height);
+    }
+
+    /// <summary>Gives <paramref name="image"/> back for this thread's next <see cref="Rent"/>, or frees it when enough wait.</summary>
+    public static void Return(ComplexImage image)
+    {
+        var spare = _spare ??= [];
+        if (spare.Count < MaxSpare) spare.Add(image);
+        else image.Dispose();
+    }
+}

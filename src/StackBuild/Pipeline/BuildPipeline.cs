@@ -65,7 +65,7 @@ public static class BuildPipeline
         {
             var w = sections[n];
             var tissue = w.Prepared is { } prepared
-                ? new SectionTissue(prepared.TissueMask, prepared.WorkImage.Width, prepared.WorkImage.Height, prepared.FullToWork.Inverse())
+                ? new SectionTissue(prepared.TissueMask, prepared.WorkWidth, prepared.WorkHeight, prepared.FullToWork.Inverse())
                 : null;
             return new GridSection(w.FullToWork, p.Chain[n].ToReference, w.Entry.Image!.Width, w.Entry.Image!.Height, tissue);
         }).ToList();

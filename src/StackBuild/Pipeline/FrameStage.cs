@@ -70,9 +70,10 @@ public static class FrameStage
         var box = PlaneBox.Empty;
         foreach (int n in placed)
         {
-            var image = sections[n].Prepared!.WorkImage;
-            var map = sections[n].Prepared!.FullToWork.Inverse().Then(chain[n].ToReference);
-            foreach (var (x, y) in new[] { (-0.5, -0.5), (image.Width - 0.5, -0.5), (-0.5, image.Height - 0.5), (image.Width - 0.5, image.Height - 0.5) })
+            var prepared = sections[n].Prepared!;
+            var map = prepared.FullToWork.Inverse().Then(chain[n].ToReference);
+            int width = prepared.WorkWidth, height = prepared.WorkHeight;
+            foreach (var (x, y) in new[] { (-0.5, -0.5), (width - 0.5, -0.5), (-0.5, height - 0.5), (width - 0.5, height - 0.5) })
             {
                 var p = map.Apply(x, y);
                 box = box.Including(p.X, p.Y);

@@ -37,11 +37,13 @@ internal sealed class PairEngine : IDisposable
         _moving = movingCanvas;
         _n = fixedCanvas.Size;
         _fft = Fft2D.Create(_n, _n);
-        _fixedSpectrum = new ComplexImage(_n, _n);
+        // Rented: the fixed spectrum is copied whole, the moving one loaded whole before each transform, and the cross-power
+        // writes both of the others whole (PhaseCorrelation.Correlate), so what a rented image held never shows.
+        _fixedSpectrum = ComplexImagePool.Rent(_n, _n);
         fixedCanvas.Spectrum.CopyTo(_fixedSpectrum.Span);
-        _movingSpectrum = new ComplexImage(_n, _n);
-        _cross = new ComplexImage(_n, _n);
-        _surface = new ComplexImage(_n, _n);
+        _movingSpectrum = ComplexImagePool.Rent(_n, _n);
+        _cross = ComplexImagePool.Rent(_n, _n);
+        _surface = ComplexImagePool.Rent(_n, _n);
         _warped = TakeWarpBuffer(_n);
         if (Avx.IsSupported) _corners = PackCorners(movingCanvas, TakeBuffer(4 * _n * _n));
         _spectralWeight = lowPass > 0 ? Weights.GetOrAdd((_n, lowPass), k => PhaseCorrelation.GaussianSpectralWeight(k.Item1, k.Item1, k.Item2)) : null;
@@ -397,9 +399,9 @@ internal sealed class PairEngine : IDisposable
         var spare = _spareWarpBuffers ??= [];
         if (spare.Count < 4) spare.Add(_warped);
         if (_corners is not null && spare.Count < 6) spare.Add(_corners);
-        _fixedSpectrum.Dispose();
-        _movingSpectrum.Dispose();
-        _cross.Dispose();
-        _surface.Dispose();
+        ComplexImagePool.Return(_fixedSpectrum);
+        ComplexImagePool.Return(_movingSpectrum);
+        ComplexImagePool.Return(_cross);
+        ComplexImagePool.Return(_surface);
     }
 }

@@ -224,13 +224,13 @@ public static class PhaseCorrelation
         // The grid's columns padded to whole vectors of four: each lane sums exactly the terms, in exactly the order, that a
         // loop over one column would, so the result is the same bit for bit (.NET never fuses a multiply and an add).
         int stride = (size + 3) & ~3;
-        var (kxRe, kxIm) = Kernel(w, xs, half + 1, stride);   // [kx * stride + j]; only kx = 0…w/2 is used
-        var (kyRe, kyIm) = Kernel(h, ys, h, size);            // [ky * size + i]
+        var (kxRe, kxIm) = Kernel(w, xs, half + 1, stride, ref _kxRe, ref _kxIm);   // [kx * stride + j]; only kx = 0…w/2 is used
+        var (kyRe, kyIm) = Kernel(h, ys, h, size, ref _kyRe, ref _kyIm);            // [ky * size + i]
         // Step 1: T[ky, j] = Σ_kx c·R[ky, kx]·e^(2πi·fx·x_j/w) over kx = 0…w/2 only. Both images are real, so
         // R is Hermitian (R(−k) = conj R(k)) and the real part we need counts each column kx and its mirror −kx
         // alike: c = 2 for the columns that have a distinct mirror, 1 for kx = 0 and the Nyquist column.
-        var tRe = new double[h * stride];
-        var tIm = new double[h * stride];
+        var tRe = Scratch(ref _tRe, h * stride);   // every element up to h · stride is written below before it is read
+        var tIm = Scratch(ref _tIm, h * stride);
         var row0 = (Complex32*)cross.Pointer;
         // One thread: pairs are registered in parallel already, so a parallel loop here only adds its overhead.
         fixed (double* exRe = kxRe, exIm = kxIm, outRe = tRe, outIm = tIm)
@@ -284,10 +284,12 @@ public static class PhaseCorrelation
     /// e^(2πi·f·p/n) (real and imaginary parts) for the signed frequency f of the first <paramref name="bins"/> FFT bins and
     /// each position p, laid out [bin * <paramref name="stride"/> + j] (lanes past the positions are 0).
     /// </summary>
-    private static (double[] Re, double[] Im) Kernel(int n, double[] positions, int bins, int stride)
+    private static (double[] Re, double[] Im) Kernel(int n, double[] positions, int bins, int stride, ref double[]? reBuffer, ref double[]? imBuffer)
     {
-        var re = new double[bins * stride];
-        var im = new double[bins * stride];
+        var re = Scratch(ref reBuffer, bins * stride);
+        var im = Scratch(ref imBuffer, bins * stride);
+        Array.Clear(re, 0, bins * stride);
+        Array.Clear(im, 0, bins * stride);
         for (int bin = 0; bin < bins; bin++)
         {
             int f = bin < (n + 1) / 2 ? bin : bin - n;
@@ -299,5 +301,16 @@ public static class PhaseCorrelation
             }
         }
         return (re, im);
+    }
+
+    // Each thread keeps the DFT upsampling's kernels and partial sums for its next call: they are a few tens of kilobytes a
+    // call, two calls a hypothesis, and a build's thousands of hypotheses otherwise allocate gigabytes of them. The arrays
+    // may be longer than a call needs; every index used is computed from the call's own sizes.
+    [ThreadStatic] private static double[]? _kxRe, _kxIm, _kyRe, _kyIm, _tRe, _tIm;
+
+    private static double[] Scratch(ref double[]? buffer, int length)
+    {
+        if (buffer is null || buffer.Length < length) buffer = new double[length];
+        return buffer;
     }
 }

@@ -17,8 +17,17 @@ public sealed class PreparedSection
     public int FullHeight { get; }
     /// <summary>Working pixels per full-resolution pixel (≤ 1).</summary>
     public double Scale { get; }
-    /// <summary>The preprocessed working image: tissue bright on dark, values in [0, 1].</summary>
-    public GrayImage WorkImage { get; }
+    /// <summary>
+    /// The preprocessed working image: tissue bright on dark, values in [0, 1]. A section prepared from an image the build
+    /// holds anyway (<see cref="SectionRegistration.PrepareUnreduced"/>) keeps only that image and the map of its values, and
+    /// makes this anew, the same to the bit, each time it is asked for (a new array each time: keep it while using it); the
+    /// build then holds one working-size image a section instead of two.
+    /// </summary>
+    public GrayImage WorkImage => _work ?? Derive();
+    /// <summary>Width of <see cref="WorkImage"/>.</summary>
+    public int WorkWidth { get; }
+    /// <summary>Height of <see cref="WorkImage"/>.</summary>
+    public int WorkHeight { get; }
     /// <summary>True when the scan had a bright background and was inverted.</summary>
     public bool Inverted { get; }
     /// <summary>The tissue (smoothed Otsu), row-major over <see cref="WorkImage"/>.</summary>
@@ -46,13 +55,33 @@ public sealed class PreparedSection
 
     private readonly CanvasCache? _cache;
     private readonly Lazy<SectionCanvas> _own;
+    private readonly GrayImage? _work;
+    /// <summary>Without <see cref="_work"/>: the image it is made from, and the map of its values (after the inversion).</summary>
+    private readonly GrayImage? _source;
+    private readonly float _lo, _range;
 
     internal PreparedSection(int fullWidth, int fullHeight, double scale, GrayImage work, bool inverted, bool useForegroundMask, CanvasCache? cache = null)
+        : this(fullWidth, fullHeight, scale, work, inverted, useForegroundMask, cache, null, 0, 0) { }
+
+    /// <summary>
+    /// A section whose working image is <paramref name="source"/> (inverted when <paramref name="inverted"/>) under
+    /// <see cref="Preprocessing.Normalised"/>(·, <paramref name="lo"/>, <paramref name="range"/>); <paramref name="work"/> is
+    /// that image, made once here for the tissue mask and not kept.
+    /// </summary>
+    internal static PreparedSection Derived(int fullWidth, int fullHeight, GrayImage source, GrayImage work, float lo, float range, bool inverted,
+        bool useForegroundMask, CanvasCache? cache) =>
+        new(fullWidth, fullHeight, 1.0, work, inverted, useForegroundMask, cache, source, lo, range);
+
+    private PreparedSection(int fullWidth, int fullHeight, double scale, GrayImage work, bool inverted, bool useForegroundMask, CanvasCache? cache,
+        GrayImage? source, float lo, float range)
     {
         FullWidth = fullWidth;
         FullHeight = fullHeight;
         Scale = scale;
-        WorkImage = work;
+        _work = source is null ? work : null;
+        (_source, _lo, _range) = (source, lo, range);
+        WorkWidth = work.Width;
+        WorkHeight = work.Height;
         Inverted = inverted;
         UsesForegroundMask = useForegroundMask;
         TissueMask = Preprocessing.TissueMask(work.Pixels, work.Width, work.Height);
@@ -60,6 +89,16 @@ public sealed class PreparedSection
         CanvasSize = Fft2D.PaddedSize(Math.Max(work.Width, work.Height));
         _cache = cache;
         _own = new Lazy<SectionCanvas>(() => new SectionCanvas(this, CanvasSize));
+    }
+
+    private GrayImage Derive()
+    {
+        var source = _source!.Pixels;
+        var pixels = new float[source.Length];
+        float lo = _lo, range = _range;
+        if (Inverted) for (int i = 0; i < pixels.Length; i++) pixels[i] = Preprocessing.Normalised(-source[i], lo, range);
+        else for (int i = 0; i < pixels.Length; i++) pixels[i] = Preprocessing.Normalised(source[i], lo, range);
+        return new GrayImage(_source.Width, _source.Height, pixels);
     }
 
     /// <summary>The same section at a smaller working scale (for pairing with a section prepared at that scale).</summary>
@@ -195,10 +234,12 @@ internal sealed class SectionCanvas
     private static Complex32[] WindowedSpectrum(float[] signal, float[] window, int size)
     {
         var fft = Fft2D.Create(size, size);
-        using var spectrum = new ComplexImage(size, size);
+        var spectrum = ComplexImagePool.Rent(size, size);   // LoadWindowed writes every element
         LoadWindowed(signal, window, spectrum);
         fft.Forward(spectrum);
-        return spectrum.Span.ToArray();
+        var result = spectrum.Span.ToArray();
+        ComplexImagePool.Return(spectrum);
+        return result;
     }
 
     /// <summary>2×2 block means of an n×n image (n even).</summary>

@@ -66,7 +66,13 @@ public static class Preprocessing
     /// Maps the <paramref name="low"/> and <paramref name="high"/> quantiles to 0 and 1 and clamps to [0, 1]
     /// (robust to dust, saturated spots and a few dead pixels). A flat image becomes all zeros.
     /// </summary>
-    public static void NormaliseRobust(Span<float> pixels, double low = 0.01, double high = 0.995)
+    public static void NormaliseRobust(Span<float> pixels, double low = 0.01, double high = 0.995) => NormaliseRobustRange(pixels, low, high);
+
+    /// <summary>
+    /// As <see cref="NormaliseRobust"/>, and returns the map it applied: each value v became
+    /// <see cref="Normalised"/>(v, lo, range).
+    /// </summary>
+    public static (float Lo, float Range) NormaliseRobustRange(Span<float> pixels, double low = 0.01, double high = 0.995)
     {
         float lo = ImageOps.Percentile(pixels, low), hi = ImageOps.Percentile(pixels, high);
         if (!(hi > lo))
@@ -76,8 +82,12 @@ public static class Preprocessing
             foreach (var v in pixels) { lo = Math.Min(lo, v); hi = Math.Max(hi, v); }
         }
         float range = hi - lo;
-        for (int i = 0; i < pixels.Length; i++) pixels[i] = range > 0 ? Math.Clamp((pixels[i] - lo) / range, 0f, 1f) : 0f;
+        for (int i = 0; i < pixels.Length; i++) pixels[i] = Normalised(pixels[i], lo, range);
+        return (lo, range);
     }
+
+    /// <summary>One value under <see cref="NormaliseRobustRange"/>'s map (the same float operations, so the same bits).</summary>
+    public static float Normalised(float v, float lo, float range) => range > 0 ? Math.Clamp((v - lo) / range, 0f, 1f) : 0f;
 
     /// <summary>
     /// The tissue: pixels of the Gaussian-smoothed image (σ = <paramref name="sigma"/> px) above its Otsu

@@ -127,8 +127,23 @@ public static class SectionRegistration
     /// </summary>
     /// <param name="canvases">When given, the section's registration canvas is kept only while the cache holds it (see
     /// <see cref="PreparedSection"/>); otherwise it is kept with the section.</param>
-    public static PreparedSection PrepareUnreduced(GrayImage workImage, RegistrationOptions options, CanvasCache? canvases = null) =>
-        Prepare(workImage, 1.0, options, canvases);
+    /// <remarks>The section keeps <paramref name="workImage"/> (which must not change afterwards) and makes its preprocessed
+    /// image from it when asked, rather than holding both (<see cref="PreparedSection.WorkImage"/>).</remarks>
+    public static PreparedSection PrepareUnreduced(GrayImage workImage, RegistrationOptions options, CanvasCache? canvases = null)
+    {
+        var work = workImage.Clone();
+        bool invert = Invert(work, options);
+        if (invert) for (int i = 0; i < work.Pixels.Length; i++) work.Pixels[i] = -work.Pixels[i];
+        var (lo, range) = Preprocessing.NormaliseRobustRange(work.Pixels);
+        return PreparedSection.Derived(workImage.Width, workImage.Height, workImage, work, lo, range, invert, options.ForegroundMask, canvases);
+    }
+
+    private static bool Invert(GrayImage work, RegistrationOptions options) => options.Polarity switch
+    {
+        TissuePolarity.DarkOnBright => true,
+        TissuePolarity.BrightOnDark => false,
+        _ => Preprocessing.HasBrightBackground(work),
+    };
 
     /// <summary>
     /// Tissue smaller than this many pixels at the working size (an 80 × 80 pixel area; a rule of thumb of this project,
@@ -157,12 +172,7 @@ public static class SectionRegistration
     private static PreparedSection Prepare(GrayImage fullResolution, double scale, RegistrationOptions options, CanvasCache? canvases = null)
     {
         var work = Preprocessing.Reduce(fullResolution, scale);
-        bool invert = options.Polarity switch
-        {
-            TissuePolarity.DarkOnBright => true,
-            TissuePolarity.BrightOnDark => false,
-            _ => Preprocessing.HasBrightBackground(work),
-        };
+        bool invert = Invert(work, options);
         if (invert) for (int i = 0; i < work.Pixels.Length; i++) work.Pixels[i] = -work.Pixels[i];
         Preprocessing.NormaliseRobust(work.Pixels);
         return new PreparedSection(fullResolution.Width, fullResolution.Height, scale, work, invert, options.ForegroundMask, canvases);
