@@ -64,13 +64,8 @@ public static class Preprocessing
 
     /// <summary>
     /// Maps the <paramref name="low"/> and <paramref name="high"/> quantiles to 0 and 1 and clamps to [0, 1]
-    /// (robust to dust, saturated spots and a few dead pixels). A flat image becomes all zeros.
-    /// </summary>
-    public static void NormaliseRobust(Span<float> pixels, double low = 0.01, double high = 0.995) => NormaliseRobustRange(pixels, low, high);
-
-    /// <summary>
-    /// As <see cref="NormaliseRobust"/>, and returns the map it applied: each value v became
-    /// <see cref="Normalised"/>(v, lo, range).
+    /// (robust to dust, saturated spots and a few dead pixels). A flat image becomes all zeros. Returns the map it applied:
+    /// each value v became <see cref="Normalised"/>(v, lo, range).
     /// </summary>
     public static (float Lo, float Range) NormaliseRobustRange(Span<float> pixels, double low = 0.01, double high = 0.995)
     {

@@ -132,18 +132,25 @@ public static class SectionRegistration
     public static PreparedSection PrepareUnreduced(GrayImage workImage, RegistrationOptions options, CanvasCache? canvases = null)
     {
         var work = workImage.Clone();
-        bool invert = Invert(work, options);
-        if (invert) for (int i = 0; i < work.Pixels.Length; i++) work.Pixels[i] = -work.Pixels[i];
-        var (lo, range) = Preprocessing.NormaliseRobustRange(work.Pixels);
+        bool invert = ShouldInvert(work, options);
+        var (lo, range) = Stretch(work, invert);
         return PreparedSection.Derived(workImage.Width, workImage.Height, workImage, work, lo, range, invert, options.ForegroundMask, canvases);
     }
 
-    private static bool Invert(GrayImage work, RegistrationOptions options) => options.Polarity switch
+    private static bool ShouldInvert(GrayImage work, RegistrationOptions options) => options.Polarity switch
     {
         TissuePolarity.DarkOnBright => true,
         TissuePolarity.BrightOnDark => false,
         _ => Preprocessing.HasBrightBackground(work),
     };
+
+    /// <summary>The preprocessing of every prepared image, in place: negated when <paramref name="invert"/>, then stretched to 0–1
+    /// (<see cref="Preprocessing.NormaliseRobustRange"/>, whose map it returns).</summary>
+    private static (float Lo, float Range) Stretch(GrayImage work, bool invert)
+    {
+        if (invert) for (int i = 0; i < work.Pixels.Length; i++) work.Pixels[i] = -work.Pixels[i];
+        return Preprocessing.NormaliseRobustRange(work.Pixels);
+    }
 
     /// <summary>
     /// Tissue smaller than this many pixels at the working size (an 80 × 80 pixel area; a rule of thumb of this project,
@@ -163,8 +170,7 @@ public static class SectionRegistration
     {
         if (scale < 1.25 || prepared.Scale != 1 || prepared.TissueMask.Count(t => t) >= FinerBelowTissuePixels) return prepared;
         var work = finer.Clone();
-        if (prepared.Inverted) for (int i = 0; i < work.Pixels.Length; i++) work.Pixels[i] = -work.Pixels[i];
-        Preprocessing.NormaliseRobust(work.Pixels);
+        Stretch(work, prepared.Inverted);
         prepared.Finer = new PreparedSection(prepared.FullWidth, prepared.FullHeight, scale, work, prepared.Inverted, options.ForegroundMask, canvases);
         return prepared;
     }
@@ -172,9 +178,8 @@ public static class SectionRegistration
     private static PreparedSection Prepare(GrayImage fullResolution, double scale, RegistrationOptions options, CanvasCache? canvases = null)
     {
         var work = Preprocessing.Reduce(fullResolution, scale);
-        bool invert = Invert(work, options);
-        if (invert) for (int i = 0; i < work.Pixels.Length; i++) work.Pixels[i] = -work.Pixels[i];
-        Preprocessing.NormaliseRobust(work.Pixels);
+        bool invert = ShouldInvert(work, options);
+        Stretch(work, invert);
         return new PreparedSection(fullResolution.Width, fullResolution.Height, scale, work, invert, options.ForegroundMask, canvases);
     }
 
