@@ -42,7 +42,7 @@ public static class BuildPipeline
             var template = options.Template is { } t ? TemplateVolume.Load(t.Path, t.CutAxis) : null;
             return PlanStage.Plan(options, series, template);
         });
-        var sections = StageClock.Time(clock, "prepare", () => PrepareStage.Prepare(plan, images, progress));
+        using var sections = StageClock.Time(clock, "prepare", () => PrepareStage.Prepare(plan, images, progress));
         bool align = options.Align && sections.Count > 1;
         var slices = StageClock.Time(clock, "template slice", () => align ? TemplateStage.Slice(plan, sections, progress) : null); // null without a template
         var pairs = StageClock.Time(clock, "register", () => align ? RegisterStage.Register(plan, sections, slices, progress, pairCache) : null);

@@ -35,10 +35,10 @@ public static class FrameStage
             // Section N exactly as it lay on its slide, turned face up only where the manifest says it was mounted face down.
             var toFrame = placements.Chain[frameIndex].ToReference.Inverse();
             bool faceFlipped = sections[frameIndex].Entry.MountedMirrored == true;
-            if (faceFlipped) toFrame = toFrame.Then(Transform2D.MirrorX((sections[frameIndex].Image.Width - 1) / 2.0));
+            if (faceFlipped) toFrame = toFrame.Then(Transform2D.MirrorX((sections[frameIndex].Width - 1) / 2.0));
             placements = placements.Reexpressed(toFrame) with { FaceFlipped = faceFlipped };
         }
-        var frameImage = sections[frameIndex].Image;
+        var frameImage = sections[frameIndex];
         double frameCx = (frameImage.Width - 1) / 2.0, frameCy = (frameImage.Height - 1) / 2.0;
         if (options.Frame.Upright && placements.OnTemplate is null)
         {

@@ -155,7 +155,7 @@ public static class RecordStage
             RouteDisagreementUm = place.RouteDisagreement is { } d ? d * workUm : null,
             RunnerUp = pair?.RunnerUp is { } ru ? new HypothesisRecord(ru.Mirrored, ru.RotationDegrees, ru.Ncc, ru.Mirrored != pair.Best.Mirrored) : null,
             DriftCorrectionUm = smoothing is null || place.Route is LinkRoute.Failed or LinkRoute.Template || place.Part != 0 ? null : smoothing.CorrectionPx[n] * workUm,
-            Template = placements.OnTemplate is { } onTemplate ? TemplateRecord(onTemplate, placements.Chain, n, workUm, sections[n].Image)
+            Template = placements.OnTemplate is { } onTemplate ? TemplateRecord(onTemplate, placements.Chain, n, workUm, sections[n])
                 with { CarriedWith = onTemplate.Guide.Sections[n].CarriedFrom is int from ? sections[from].Entry.Number : null } : null,
             SideMargin = parity is null || double.IsInfinity(parity.Margin[n]) ? null : Math.Round(parity.Margin[n], 4),
             NccBefore = place.LinkedTo >= 0 && sections[n].Prepared is { } a && sections[place.LinkedTo].Prepared is { } b
@@ -188,7 +188,7 @@ public static class RecordStage
         Geometry.Transform2D ChainMap(ChainPlacement p) => grid.ImageToPlane(sections[n].FullToWork, p.ToReference);
     }
 
-    private static SectionTemplateRecord TemplateRecord(TemplatePlacement t, IReadOnlyList<ChainPlacement> chain, int n, double workUm, GrayImage image)
+    private static SectionTemplateRecord TemplateRecord(TemplatePlacement t, IReadOnlyList<ChainPlacement> chain, int n, double workUm, WorkingSection image)
     {
         var p = t.Guide.Sections[n];
         double cx = (image.Width - 1) / 2.0, cy = (image.Height - 1) / 2.0;

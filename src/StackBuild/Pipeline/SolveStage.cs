@@ -67,12 +67,12 @@ public static class SolveStage
         {
             // Unaligned: centred as scanned, turned face up only where the manifest says a section was mounted face down.
             var placed = sections.Sections.Select((w, i) => new ChainPlacement(
-                (w.Entry.MountedMirrored == true ? Transform2D.MirrorX((w.Image.Width - 1) / 2.0) : Transform2D.Identity).Then(CentreOn(w.Image, sections[0].Image)),
+                (w.Entry.MountedMirrored == true ? Transform2D.MirrorX((w.Width - 1) / 2.0) : Transform2D.Identity).Then(CentreOn(w, sections[0])),
                 i == 0 ? LinkRoute.Reference : LinkRoute.Neighbour, -1, null, null)).ToList();
             return new Placements(placed, null, null, null, false, false, options.Align ? ["only one section: nothing to align"] : []);
         }
-        var chain = ChainSolver.Solve(sections.Count, pairs.Pair, i => Corners(sections[i].Image), options.Chain);
-        chain = PartsOnTheStacksSide(chain, pairs.Parity, i => (sections[i].Image.Width - 1) / 2.0);
+        var chain = ChainSolver.Solve(sections.Count, pairs.Pair, i => Corners(sections[i]), options.Chain);
+        chain = PartsOnTheStacksSide(chain, pairs.Parity, i => (sections[i].Width - 1) / 2.0);
         // Without a template nothing else can say where a part the chain could not link lies: it hangs on its best match
         // across the break, however weak (a template build leaves the parts to the template, which places them by itself).
         IReadOnlyList<PartJoin> joins = [];
@@ -92,24 +92,24 @@ public static class SolveStage
             .OrderBy(o => o.Moving).ThenBy(o => o.Fixed).ToList();
         // Sections of a part the chain could not link to the reference are left as the chain put them (no pair ties them).
         var smoothing = SmoothingSolver.Solve(chain.Select(c => c.Route == LinkRoute.Failed || c.Part != 0 ? (Transform2D?)null : c.ToReference).ToList(),
-            ChainPlacements.ReferenceIndex(chain), observations, i => SamplePoints(sections[i].Image), options.Smoothing with { MinConfidence = options.Chain.MinConfidence });
+            ChainPlacements.ReferenceIndex(chain), observations, i => SamplePoints(sections[i]), options.Smoothing with { MinConfidence = options.Chain.MinConfidence });
         var solved = smoothing.ToReference;
         var smoothed = chain.Select((c, i) => c.Route == LinkRoute.Failed || c.Part != 0 ? c : c with { ToReference = solved[i] }).ToList();
         return new Placements(smoothed, chain, smoothing, pairs.Parity, faceFlipped, true, []) { PartJoins = joins, UncertainParts = uncertain, LargestPart = largest };
     }
 
     /// <summary>The centre and the corners of the middle half of a section: where the solver measures disagreement.</summary>
-    private static (double X, double Y)[] SamplePoints(GrayImage image)
+    private static (double X, double Y)[] SamplePoints(WorkingSection image)
     {
         double w = image.Width - 1, h = image.Height - 1;
         return [(w / 2, h / 2), (w / 4, h / 4), (3 * w / 4, h / 4), (w / 4, 3 * h / 4), (3 * w / 4, 3 * h / 4)];
     }
 
-    private static (double X, double Y)[] Corners(GrayImage image) =>
+    private static (double X, double Y)[] Corners(WorkingSection image) =>
         [(0, 0), (image.Width - 1, 0), (0, image.Height - 1), (image.Width - 1, image.Height - 1)];
 
     /// <summary>Centres one image on another (for unaligned placement).</summary>
-    private static Transform2D CentreOn(GrayImage image, GrayImage reference) =>
+    private static Transform2D CentreOn(WorkingSection image, WorkingSection reference) =>
         Transform2D.Translation((reference.Width - image.Width) / 2.0, (reference.Height - image.Height) / 2.0);
 
     /// <summary>
@@ -146,7 +146,7 @@ public static class SolveStage
         flip = sections[referenceIndex].Entry.MountedMirrored
             ?? placedChain.Count(c => c.ToReference.IsMirrored) * 2 > placedChain.Count;
         if (!flip) return chain;
-        var r = sections[referenceIndex].Image;
+        var r = sections[referenceIndex];
         var mirror = Transform2D.MirrorX((r.Width - 1) / 2.0);
         return chain.Select(c => c.Route == LinkRoute.Failed ? c : c with { ToReference = c.ToReference.Then(mirror) }).ToList();
     }

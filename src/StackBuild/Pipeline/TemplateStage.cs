@@ -47,7 +47,7 @@ public static class TemplateStage
         progress?.Report("template: matching sections to their slices");
         var (across, acrossError) = Boundaries(chain);
         var guide = TemplateGuide.Place(new TemplateGuideInput(sections.Sections.Select((w, n) => new TemplateGuideSection(
-            z[n], w.Image, chain[n].ToReference, slices.Slices[n], across[n], OwnLinkConfidence: chain[n].Pair?.Confidence ?? 1,
+            z[n], w.Held, chain[n].ToReference, slices.Slices[n], across[n], OwnLinkConfidence: chain[n].Pair?.Confidence ?? 1,
             ChainFailed: chain[n].Route == LinkRoute.Failed,
             Unanchored: chain[n].Route != LinkRoute.Failed && chain[n].Part != 0,
             SideUncertain: sideMargin is not null && sideMargin[n] < MirrorParity.UncertainMargin,

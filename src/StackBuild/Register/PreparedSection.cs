@@ -30,8 +30,19 @@ public sealed class PreparedSection
     public int WorkHeight { get; }
     /// <summary>True when the scan had a bright background and was inverted.</summary>
     public bool Inverted { get; }
-    /// <summary>The tissue (smoothed Otsu), row-major over <see cref="WorkImage"/>.</summary>
-    public bool[] TissueMask { get; }
+    /// <summary>
+    /// The tissue (smoothed Otsu), row-major over <see cref="WorkImage"/>: a new array each time it is asked for, from a
+    /// copy packed eight pixels to the byte (a build holds one for every section).
+    /// </summary>
+    public bool[] TissueMask
+    {
+        get
+        {
+            var mask = new bool[_mask.Length];
+            _mask.CopyTo(mask, 0);
+            return mask;
+        }
+    }
     /// <summary>Share of the working image that is tissue (0 for an empty or flat scan).</summary>
     public double TissueFraction { get; }
     /// <summary>Full-resolution pixel coordinates to working-image pixel coordinates.</summary>
@@ -57,23 +68,24 @@ public sealed class PreparedSection
     private readonly Lazy<SectionCanvas> _own;
     private readonly GrayImage? _work;
     /// <summary>Without <see cref="_work"/>: the image it is made from, and the map of its values (after the inversion).</summary>
-    private readonly GrayImage? _source;
+    private readonly HeldImage? _source;
     private readonly float _lo, _range;
+    private readonly System.Collections.BitArray _mask;
 
     internal PreparedSection(int fullWidth, int fullHeight, double scale, GrayImage work, bool inverted, bool useForegroundMask, CanvasCache? cache = null)
         : this(fullWidth, fullHeight, scale, work, inverted, useForegroundMask, cache, null, 0, 0) { }
 
     /// <summary>
-    /// A section whose working image is <paramref name="source"/> (inverted when <paramref name="inverted"/>) under
+    /// A section whose working image is <paramref name="source"/> (read back when needed; inverted when <paramref name="inverted"/>) under
     /// <see cref="Preprocessing.Normalised"/>(·, <paramref name="lo"/>, <paramref name="range"/>); <paramref name="work"/> is
     /// that image, made once here for the tissue mask and not kept.
     /// </summary>
-    internal static PreparedSection Derived(int fullWidth, int fullHeight, GrayImage source, GrayImage work, float lo, float range, bool inverted,
+    internal static PreparedSection Derived(int fullWidth, int fullHeight, HeldImage source, GrayImage work, float lo, float range, bool inverted,
         bool useForegroundMask, CanvasCache? cache) =>
         new(fullWidth, fullHeight, 1.0, work, inverted, useForegroundMask, cache, source, lo, range);
 
     private PreparedSection(int fullWidth, int fullHeight, double scale, GrayImage work, bool inverted, bool useForegroundMask, CanvasCache? cache,
-        GrayImage? source, float lo, float range)
+        HeldImage? source, float lo, float range)
     {
         FullWidth = fullWidth;
         FullHeight = fullHeight;
@@ -84,8 +96,9 @@ public sealed class PreparedSection
         WorkHeight = work.Height;
         Inverted = inverted;
         UsesForegroundMask = useForegroundMask;
-        TissueMask = Preprocessing.TissueMask(work.Pixels, work.Width, work.Height);
-        TissueFraction = TissueMask.Count(t => t) / (double)TissueMask.Length;
+        var mask = Preprocessing.TissueMask(work.Pixels, work.Width, work.Height);
+        _mask = new System.Collections.BitArray(mask);
+        TissueFraction = mask.Count(t => t) / (double)mask.Length;
         CanvasSize = Fft2D.PaddedSize(Math.Max(work.Width, work.Height));
         _cache = cache;
         _own = new Lazy<SectionCanvas>(() => new SectionCanvas(this, CanvasSize));
@@ -93,12 +106,13 @@ public sealed class PreparedSection
 
     private GrayImage Derive()
     {
-        var source = _source!.Pixels;
+        var image = _source!.Load();
+        var source = image.Pixels;
         var pixels = new float[source.Length];
         float lo = _lo, range = _range;
         if (Inverted) for (int i = 0; i < pixels.Length; i++) pixels[i] = Preprocessing.Normalised(-source[i], lo, range);
         else for (int i = 0; i < pixels.Length; i++) pixels[i] = Preprocessing.Normalised(source[i], lo, range);
-        return new GrayImage(_source.Width, _source.Height, pixels);
+        return new GrayImage(image.Width, image.Height, pixels);
     }
 
     /// <summary>The same section at a smaller working scale (for pairing with a section prepared at that scale).</summary>

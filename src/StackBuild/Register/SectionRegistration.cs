@@ -129,12 +129,20 @@ public static class SectionRegistration
     /// <see cref="PreparedSection"/>); otherwise it is kept with the section.</param>
     /// <remarks>The section keeps <paramref name="workImage"/> (which must not change afterwards) and makes its preprocessed
     /// image from it when asked, rather than holding both (<see cref="PreparedSection.WorkImage"/>).</remarks>
-    public static PreparedSection PrepareUnreduced(GrayImage workImage, RegistrationOptions options, CanvasCache? canvases = null)
+    public static PreparedSection PrepareUnreduced(GrayImage workImage, RegistrationOptions options, CanvasCache? canvases = null) =>
+        PrepareUnreduced(new HeldImage(workImage), options, canvases);
+
+    /// <summary>
+    /// As <see cref="PrepareUnreduced(GrayImage, RegistrationOptions, CanvasCache?)"/> for an image held by an
+    /// <see cref="ImageSpill"/>: the section reads it back when its preprocessed image is asked for.
+    /// </summary>
+    public static PreparedSection PrepareUnreduced(HeldImage held, RegistrationOptions options, CanvasCache? canvases = null)
     {
+        var workImage = held.Load();
         var work = workImage.Clone();
         bool invert = ShouldInvert(work, options);
         var (lo, range) = Stretch(work, invert);
-        return PreparedSection.Derived(workImage.Width, workImage.Height, workImage, work, lo, range, invert, options.ForegroundMask, canvases);
+        return PreparedSection.Derived(workImage.Width, workImage.Height, held, work, lo, range, invert, options.ForegroundMask, canvases);
     }
 
     private static bool ShouldInvert(GrayImage work, RegistrationOptions options) => options.Polarity switch

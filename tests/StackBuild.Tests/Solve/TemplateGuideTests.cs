@@ -69,7 +69,7 @@ public class TemplateGuideTests(ITestOutputHelper output)
             var toReference = mount.Inverse().Then(drift).Then(mirrorReference ? Transform2D.MirrorX(pcx) : Transform2D.Identity).Then(firstMount.Value);
             double z = (k - 0.5) / 2;
             var slice = template.ContainsPlane(z) ? template.Slice(z, 1.0, out _) : null; // the truth's voxel size (the template's voxels are 2 units)
-            sections.Add(new TemplateGuideSection(z, image, toReference, slice));
+            sections.Add(new TemplateGuideSection(z, new HeldImage(image), toReference, slice));
             truths[s] = mount.Inverse();
         }
         return new Simulation(new TemplateGuideInput(sections, options), truths, (Canvas - 1) / 2.0, (Canvas - 1) / 2.0);
@@ -338,7 +338,7 @@ public class TemplateGuideTests(ITestOutputHelper output)
         {
             var noise = new GrayImage(Canvas, Canvas);
             for (int p = 0; p < noise.Pixels.Length; p++) noise.Pixels[p] = (float)random.NextDouble();
-            sections[s] = sections[s] with { Image = noise, Unanchored = true, ToReference = Transform2D.Rotation(100, 128, 128).Then(sections[s].ToReference) };
+            sections[s] = sections[s] with { Image = new HeldImage(noise), Unanchored = true, ToReference = Transform2D.Rotation(100, 128, 128).Then(sections[s].ToReference) };
         }
         sections[part] = sections[part] with { ChainConfidence = 0 };
         var broken = sim with { Input = sim.Input with { Sections = sections } };
@@ -369,7 +369,7 @@ public class TemplateGuideTests(ITestOutputHelper output)
         var random = new Random(9);
         var noiseImage = new GrayImage(Canvas, Canvas);
         for (int p = 0; p < noiseImage.Pixels.Length; p++) noiseImage.Pixels[p] = (float)random.NextDouble();
-        sections[noise] = sections[noise] with { Image = noiseImage, ToReference = Transform2D.Identity, ChainConfidence = 0, ChainFailed = true };
+        sections[noise] = sections[noise] with { Image = new HeldImage(noiseImage), ToReference = Transform2D.Identity, ChainConfidence = 0, ChainFailed = true };
         var wrong = sim with { Input = sim.Input with { Sections = sections } };
         var (_, guided, result) = RunAndReport("MRI ch2, sections placed wrong or not at all by the chain", wrong,
             Enumerable.Range(0, planes.Count).Where(s => s != noise).ToArray());
@@ -406,7 +406,7 @@ public class TemplateGuideTests(ITestOutputHelper output)
         double c = (Canvas - 1) / 2.0;
         var wrong = Transform2D.Rotation(164, c, c);
         // The end piece: only a disc of 22 px radius about the canvas centre is left of the last section (the rest background).
-        var piece = sections[last].Image!.Clone();
+        var piece = sections[last].Image!.Load().Clone();
         float background = piece[0, 0];
         for (int y = 0; y < Canvas; y++) for (int x = 0; x < Canvas; x++) if (double.Hypot(x - c, y - c) > 22) piece[x, y] = background;
         // Its link is weak (confidence 0.3), or (looseNotWeak) confident enough (0.53) but its two routes lie 300 px apart, so that
@@ -418,7 +418,7 @@ public class TemplateGuideTests(ITestOutputHelper output)
             : sections[rescued] with { ToReference = wrong.Then(sections[rescued].ToReference), ChainConfidence = 0.3, OwnLinkConfidence = 0.3, LinkedTo = rescued - 1 };
         // The last section's chain placement: its true link to the rescued one, then the rescued one's wrong placement.
         var link = sections[last].ToReference.Then(sim.Input.Sections[rescued].ToReference.Inverse());
-        sections[last] = sections[last] with { Image = piece, ToReference = link.Then(sections[rescued].ToReference), OwnLinkConfidence = 1, LinkedTo = rescued };
+        sections[last] = sections[last] with { Image = new HeldImage(piece), ToReference = link.Then(sections[rescued].ToReference), OwnLinkConfidence = 1, LinkedTo = rescued };
         var all = Enumerable.Range(0, planes.Count).ToArray();
         var withLink = sim with { Input = sim.Input with { Sections = sections } };
         var (chain, guided, result) = RunAndReport("MRI ch2, an end section hanging on a rescued one", withLink, all);
@@ -445,10 +445,10 @@ public class TemplateGuideTests(ITestOutputHelper output)
         var sections = sim.Input.Sections.ToList();
         int last = sections.Count - 1;
         double c = (Canvas - 1) / 2.0;
-        var other = sections[last - 10].Image!.Clone();
+        var other = sections[last - 10].Image!.Load().Clone();
         float background = other[0, 0];
         for (int y = 0; y < Canvas; y++) for (int x = 0; x < Canvas; x++) if (double.Hypot(x - c, y - c) > 30) other[x, y] = background;
-        sections[last] = sections[last] with { Image = other, OwnRouteDisagreementPx = 300, LinkErrorPx = 300 / Math.Sqrt(2) };
+        sections[last] = sections[last] with { Image = new HeldImage(other), OwnRouteDisagreementPx = 300, LinkErrorPx = 300 / Math.Sqrt(2) };
         var (chain, guided, result) = RunAndReport("MRI ch2, a weak wrong match at a loose end link", sim with { Input = sim.Input with { Sections = sections } },
             Enumerable.Range(0, planes.Count).ToArray());
         var p = result.Sections[last];
