@@ -16,6 +16,7 @@ internal static unsafe class Fftw
     internal const string LibraryName = "libfftw3f.so.3";
     private const int ForwardSign = -1, BackwardSign = 1;
     private const uint Measure = 0;
+    private const uint WisdomOnly = 1u << 21; // FFTW_WISDOM_ONLY (fftw3.h)
 
     private static readonly Lock PlannerLock = new();
     private static readonly Dictionary<(int W, int H), (nint Forward, nint Inverse)> Plans = [];
@@ -73,10 +74,33 @@ internal static unsafe class Fftw
         {
             if (_plansSinceExport == 0) return false;
             Directory.CreateDirectory(Path.GetDirectoryName(Path.GetFullPath(path))!);
+            // Plans that another run saved there since this one read the file (a build of other sizes that ended first) are
+            // taken in first, so this save keeps them: otherwise the next build at those sizes measures them again, may pick
+            // another algorithm and round differently (docs/architecture.md, "FFT plans"). Plans already made here stay.
+            if (File.Exists(path)) fftwf_import_wisdom_from_filename(path);
             var temp = $"{path}.{Environment.ProcessId}.part";
             if (fftwf_export_wisdom_to_filename(temp) == 0) { File.Delete(temp); return false; }
             File.Move(temp, path, overwrite: true);
             _plansSinceExport = 0;
+            return true;
+        }
+    }
+
+    /// <summary>Forgets every plan FFTW knows as wisdom (plans already made here are kept); for tests.</summary>
+    internal static void ForgetWisdom()
+    {
+        lock (PlannerLock) fftwf_forget_wisdom();
+    }
+
+    /// <summary>True when FFTW holds wisdom for the in-place forward transform of this size (FFTW_WISDOM_ONLY); for tests.</summary>
+    internal static bool HasWisdomFor(int width, int height)
+    {
+        lock (PlannerLock)
+        {
+            using var scratch = new ComplexImage(width, height);
+            nint plan = fftwf_plan_dft_2d(height, width, scratch.Pointer, scratch.Pointer, ForwardSign, Measure | WisdomOnly);
+            if (plan == 0) return false;
+            fftwf_destroy_plan(plan);
             return true;
         }
     }
@@ -111,6 +135,12 @@ internal static unsafe class Fftw
 
     [DllImport(LibraryName)]
     private static extern nint fftwf_plan_dft_2d(int n0, int n1, Complex32* input, Complex32* output, int sign, uint flags);
+
+    [DllImport(LibraryName)]
+    private static extern void fftwf_forget_wisdom();
+
+    [DllImport(LibraryName)]
+    private static extern void fftwf_destroy_plan(nint plan);
 
     [DllImport(LibraryName)]
     private static extern void fftwf_execute_dft(nint plan, Complex32* input, Complex32* output);
