@@ -17,7 +17,7 @@ public sealed record TemplatePlacement(TemplateGuideResult Guide, double[] Z, do
 /// <summary>The template slice at each prepared section's depth (null where the template does not reach), all in one pixel frame.</summary>
 /// <param name="Z">Each section's template plane (fractional index along the cut axis).</param>
 /// <param name="SliceToPlane">Slice pixels → template plane pixels.</param>
-public sealed record TemplateSlices(double[] Z, GrayImage?[] Slices, Transform2D SliceToPlane, double FirstPlane, double Direction);
+public sealed record TemplateSlices(double[] Z, HeldImage?[] Slices, Transform2D SliceToPlane, double FirstPlane, double Direction);
 
 public static class TemplateStage
 {
@@ -93,14 +93,14 @@ public static class TemplateStage
         double first = plan.Series.Sections[0].PositionUm, perUm = 1 / 1000.0 / template.PlaneSpacingMm;
         var z = sections.Sections.Select(w => firstPlane + direction * (w.Entry.PositionUm - first) * perUm).ToArray();
         int inside = z.Count(template.ContainsPlane);
-        var slices = new GrayImage?[sections.Count];
+        var slices = new HeldImage?[sections.Count];   // kept with the working images (on disk for a long series)
         var sliceToPlane = Transform2D.Identity;
         object gate = new();
         int done = 0;
         Parallel.For(0, sections.Count, new ParallelOptions { MaxDegreeOfParallelism = Environment.ProcessorCount }, n =>
         {
             if (!template.ContainsPlane(z[n])) return;
-            slices[n] = template.Slice(z[n], workUm / 1000, out var map);
+            slices[n] = sections.Spill.Hold(template.Slice(z[n], workUm / 1000, out var map));
             lock (gate) sliceToPlane = map;
             progress?.Report($"template: slice {Interlocked.Increment(ref done)}/{inside}");
         });
@@ -140,7 +140,7 @@ public static class TemplateStage
         var options = GuideOptions.Registration with { MeasureOtherMirror = true };
         var matches = new TemplateMatch?[sections.Count];
         Parallel.ForEach(chosen, new ParallelOptions { MaxDegreeOfParallelism = Environment.ProcessorCount },
-            n => matches[n] = TemplateRegistration.Register(sections[n].Image, slices.Slices[n]!, null, options));
+            n => matches[n] = TemplateRegistration.Register(sections[n].Image, slices.Slices[n]!.Load(), null, options));
         return matches;
     }
 

@@ -34,7 +34,7 @@ namespace StackBuild.Template;
 /// <param name="OwnRouteDisagreementPx">How far apart (working pixels) the section's placements through its first and second
 /// neighbour lie, trusted or not; null with fewer than two routes. Beyond <see cref="TemplateGuideOptions.LooseLinkPx"/> the
 /// section's own link is as doubtful as a weak one: a weak template match of it is searched again from scratch.</param>
-public sealed record TemplateGuideSection(double Z, HeldImage? Image, Transform2D ToReference, GrayImage? Slice, double ChainConfidence = 1,
+public sealed record TemplateGuideSection(double Z, HeldImage? Image, Transform2D ToReference, HeldImage? Slice, double ChainConfidence = 1,
     bool ChainFailed = false, double? LinkErrorPx = null, bool Unanchored = false, bool SideUncertain = false, TemplateMatch? Scratch = null,
     double? OwnLinkConfidence = null, int? LinkedTo = null, double? OwnRouteDisagreementPx = null)
 {
@@ -170,7 +170,7 @@ public static class TemplateGuide
         // (b) Every section registered to its slice from its chain placement.
         var chain = sections.Select(s => s.ToReference.Then(referenceToSlice)).ToArray();
         var measured = new TemplateMatch?[n];
-        Parallel.ForEach(usable, i => measured[i] = TemplateRegistration.Register(sections[i].Image!.Load(), sections[i].Slice!,
+        Parallel.ForEach(usable, i => measured[i] = TemplateRegistration.Register(sections[i].Image!.Load(), sections[i].Slice!.Load(),
             sections[i].Unanchored ? null : chain[i], options.Registration));
 
         // The correction each measurement asks for: a rotation about one pivot common to the whole stack and the shift of that
@@ -276,7 +276,7 @@ public static class TemplateGuide
         bool WeakMatch(int i) => WeakAmong(i, usable.Where(j => candidate[j])) is not null;
         var retry = usable.Where(i => !candidate[i] || sections[i].OwnConfidence < options.RescueChainConfidence || sections[i].SideUncertain
             || (Loose(i) && WeakMatch(i))).Concat(orphans).ToList();
-        Parallel.ForEach(retry, i => rescue[i] = sections[i].Scratch ?? TemplateRegistration.Register(sections[i].Image!.Load(), sections[i].Slice!, null, options.Registration));
+        Parallel.ForEach(retry, i => rescue[i] = sections[i].Scratch ?? TemplateRegistration.Register(sections[i].Image!.Load(), sections[i].Slice!.Load(), null, options.Registration));
         // An unplaced section is judged against its neighbours' matches whichever way they were found: where the chain
         // failed over a whole stretch, the other unplaced sections' matches from scratch are its neighbours' matches.
         var scratch = orphans.ToDictionary(i => i, i => rescue[i]!.Similarity);
@@ -343,7 +343,7 @@ public static class TemplateGuide
                 Transform2D? placedI = rescue[i] is { } r ? r.SectionToSlice : carried[i]?.Map;
                 if (placedI is null) continue;
                 var map = chain[j].Then(chain[i].Inverse()).Then(placedI.Value);
-                var there = TemplateRegistration.Register(sections[j].Image!.Load(), sections[j].Slice!, map, options.Registration);
+                var there = TemplateRegistration.Register(sections[j].Image!.Load(), sections[j].Slice!.Load(), map, options.Registration);
                 if (there.Similarity < measured[j]!.Similarity) continue;
                 carried[j] = (map, rescue[i] is not null ? i : carried[i]!.Value.From, there.SectionToSlice);
                 more = true;
@@ -476,7 +476,7 @@ public static class TemplateGuide
         var sample = Enumerable.Range(0, count).Select(t => usable[(int)Math.Round((t + 0.5) * usable.Count / count - 0.5)]).Distinct().ToList();
         var matches = new TemplateMatch[sample.Count];
         Parallel.For(0, sample.Count, t => matches[t] = sections[sample[t]].Scratch
-            ?? TemplateRegistration.Register(sections[sample[t]].Image!.Load(), sections[sample[t]].Slice!, null, options.Registration));
+            ?? TemplateRegistration.Register(sections[sample[t]].Image!.Load(), sections[sample[t]].Slice!.Load(), null, options.Registration));
         var candidates = sample.Select((i, t) => (Index: i, Map: sections[i].ToReference.Inverse().Then(matches[t].SectionToSlice), Match: matches[t])).ToList();
 
         var slice = sections[usable[0]].Slice!;

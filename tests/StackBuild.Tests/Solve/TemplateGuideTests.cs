@@ -69,7 +69,7 @@ public class TemplateGuideTests(ITestOutputHelper output)
             var toReference = mount.Inverse().Then(drift).Then(mirrorReference ? Transform2D.MirrorX(pcx) : Transform2D.Identity).Then(firstMount.Value);
             double z = (k - 0.5) / 2;
             var slice = template.ContainsPlane(z) ? template.Slice(z, 1.0, out _) : null; // the truth's voxel size (the template's voxels are 2 units)
-            sections.Add(new TemplateGuideSection(z, new HeldImage(image), toReference, slice));
+            sections.Add(new TemplateGuideSection(z, new HeldImage(image), toReference, slice is null ? null : new HeldImage(slice)));
             truths[s] = mount.Inverse();
         }
         return new Simulation(new TemplateGuideInput(sections, options), truths, (Canvas - 1) / 2.0, (Canvas - 1) / 2.0);
@@ -154,8 +154,8 @@ public class TemplateGuideTests(ITestOutputHelper output)
         foreach (int gap in new[] { 12, 47 }) sections[gap] = sections[gap] with { Image = null };
         // One wild measurement: the template slice of section 30 is displaced by (18, −12) px, as if the template were torn there.
         const int wild = 30;
-        var goodSlice = sections[wild].Slice!;
-        sections[wild] = sections[wild] with { Slice = RegisterTestImages.Move(goodSlice, Transform2D.Translation(18, -12), goodSlice.Width, goodSlice.Height) };
+        var goodSlice = sections[wild].Slice!.Load();
+        sections[wild] = sections[wild] with { Slice = new HeldImage(RegisterTestImages.Move(goodSlice, Transform2D.Translation(18, -12), goodSlice.Width, goodSlice.Height)) };
         sim = sim with { Input = sim.Input with { Sections = sections } };
         var evaluate = Enumerable.Range(0, planes.Count).Where(s => s is not 12 and not 47).ToArray();
         var (chain, guided, result) = RunAndReport("demo truth", sim, evaluate);
